@@ -1,0 +1,52 @@
+"""Command line: ``flamebode <command>``; every user error becomes a plain message.
+
+Each command lives in its own module under ``app.commands`` and is imported only when
+run, so ``flamebode --help`` stays fast and a missing optional library breaks only the
+command that needs it. Must not import Qt at module level.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from . import __version__
+from .errors import FlamebodeError
+
+# command name -> (module under app.commands, one-line help)
+COMMANDS: dict[str, tuple[str, str]] = {}
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="flamebode", description=(
+        "Flame transfer and describing function sweeps: tune the drive under a voltage ceiling, "
+        "record, and compute gain and phase at the reference plane."))
+    parser.add_argument("--version", action="version", version=f"flamebode {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, (module, help_text) in COMMANDS.items():
+        mod = importlib.import_module(f"app.commands.{module}")
+        p = sub.add_parser(name, help=help_text, description=help_text)
+        mod.add_arguments(p)
+        p.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if getattr(args, "_run", None) is None:
+        parser.print_help()
+        return 0
+    try:
+        return int(args._run(args) or 0)
+    except FlamebodeError as exc:
+        print(f"flamebode {args.command}: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print(f"flamebode {args.command}: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,1 @@
+"""Run files: index, per-attempt records, export. Must not import Qt or drivers."""

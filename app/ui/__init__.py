@@ -1,0 +1,1 @@
+"""Desktop front end: the only package that imports Qt or pyqtgraph."""
