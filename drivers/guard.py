@@ -1,0 +1,276 @@
+"""The hard voltage ceiling: every drive sample of every back-end passes through here.
+
+:class:`CeilingGuard` turns drive *requests* (frequency, peak volts) into the samples or
+amplitude commands a back-end actually sends, independently of any controller above it:
+
+* a request above the ceiling (or negative, or not finite) is refused with
+  :class:`~drivers.errors.CeilingExceeded` and changes nothing; it is never clipped into a
+  different test than the one asked for;
+* the amplitude moves linearly toward the request at ``ceiling_v / ramp_time_s`` volts per
+  second, inside a block (speaker protection);
+* a frequency change while the output is non-zero ramps down to zero, switches frequency
+  at zero and ramps back up; the phase runs on continuously across blocks;
+* :meth:`CeilingGuard.halt` zeroes the output from the next sample, from any thread or a
+  signal handler (it takes no lock).
+
+By construction the envelope never exceeds the ceiling; a last clip is kept only as a
+belt-and-braces and every time it would have acted is counted in
+:attr:`CeilingGuard.clip_events` (a bug counter the tests require to stay at zero).
+
+Imports: standard library, numpy, ``drivers.errors`` and ``drivers.protocols`` only.
+"""
+
+from __future__ import annotations
+
+import math
+import threading
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import CeilingExceeded, DriverError
+from .protocols import DriveStatus
+
+TWO_PI = 2.0 * math.pi
+
+
+class InvalidDriveRequest(DriverError, ValueError):
+    """A drive request or guard setting that makes no sense (bad frequency, bad rate...)."""
+
+
+@dataclass(frozen=True)
+class _Pending:
+    """A frequency change waiting for the output to reach zero."""
+
+    freq_hz: float
+    amplitude_v: float
+
+
+def _positive_finite(name: str, value: float) -> float:
+    value = float(value)
+    if not math.isfinite(value) or value <= 0.0:
+        raise InvalidDriveRequest(f"ceiling guard: {name} must be a finite number > 0, got {value!r}")
+    return value
+
+
+def _toward(start_v: float, end_v: float, travel_v: np.ndarray) -> np.ndarray:
+    """Amplitudes reached after moving ``travel_v`` volts from ``start_v`` toward ``end_v``.
+
+    Exactly ``end_v`` once the distance is covered, and never outside [start, end] even by
+    one rounding step (the envelope is bounded by construction, not by a later clip).
+    """
+    distance_v = abs(end_v - start_v)
+    sign = 1.0 if end_v >= start_v else -1.0
+    moved = np.where(travel_v >= distance_v, end_v, start_v + sign * travel_v)
+    return np.clip(moved, min(start_v, end_v), max(start_v, end_v))
+
+
+class CeilingGuard:
+    """Phase-continuous, ramped sine drive that can never exceed ``ceiling_v`` peak volts.
+
+    State (all under one lock): the frequency and phase of the last emitted sample, the
+    envelope amplitude of the last emitted sample, the target amplitude, and an optional
+    pending frequency change. ``halt()`` only raises a flag, applied under the lock by the
+    next call (and, if it arrives while a block is being rendered, that block is zeroed).
+    """
+
+    def __init__(self, ceiling_v: float, sample_rate_hz: float, ramp_time_s: float = 0.3) -> None:
+        self._ceiling_v = _positive_finite("ceiling_v", ceiling_v)
+        self._fs_hz = _positive_finite("sample_rate_hz", sample_rate_hz)
+        self._ramp_time_s = _positive_finite("ramp_time_s", ramp_time_s)
+        self._step_v = self._ceiling_v / self._ramp_time_s / self._fs_hz  # volts per sample
+        self._lock = threading.Lock()
+        self._halt_flag = False
+        self._freq_hz = 0.0
+        self._phase_rad = 0.0      # phase of the last emitted sample, wrapped to [0, 2π)
+        self._amp_v = 0.0          # envelope of the last emitted sample
+        self._target_v = 0.0
+        self._pending: _Pending | None = None
+        self._clip_events = 0
+
+    # ----------------------------------------------------------------- properties
+    @property
+    def ceiling_v(self) -> float:
+        return self._ceiling_v
+
+    @property
+    def sample_rate_hz(self) -> float:
+        return self._fs_hz
+
+    @property
+    def ramp_time_s(self) -> float:
+        return self._ramp_time_s
+
+    @property
+    def ramp_rate_v_per_s(self) -> float:
+        return self._ceiling_v / self._ramp_time_s
+
+    def time_to_settle_s(self) -> float:
+        """Ramp time left until the output reaches the requested amplitude (and frequency)."""
+        with self._lock:
+            self._apply_halt_flag()
+            if self._pending is None:
+                return abs(self._target_v - self._amp_v) / self.ramp_rate_v_per_s
+            return (self._amp_v + self._pending.amplitude_v) / self.ramp_rate_v_per_s
+
+    @property
+    def clip_events(self) -> int:
+        """Times the final clip would have changed a sample: a bug if ever non-zero."""
+        return self._clip_events
+
+    # ----------------------------------------------------------------- requests
+    def request(self, freq_hz: float, amplitude_v: float) -> None:
+        """Ask for a sine of ``amplitude_v`` PEAK volts at ``freq_hz``; ramped, never clipped."""
+        freq_hz, amplitude_v = self._validated(freq_hz, amplitude_v)
+        with self._lock:
+            self._apply_halt_flag()
+            if freq_hz == self._freq_hz:
+                self._pending = None
+                self._target_v = amplitude_v
+            elif self._amp_v == 0.0:
+                self._pending = None
+                self._freq_hz = freq_hz
+                self._target_v = amplitude_v
+            else:
+                self._pending = _Pending(freq_hz, amplitude_v)
+                self._target_v = 0.0
+
+    def ramp_down(self) -> None:
+        """Ramp the output to zero (any pending frequency change is dropped)."""
+        with self._lock:
+            self._apply_halt_flag()
+            self._pending = None
+            self._target_v = 0.0
+
+    def halt(self) -> None:
+        """Zero from the next sample, no ramp. Lock-free: safe from any thread or signal handler."""
+        self._halt_flag = True
+
+    def status(self) -> DriveStatus:
+        with self._lock:
+            self._apply_halt_flag()
+            target_v = self._pending.amplitude_v if self._pending else self._target_v
+            return DriveStatus(freq_hz=self._freq_hz, amplitude_v=self._amp_v,
+                               target_amplitude_v=target_v, ceiling_v=self._ceiling_v,
+                               ramping=not self._settled_locked())
+
+    def settled(self) -> bool:
+        """True when the amplitude has reached the target and no frequency change is pending."""
+        with self._lock:
+            self._apply_halt_flag()
+            return self._settled_locked()
+
+    # ----------------------------------------------------------------- output
+    def render(self, n_samples: int) -> np.ndarray:
+        """The next ``n_samples`` drive samples (float64 volts), ramped and phase-continuous."""
+        n = int(n_samples)
+        if n < 0:
+            raise InvalidDriveRequest(f"ceiling guard: cannot render {n_samples!r} samples")
+        with self._lock:
+            self._apply_halt_flag()
+            if self._pending is None and self._amp_v == self._target_v:
+                out = self._steady(n)
+            else:
+                amp_v, phase_rad = self._advance(np.arange(1, n + 1, dtype=np.float64), quantum=1.0)
+                out = amp_v * np.sin(phase_rad)
+            if self._halt_flag:  # halt() arrived while this block was being computed
+                self._apply_halt_flag()
+                out[:] = 0.0
+            return self._final_clip(out)
+
+    def amplitude_schedule(self, duration_s: float, step_s: float) -> np.ndarray:
+        """Peak amplitudes to send every ``step_s`` for ``duration_s`` to carry out the ramp.
+
+        For instruments set by discrete amplitude commands. Each value is the envelope at the
+        end of its step, so consecutive values differ by at most ``ramp_rate * step_s`` and
+        none exceeds the ceiling; the guard advances exactly as rendering that time would
+        (a pending frequency change takes effect right after the first exact zero in the schedule).
+        """
+        step_s = _positive_finite("step_s", step_s)
+        duration_s = float(duration_s)
+        if not math.isfinite(duration_s) or duration_s < 0.0:
+            raise InvalidDriveRequest(f"ceiling guard: duration_s must be finite and >= 0, got {duration_s!r}")
+        n_steps = math.ceil(duration_s / step_s - 1e-9)
+        with self._lock:
+            self._apply_halt_flag()
+            step_samples = step_s * self._fs_hz
+            k = np.arange(1, n_steps + 1, dtype=np.float64) * step_samples
+            amp_v, _ = self._advance(k, quantum=step_samples)
+            return self._final_clip(amp_v.copy())
+
+    # ----------------------------------------------------------------- internals
+    def _validated(self, freq_hz: float, amplitude_v: float) -> tuple[float, float]:
+        amplitude_v = float(amplitude_v)
+        freq_hz = float(freq_hz)
+        if not math.isfinite(amplitude_v) or amplitude_v < 0.0 or amplitude_v > self._ceiling_v:
+            raise CeilingExceeded(
+                f"drive request {amplitude_v!r} V peak at {freq_hz!r} Hz refused: amplitudes must be "
+                f"finite, >= 0 and within the {self._ceiling_v:g} V peak ceiling (nothing was changed)")
+        nyquist_hz = self._fs_hz / 2.0
+        if not math.isfinite(freq_hz) or freq_hz <= 0.0 or freq_hz >= nyquist_hz:
+            raise InvalidDriveRequest(
+                f"drive request at {freq_hz!r} Hz refused: frequency must be finite, > 0 and below "
+                f"half the {self._fs_hz:g} Hz sample rate ({nyquist_hz:g} Hz)")
+        return freq_hz, amplitude_v
+
+    def _apply_halt_flag(self) -> None:
+        """Carry out a pending halt (caller holds the lock)."""
+        if self._halt_flag:
+            self._halt_flag = False
+            self._amp_v = 0.0
+            self._target_v = 0.0
+            self._pending = None
+
+    def _settled_locked(self) -> bool:
+        return self._pending is None and self._amp_v == self._target_v
+
+    def _dphi(self, freq_hz: float) -> float:
+        return TWO_PI * freq_hz / self._fs_hz
+
+    def _steady(self, n: int) -> np.ndarray:
+        """Fast path at constant amplitude: one sine, computed in place."""
+        phase = np.arange(1, n + 1, dtype=np.float64)
+        phase *= self._dphi(self._freq_hz)
+        phase += self._phase_rad
+        if n:
+            self._phase_rad = float(phase[-1] % TWO_PI)
+        np.sin(phase, out=phase)
+        phase *= self._amp_v
+        return phase
+
+    def _advance(self, k: np.ndarray, quantum: float) -> tuple[np.ndarray, np.ndarray]:
+        """Envelope and phase at offsets ``k`` (samples after the last emitted one); moves state to k[-1].
+
+        ``k`` are multiples of ``quantum`` samples (1 for render, one step for schedules). A
+        pending frequency change switches after the first point whose envelope is exactly zero,
+        so the output (or the instrument's amplitude setting) passes through zero at the switch.
+        """
+        a0, f0, phi0 = self._amp_v, self._freq_hz, self._phase_rad
+        travel_v = k * self._step_v
+        if self._pending is None:
+            amp_v = _toward(a0, self._target_v, travel_v)
+            phase = phi0 + k * self._dphi(f0)
+            if k.size:
+                self._amp_v = float(amp_v[-1])
+                self._phase_rad = float(phase[-1] % TWO_PI)
+            return amp_v, phase
+        pend = self._pending
+        m = math.ceil(a0 / (self._step_v * quantum)) * quantum  # first point at zero
+        after = k > m
+        down_v = np.where(k >= m, 0.0, _toward(a0, 0.0, travel_v))
+        amp_v = np.where(after, _toward(0.0, pend.amplitude_v, (k - m) * self._step_v), down_v)
+        phi_m = phi0 + m * self._dphi(f0)
+        phase = np.where(after, phi_m + (k - m) * self._dphi(pend.freq_hz), phi0 + k * self._dphi(f0))
+        if k.size:
+            self._amp_v = float(amp_v[-1])
+            self._phase_rad = float(phase[-1] % TWO_PI)
+            if k[-1] >= m:  # reached zero: the new frequency takes over
+                self._freq_hz, self._target_v, self._pending = pend.freq_hz, pend.amplitude_v, None
+        return amp_v, phase
+
+    def _final_clip(self, values: np.ndarray) -> np.ndarray:
+        """Belt-and-braces only: the envelope is already bounded; count any would-be clip as a bug."""
+        if values.size and (values.max() > self._ceiling_v or values.min() < -self._ceiling_v):
+            self._clip_events += int(np.count_nonzero(np.abs(values) > self._ceiling_v))
+            np.clip(values, -self._ceiling_v, self._ceiling_v, out=values)
+        return values
