@@ -1,0 +1,95 @@
+"""Rig file loading: the demo rig loads; every kind of mistake gets a message naming file and key."""
+
+from __future__ import annotations
+
+import math
+import textwrap
+from pathlib import Path
+
+import pytest
+
+from app.errors import ConfigError
+from app.rig import load_rig
+from app.units import parse_quantity
+
+DEMO = Path(__file__).resolve().parents[1] / "configs" / "demo-rig.toml"
+
+
+def test_demo_rig_loads_in_si():
+    rig = load_rig(DEMO)
+    assert rig.duct.radius_m == pytest.approx(0.023)
+    assert rig.pressure_sensors[0].position == pytest.approx(-0.62)
+    assert rig.pressure_sensors[0].sensitivity == pytest.approx(0.0145)
+    assert rig.gas.temperature == pytest.approx(297.15)
+    assert rig.gas.flows[0].reference_temperature == pytest.approx(273.15)
+    assert rig.gas.flows[1].reference_temperature == pytest.approx(293.15)
+    assert rig.drive.ceiling == pytest.approx(2.0)
+    assert rig.input_channels == ("p1", "p2", "p3", "p4", "pmt", "drv_ref")
+
+
+@pytest.mark.parametrize("text, unit, si", [
+    ("25 mm", "length", 0.025), ("20 degC", "temperature", 293.15), ("1 bar", "pressure", 1e5),
+    ("14.5 mV/Pa", "sensitivity", 0.0145), ("100 L/min", "volume_flow", 100e-3 / 60), ("2", "voltage", 2.0),
+])
+def test_units_convert_to_si(text, unit, si):
+    assert parse_quantity(text, unit) == pytest.approx(si)
+
+
+def _write(tmp_path: Path, text: str) -> Path:
+    p = tmp_path / "rig.toml"
+    p.write_text(textwrap.dedent(text))
+    return p
+
+
+def _demo_with(tmp_path: Path, old: str, new: str) -> Path:
+    text = DEMO.read_text()
+    assert old in text, old
+    return _write(tmp_path, text.replace(old, new, 1))
+
+
+@pytest.mark.parametrize("old, new, expected", [
+    ('diameter = "46 mm"', 'diametre = "46 mm"', "duct.diametre: unknown key"),
+    ('diameter = "46 mm"', 'diameter = "46 kPa"', "wrong unit 'kPa' for a length"),
+    ('position = "-620 mm"', 'position = "-1200 mm"', "outside the duct"),
+    ('channel = "p2"', 'channel = "p1"', "duplicate channel name(s): p1"),
+    ('reference_plane = "0 mm"\n', '', "duct.reference_plane: required key is missing"),
+    ('temperature = "24 degC"', 'temperature = 24', "greater than 150"),
+    ('reference_temperature = "0 degC"     # this meter\'s standard state\n', '',
+     "gas.flows[0].reference_temperature: required key is missing"),
+    ('composition = { CH4 = 0.85, H2 = 0.15 }', 'composition = { CH4 = 0.85, XE = 0.15 }', "unknown species 'XE'"),
+    ('ceiling = "2.0 V"', 'ceiling = "-1 V"', "drive.ceiling"),
+])
+def test_mistakes_are_named(tmp_path, old, new, expected):
+    path = _demo_with(tmp_path, old, new)
+    with pytest.raises(ConfigError) as err:
+        load_rig(path)
+    msg = str(err.value)
+    assert str(path) in msg
+    assert expected in msg
+
+
+def test_toml_syntax_error_names_line(tmp_path):
+    path = _write(tmp_path, 'name = "x"\n[duct\n')
+    with pytest.raises(ConfigError, match=r"not valid TOML.*line 2"):
+        load_rig(path)
+
+
+def test_missing_file(tmp_path):
+    with pytest.raises(ConfigError, match="file not found"):
+        load_rig(tmp_path / "nope.toml")
+
+
+def test_calibration_factor_interpolates():
+    rig = load_rig(DEMO)
+    data = rig.model_dump()
+    data["pressure_sensors"][1]["calibration"] = [
+        {"frequency": "100 Hz", "gain": 1.0, "phase_deg": 0.0},
+        {"frequency": "300 Hz", "gain": 1.1, "phase_deg": 2.0},
+    ]
+    from app.rig import rig_from_dict
+
+    data.pop("source_path")
+    rig2 = rig_from_dict(data)
+    c = rig2.pressure_sensors[1].correction(200.0)
+    assert abs(c) == pytest.approx(1.05)
+    assert math.degrees(math.atan2(c.imag, c.real)) == pytest.approx(1.0)
