@@ -22,6 +22,7 @@ Sources of the data and models:
   for the polar species (H2O, NH3), Brokaw's correction Ω + 0.2 δ*²/T*
   (Brokaw, Ind. Eng. Chem. Process Des. Dev. 8:240, 1969; see Poling, Prausnitz &
   O'Connell, The Properties of Gases and Liquids, 5th ed., §9-4).
+  The collision-integral fit holds for 0.3 <= T* <= 100, i.e. up to about 3800 K for H2.
 - Mixture viscosity: Wilke, J. Chem. Phys. 18:517 (1950).
 - Pure-species conductivity: modified Eucken correlation, λ M/μ = 1.32 Cv + 1.77 R
   (Svehla, NASA TR R-132, 1962; Poling et al. eq. 10-3.3); it gives 15/4 R μ/M for
@@ -138,7 +139,10 @@ def _mole_fractions(composition: Mapping[str, float]) -> np.ndarray:
         key = str(name).upper()
         if key not in SPECIES:
             raise GasPropertyError(f"unknown species {name!r} in gas composition; known: {', '.join(SPECIES)}")
-        value = float(frac)
+        try:
+            value = float(frac)
+        except (TypeError, ValueError):
+            value = math.nan
         if not math.isfinite(value) or value < 0.0:
             raise GasPropertyError(f"mole fraction of {name} must be a finite number >= 0, got {frac!r}")
         x[SPECIES.index(key)] += value

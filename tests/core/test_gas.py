@@ -237,6 +237,7 @@ def test_mean_flow_with_fixed_composition_and_hot_reference_plane(demo_rig_path)
     (lambda: mixture_state(DRY_AIR, 300.0, -1.0), "pressure"),
     (lambda: mixture_state({"N2": 0.5}, 300.0, ATM_PA), "add up to 0.5000"),
     (lambda: mixture_state({"N2": -0.1, "O2": 1.1}, 300.0, ATM_PA), "must be a finite number >= 0"),
+    (lambda: mixture_state({"N2": "lots"}, 300.0, ATM_PA), "must be a finite number >= 0"),
     (lambda: mix_flows([(DRY_AIR, -1e-3, 273.15, ATM_PA)]), r"flows\[0\]: standard volume flow"),
     (lambda: mix_flows([(DRY_AIR, 0.0, 273.15, ATM_PA)]), "all flows are zero"),
     (lambda: standard_density(DRY_AIR, 100.0, ATM_PA), "outside the range"),
