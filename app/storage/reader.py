@@ -1,0 +1,200 @@
+"""Open a run folder for reading: points, attempts, acceptance, analyses and problems.
+
+``open_run(run_dir)`` never fails because one part of a run is damaged: a leftover
+temporary file, a missing or corrupt record file, a record not in the index, a locked or
+unreadable index each become one plain message in ``Run.problems`` while the rest stays
+readable. When the index cannot be read at all, the attempts are rebuilt from the
+record files' own attributes (records are self-describing).
+
+Imports: standard library, numpy, h5py (via record.py) only. No Qt, no drivers.
+"""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import h5py
+
+from ..errors import FlamebodeError, RecordError
+from . import index
+from .record import RawRecord, file_digest, is_tmp, read_record
+from .writer import RECORDS_DIR, SNAPSHOT_PLAN, SNAPSHOT_RIG
+
+
+class RunNotFound(FlamebodeError):
+    """The folder given is not a run folder."""
+
+
+@dataclass
+class Run:
+    """A run as read from disk. ``attempts`` rows carry their newest analysis under ``analysis``."""
+
+    run_dir: Path
+    info: dict[str, str]
+    points: list[dict[str, Any]]
+    attempts: list[dict[str, Any]]
+    faults: list[dict[str, Any]] = field(default_factory=list)
+    problems: list[str] = field(default_factory=list)
+    index_readable: bool = True
+
+    @property
+    def rig_path(self) -> Path:
+        return self.run_dir / SNAPSHOT_RIG
+
+    @property
+    def plan_path(self) -> Path:
+        return self.run_dir / SNAPSHOT_PLAN
+
+    def attempt(self, attempt_id: str) -> dict[str, Any]:
+        for a in self.attempts:
+            if a["attempt_id"] == attempt_id:
+                return a
+        raise RecordError(f"{self.run_dir}: no attempt '{attempt_id}' in this run")
+
+    def attempts_of(self, point_index: int) -> list[dict[str, Any]]:
+        return [a for a in self.attempts if a["point_index"] == point_index]
+
+    def accepted(self) -> dict[int, dict[str, Any]]:
+        """The accepted attempt of each point that has one (and whose record is usable)."""
+        return {a["point_index"]: a for a in self.attempts
+                if a["decision"] == "accepted" and a["record_status"] == "ok"}
+
+    def pending_points(self) -> list[int]:
+        """Planned points, in order, that have no usable accepted attempt."""
+        done = self.accepted()
+        return [p["point_index"] for p in self.points if p["point_index"] not in done]
+
+    def flagged_points(self) -> list[int]:
+        return [i for i, a in sorted(self.accepted().items()) if a["flags"] or a["analysis"].get("warnings")]
+
+    def read_record(self, attempt_id: str) -> RawRecord:
+        return read_record(self.run_dir / self.attempt(attempt_id)["record_file"])
+
+    @property
+    def kind(self) -> str:
+        """'FDF' when the points span more than one target amplitude, else 'FTF' (or as recorded)."""
+        if self.info.get("kind"):
+            return self.info["kind"].upper()
+        ratios = {round(p["target_ratio"], 9) for p in self.points}
+        return "FDF" if len(ratios) > 1 else "FTF"
+
+
+def open_run(run_dir: str | Path, verify: bool = True) -> Run:
+    """Read a run; ``verify`` re-hashes each record file against the index (sha256)."""
+    run_dir = Path(run_dir)
+    if not run_dir.is_dir():
+        raise RunNotFound(f"{run_dir}: no such run folder")
+    records = run_dir / RECORDS_DIR
+    problems = _leftover_temp_files(run_dir)
+    idx = run_dir / index.INDEX_NAME
+    run = _read_index(run_dir, idx, problems) if idx.exists() else None
+    if run is None:
+        if not idx.exists():
+            problems.append(f"{idx}: the index is missing; attempts were rebuilt from the record files")
+        run = _rebuild_from_records(run_dir, problems)
+    known = {a["record_file"] for a in run.attempts}
+    for f in sorted(records.glob("*.h5")) if records.is_dir() else ():
+        rel = f"{RECORDS_DIR}/{f.name}"
+        if rel not in known:
+            problems.append(f"{f}: record file not in the index (written just before an interruption; its "
+                            f"point was never acknowledged); ignored")
+    for a in run.attempts:
+        a["record_status"] = _check_file(run_dir, a, verify, problems) if run.index_readable else "ok"
+    run.problems = problems
+    return run
+
+
+def _leftover_temp_files(run_dir: Path) -> list[str]:
+    out = []
+    for f in sorted(run_dir.rglob(".tmp-*")):
+        if is_tmp(f) or f.name.endswith(".part"):
+            out.append(f"{f}: leftover temporary file from an interrupted write; it is not data and was "
+                       f"ignored (safe to delete)")
+    return out
+
+
+def _read_index(run_dir: Path, idx: Path, problems: list[str]) -> Run | None:
+    try:
+        conn = index.connect(idx, read_only=True, timeout_s=0.5)
+        try:
+            info = index.get_info(conn)
+            pts = index.points(conn)
+            atts = index.attempts(conn)
+            analyses = index.latest_analyses(conn)
+            faults = index.faults(conn)
+        finally:
+            conn.close()
+    except sqlite3.OperationalError as exc:
+        what = ("is locked by another program (a sweep still running, or another tool holding it)"
+                if "locked" in str(exc) or "busy" in str(exc) else f"cannot be read ({exc})")
+        problems.append(f"{idx}: the index {what}; showing the attempts rebuilt from the record files, "
+                        f"without decisions or reprocessed analyses")
+        return None
+    except sqlite3.DatabaseError as exc:
+        problems.append(f"{idx}: the index is damaged ({exc}); showing the attempts rebuilt from the "
+                        f"record files, without decisions or reprocessed analyses")
+        return None
+    for a in atts:
+        a["analysis"] = analyses.get(a["attempt_id"], {})
+    return Run(run_dir=run_dir, info=info, points=pts, attempts=atts, faults=faults)
+
+
+def _check_file(run_dir: Path, a: dict[str, Any], verify: bool, problems: list[str]) -> str:
+    path = run_dir / a["record_file"]
+    where = f"{path} (point {a['point_index']}, attempt {a['attempt_id']})"
+    if not path.exists():
+        problems.append(f"{where}: record file is missing; the point needs a new attempt (reacquire)")
+        return "missing"
+    size = path.stat().st_size
+    if size != a["record_bytes"]:
+        problems.append(f"{where}: record file is {size} bytes, the index says {a['record_bytes']}: "
+                        f"truncated or changed; not used")
+        return "damaged"
+    if verify and file_digest(path)[1] != a["record_sha256"]:
+        problems.append(f"{where}: record file content does not match its sha256 in the index: corrupted; "
+                        f"not used")
+        return "damaged"
+    return "ok"
+
+
+def _rebuild_from_records(run_dir: Path, problems: list[str]) -> Run:
+    atts: list[dict[str, Any]] = []
+    records = run_dir / RECORDS_DIR
+    for f in sorted(records.glob("*.h5")) if records.is_dir() else ():
+        try:
+            with h5py.File(f, "r") as h:
+                at = dict(h.attrs)
+        except OSError as exc:
+            problems.append(f"{f}: record file is damaged ({exc}); not used")
+            continue
+        atts.append(_attempt_from_attrs(f, at))
+    atts.sort(key=lambda a: (a["point_index"], a["started_wall_s"]))
+    points: dict[int, dict[str, Any]] = {}
+    for a in atts:
+        points.setdefault(a["point_index"], {"point_index": a["point_index"], "freq_hz": a["freq_hz"],
+                                             "target_ratio": a["target_ratio"]})
+        a["seq"] = sum(1 for b in atts if b["point_index"] == a["point_index"] and b is not a and
+                       b["started_wall_s"] <= a["started_wall_s"]) + 1
+    latest = {a["point_index"]: a for a in atts}
+    for a in atts:
+        a["decision"] = "accepted" if latest[a["point_index"]] is a else ""
+    return Run(run_dir=run_dir, info={}, points=list(points.values()), attempts=atts, index_readable=False)
+
+
+def _attempt_from_attrs(f: Path, at: dict[str, Any]) -> dict[str, Any]:
+    def s(v: Any) -> str:
+        return v.decode() if isinstance(v, bytes) else str(v)
+
+    analysis = json.loads(s(at.get("analysis", "{}")) or "{}")
+    return {"attempt_id": s(at.get("attempt_id", f.stem)), "point_index": int(at.get("point_index", -1)),
+            "record_file": f"{RECORDS_DIR}/{f.name}", "freq_hz": float(at.get("freq_hz", float("nan"))),
+            "target_ratio": float(at.get("target_ratio", float("nan"))),
+            "drive_v": float(at.get("drive_v", float("nan"))),
+            "sample_rate_hz": float(at.get("sample_rate_hz", float("nan"))),
+            "overflows": int(at.get("overflows", 0)), "flags": tuple(json.loads(s(at.get("flags", "[]")))),
+            "started_wall_s": float(at.get("started_wall_s", 0.0)), "decided_by": "", "decision_reason": "",
+            "record_status": "ok", "analysis": {**analysis, "rig_path": SNAPSHOT_RIG}}
