@@ -1,0 +1,223 @@
+"""Amplitude control: which drive voltage gives the target velocity amplitude at the reference plane.
+
+Pure arithmetic, no I/O and no clock. The engine asks a :class:`PointTuner` for a voltage,
+measures the velocity amplitude ratio |u'_ref|/u_mean over a short window, hands the
+measurement back, and gets a :class:`Decision`: measure again at a new voltage, converged,
+unreachable under the ceiling, or not converged within the allowed steps.
+
+* The first voltage of each point is predicted from what the sweep has learned so far (the
+  drive-to-velocity gain |u'_ref/u_mean| per volt at earlier points, interpolated or
+  extrapolated in frequency on log-magnitude) and, when given, from an earlier run's table
+  of (frequency, ratio per volt), rescaled to this run. The very first point starts low, at
+  a fraction of the ceiling.
+* Updates are secant steps on (log voltage, log amplitude); when the last two pairs are
+  inconsistent (slope outside a sane band, e.g. noise or a nonlinear driver) the step falls
+  back to the proportional one (slope 1, the linear-acoustics answer). Every step is
+  limited to a factor ``max_step_factor`` and to the ceiling.
+* An unreachable target is reported early: measured below target at the ceiling, or a
+  prediction clearly above the ceiling after a step near it.
+
+All amplitudes here are peak values. The phase of the drive-to-velocity transfer is not
+needed to set an amplitude, so only its magnitude is learned.
+
+Imports: standard library and numpy only.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Literal, Sequence
+
+import numpy as np
+
+DecisionKind = Literal["measure", "converged", "unreachable", "not-converged"]
+
+
+@dataclass(frozen=True)
+class ControllerSettings:
+    ceiling_v: float
+    tolerance: float = 0.05              # max relative deviation of the amplitude from the target
+    max_steps: int = 8                   # tuning windows per point
+    first_drive_fraction: float = 0.1    # first voltage of the very first point, of the ceiling
+    max_step_factor: float = 4.0         # one step changes the voltage by at most this factor
+    slope_band: tuple[float, float] = (0.33, 3.0)   # sane d(log a)/d(log V)
+    near_ceiling: float = 0.7            # a step at >= this fraction of the ceiling is "near" it
+    unreachable_margin: float = 0.25     # predicted voltage above (1 + margin) * ceiling: unreachable
+    extrapolation_limit: float = 3.0     # an extrapolated gain stays within this factor of the nearest
+
+
+@dataclass(frozen=True)
+class TuningSample:
+    drive_v: float
+    measured_ratio: float
+    window_s: float
+
+
+@dataclass(frozen=True)
+class Decision:
+    kind: DecisionKind
+    drive_v: float            # next voltage to measure at, or the voltage to record at
+    reason: str = ""
+
+
+class TransferMemory:
+    """The drive-to-velocity gain (ratio per volt) learned so far, and an optional prior table."""
+
+    def __init__(self, prior: Sequence[tuple[float, float]] = (), extrapolation_limit: float = 3.0):
+        self._limit_log = math.log(extrapolation_limit)
+        self._learned: dict[tuple[float, float], float] = {}
+        pr = sorted((float(f), float(g)) for f, g in prior if f > 0 and g > 0)
+        self._prior_f = np.array([p[0] for p in pr])
+        self._prior_lg = np.log(np.array([p[1] for p in pr])) if pr else np.array([])
+
+    def learn(self, freq_hz: float, target_ratio: float, drive_v: float, measured_ratio: float) -> None:
+        if drive_v > 0 and measured_ratio > 0 and math.isfinite(measured_ratio):
+            self._learned[(round(freq_hz, 6), round(target_ratio, 9))] = measured_ratio / drive_v
+
+    @property
+    def n_learned(self) -> int:
+        return len(self._learned)
+
+    def _per_frequency(self, target_ratio: float) -> tuple[np.ndarray, np.ndarray]:
+        """One log-gain per learned frequency: the entry nearest the target amplitude (log scale)."""
+        best: dict[float, tuple[float, float]] = {}
+        for (f, a), g in self._learned.items():
+            d = abs(math.log(a / target_ratio))
+            if f not in best or d < best[f][0]:
+                best[f] = (d, g)
+        fs = np.array(sorted(best))
+        return fs, np.log(np.array([best[f][1] for f in fs]))
+
+    def _prior_at(self, freqs_hz: np.ndarray) -> np.ndarray:
+        return np.interp(freqs_hz, self._prior_f, self._prior_lg)   # held at the ends
+
+    def predict(self, freq_hz: float, target_ratio: float) -> float | None:
+        """Predicted ratio per volt at ``freq_hz``, or None when nothing is known yet."""
+        fs, lg = self._per_frequency(target_ratio)
+        has_prior = self._prior_f.size > 0
+        if fs.size and np.any(np.isclose(fs, freq_hz, rtol=1e-9, atol=0.0)):
+            return float(np.exp(lg[np.isclose(fs, freq_hz, rtol=1e-9, atol=0.0)][0]))
+        if has_prior:
+            base = self._prior_at(np.array([freq_hz]))[0]
+            if fs.size == 0:
+                return float(np.exp(base))
+            # rescale the prior's shape to this run: log-correction interpolated between learned points
+            corr = lg - self._prior_at(fs)
+            return float(np.exp(base + np.interp(freq_hz, fs, corr)))
+        if fs.size == 0:
+            return None
+        if fs[0] <= freq_hz <= fs[-1] or fs.size == 1:
+            return float(np.exp(np.interp(freq_hz, fs, lg)))
+        return float(np.exp(self._extrapolate(fs, lg, freq_hz)))
+
+    def _extrapolate(self, fs: np.ndarray, lg: np.ndarray, freq_hz: float) -> float:
+        """Straight line in log-gain through the two nearest learned points, limited in size."""
+        if freq_hz > fs[-1]:
+            (f1, g1), (f2, g2) = (fs[-2], lg[-2]), (fs[-1], lg[-1])
+        else:
+            (f1, g1), (f2, g2) = (fs[1], lg[1]), (fs[0], lg[0])
+        value = g2 + (g2 - g1) / (f2 - f1) * (freq_hz - f2)
+        return float(np.clip(value, g2 - self._limit_log, g2 + self._limit_log))
+
+
+@dataclass
+class PointTuner:
+    """Tunes one point; ``history`` keeps every (voltage, measured ratio, window) step."""
+
+    settings: ControllerSettings
+    freq_hz: float
+    target_ratio: float
+    start_drive_v: float
+    history: list[TuningSample] = field(default_factory=list)
+    proportional: bool = False
+
+    def first_drive(self) -> float:
+        return min(self.start_drive_v, self.settings.ceiling_v)
+
+    def within(self, measured_ratio: float) -> bool:
+        return abs(measured_ratio / self.target_ratio - 1.0) <= self.settings.tolerance
+
+    def best(self) -> TuningSample:
+        """The step whose amplitude came closest to the target (log distance)."""
+        ok = [s for s in self.history if s.measured_ratio > 0 and math.isfinite(s.measured_ratio)]
+        if not ok:
+            return self.history[-1]
+        return min(ok, key=lambda s: abs(math.log(s.measured_ratio / self.target_ratio)))
+
+    def update(self, drive_v: float, measured_ratio: float, window_s: float) -> Decision:
+        s = self.settings
+        self.history.append(TuningSample(drive_v, measured_ratio, window_s))
+        if measured_ratio > 0 and math.isfinite(measured_ratio) and self.within(measured_ratio):
+            return Decision("converged", drive_v, f"within {s.tolerance:.1%} of the target")
+        wanted = self._next_voltage(drive_v, measured_ratio)
+        at_ceiling = drive_v >= 0.98 * s.ceiling_v
+        if at_ceiling and measured_ratio < self.target_ratio * (1.0 - s.tolerance):
+            return Decision("unreachable", s.ceiling_v,
+                            f"{measured_ratio:.4g} at the ceiling {s.ceiling_v:g} V, target {self.target_ratio:.4g}")
+        if drive_v >= s.near_ceiling * s.ceiling_v and wanted > (1.0 + s.unreachable_margin) * s.ceiling_v:
+            return Decision("unreachable", s.ceiling_v,
+                            f"needs about {wanted:.3g} V, above the ceiling {s.ceiling_v:g} V")
+        if len(self.history) >= s.max_steps:
+            best = self.best()
+            return Decision("not-converged", best.drive_v,
+                            f"{len(self.history)} steps without reaching {s.tolerance:.1%}; "
+                            f"best {best.measured_ratio:.4g} at {best.drive_v:.4g} V")
+        return Decision("measure", min(wanted, s.ceiling_v))
+
+    def _next_voltage(self, drive_v: float, measured_ratio: float) -> float:
+        """Secant in log-log on the last two distinct voltages, else proportional; step-limited."""
+        s = self.settings
+        if not (measured_ratio > 0 and math.isfinite(measured_ratio)):
+            return drive_v * s.max_step_factor       # nothing measurable: go up, limited
+        slope = 1.0
+        prev = self._previous_distinct(drive_v)
+        if prev is not None and not self.proportional:
+            dv = math.log(drive_v / prev.drive_v)
+            da = math.log(measured_ratio / prev.measured_ratio)
+            candidate = da / dv
+            if s.slope_band[0] <= candidate <= s.slope_band[1]:
+                slope = candidate
+        factor = (self.target_ratio / measured_ratio) ** (1.0 / slope)
+        factor = min(max(factor, 1.0 / s.max_step_factor), s.max_step_factor)
+        return drive_v * factor
+
+    def _previous_distinct(self, drive_v: float) -> TuningSample | None:
+        for sample in reversed(self.history[:-1]):
+            if (sample.measured_ratio > 0 and math.isfinite(sample.measured_ratio)
+                    and abs(math.log(sample.drive_v / drive_v)) > 1e-3):
+                return sample
+        return None
+
+
+class AmplitudeController:
+    """Starts a tuner per point and learns from every measured step.
+
+    ``proportional=True`` is the plain comparison controller: each point starts from the
+    previous point's final voltage and steps proportionally, with no learned prediction.
+    """
+
+    def __init__(self, settings: ControllerSettings, prior: Sequence[tuple[float, float]] = (),
+                 proportional: bool = False):
+        self.settings = settings
+        self.memory = TransferMemory(() if proportional else prior, settings.extrapolation_limit)
+        self.proportional = proportional
+        self._last_drive_v: float | None = None
+
+    def start_point(self, freq_hz: float, target_ratio: float) -> PointTuner:
+        s = self.settings
+        start = s.first_drive_fraction * s.ceiling_v
+        if self.proportional:
+            if self._last_drive_v is not None:
+                start = self._last_drive_v
+        else:
+            gain = self.memory.predict(freq_hz, target_ratio)
+            if gain is not None and gain > 0:
+                start = target_ratio / gain
+        start = max(start, 1e-4 * s.ceiling_v)
+        return PointTuner(s, freq_hz, target_ratio, start, proportional=self.proportional)
+
+    def learn(self, freq_hz: float, target_ratio: float, drive_v: float, measured_ratio: float) -> None:
+        self.memory.learn(freq_hz, target_ratio, drive_v, measured_ratio)
+        if drive_v > 0:
+            self._last_drive_v = drive_v

@@ -1,0 +1,281 @@
+"""The sweep plan: which points to measure, how to tune them, when to flag or stop.
+
+A plan is a plain value loaded from a TOML file (``load_plan(path) -> Plan``), validated
+like the rig file (pydantic, unknown keys refused, unit strings through
+``app.units.parse_quantity``, every problem reported as a ``ConfigError`` naming file and
+key). ``Plan.points()`` lists the points in measuring order and
+``Plan.estimated_duration_s()`` estimates the run time, so a plan can be printed, checked
+and tested without hardware. Forcing amplitudes are |u'|/u_mean at the reference plane,
+stated as peak or rms values (``amplitude.basis``); the engine tunes on the peak value.
+
+Imports: standard library, numpy, pydantic, ``app.units``, ``app.errors`` and ``app.rig`` only.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+import numpy as np
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
+
+from .errors import ConfigError
+from .rig import Rig, format_validation_error, read_toml
+from .units import parse_quantity
+
+
+def _q(kind: str):
+    return BeforeValidator(lambda v: parse_quantity(v, kind))
+
+
+Frequency = Annotated[float, _q("frequency"), Field(gt=0.0)]
+Duration = Annotated[float, _q("time"), Field(ge=0.0)]
+PositiveDuration = Annotated[float, _q("time"), Field(gt=0.0)]
+Voltage = Annotated[float, _q("voltage"), Field(gt=0.0)]
+SmallVoltage = Annotated[float, _q("voltage"), Field(ge=0.0)]
+Pressure = Annotated[float, _q("pressure"), Field(gt=0.0)]
+
+RMS_TO_PEAK = math.sqrt(2.0)
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class LinearRange(_Strict):
+    start: Frequency
+    stop: Frequency
+    step: Frequency
+
+    @model_validator(mode="after")
+    def _order(self) -> "LinearRange":
+        if self.stop < self.start:
+            raise ValueError("'stop' must not be below 'start'")
+        if (self.stop - self.start) / self.step > 10000:
+            raise ValueError("more than 10000 frequencies; use a larger 'step'")
+        return self
+
+    def values(self) -> np.ndarray:
+        n = int(math.floor((self.stop - self.start) / self.step + 1e-9)) + 1
+        return self.start + self.step * np.arange(n)
+
+
+class LogRange(_Strict):
+    start: Frequency
+    stop: Frequency
+    count: int | None = Field(default=None, ge=2, le=10000)
+    per_decade: int | None = Field(default=None, ge=1, le=1000)
+
+    @model_validator(mode="after")
+    def _one(self) -> "LogRange":
+        if self.stop <= self.start:
+            raise ValueError("'stop' must be above 'start'")
+        if (self.count is None) == (self.per_decade is None):
+            raise ValueError("give exactly one of 'count' or 'per_decade'")
+        return self
+
+    def values(self) -> np.ndarray:
+        n = self.count
+        if n is None:
+            n = int(math.ceil(math.log10(self.stop / self.start) * self.per_decade - 1e-9)) + 1
+        return np.geomspace(self.start, self.stop, n)
+
+
+class Frequencies(_Strict):
+    values: tuple[Frequency, ...] = ()
+    linear: LinearRange | None = None
+    log: LogRange | None = None
+
+    @model_validator(mode="after")
+    def _some(self) -> "Frequencies":
+        if not self.values and self.linear is None and self.log is None:
+            raise ValueError("give at least one of 'values', 'linear' or 'log'")
+        return self
+
+    def all_hz(self) -> np.ndarray:
+        """Every frequency of the list and the ranges, sorted, duplicates (within 1e-6 relative) merged."""
+        parts = [np.asarray(self.values, dtype=float)]
+        parts += [r.values() for r in (self.linear, self.log) if r is not None]
+        f = np.sort(np.concatenate(parts))
+        keep = np.ones(f.size, dtype=bool)
+        keep[1:] = np.diff(f) > 1e-6 * f[1:]
+        return f[keep]
+
+
+class Amplitude(_Strict):
+    values: tuple[Annotated[float, Field(gt=0.0, lt=2.0)], ...] = Field(min_length=1)
+    basis: Literal["peak", "rms"]
+
+    @property
+    def to_peak(self) -> float:
+        return RMS_TO_PEAK if self.basis == "rms" else 1.0
+
+
+class Order(_Strict):
+    major: Literal["frequency", "amplitude"] = "frequency"
+    frequency: Literal["ascending", "descending"] = "ascending"
+    amplitude: Literal["ascending", "descending"] = "ascending"
+
+
+class Timing(_Strict):
+    record: PositiveDuration
+    settle: Duration = 0.5
+    settle_periods: float = Field(default=0.0, ge=0.0)
+    tuning_window: PositiveDuration = 0.3
+    tuning_discard: Duration = 0.1
+
+    def settle_s(self, freq_hz: float) -> float:
+        """Settle time: the longer of the seconds and the periods given."""
+        return max(self.settle, self.settle_periods / freq_hz)
+
+
+class Tuning(_Strict):
+    tolerance: float = Field(default=0.05, gt=0.0, lt=0.5)
+    max_steps: int = Field(default=8, ge=1, le=100)
+    ceiling: Voltage | None = None
+    first_drive_fraction: float = Field(default=0.1, gt=0.0, le=1.0)
+    max_step_factor: float = Field(default=4.0, gt=1.0, le=100.0)
+    when_unreachable: Literal["record-at-ceiling", "skip"] = "record-at-ceiling"
+    prior: tuple[tuple[Frequency, Annotated[float, Field(gt=0.0)]], ...] = ()
+
+
+class Quality(_Strict):
+    snr_db_min: float = 20.0
+    residual_max: float = Field(default=0.2, gt=0.0)
+    pair_spread_max: float = Field(default=0.2, gt=0.0)
+    distortion_max: float = Field(default=0.1, gt=0.0)
+    drift_max: float = Field(default=0.05, gt=0.0)
+    cond_max: float = Field(default=10.0, gt=1.0)
+
+
+class FaultLimits(_Strict):
+    pressure_max: Pressure = 2000.0
+    clip_fraction: float = Field(default=0.98, gt=0.5, le=1.0)
+    flame_out_fraction: float = Field(default=0.3, gt=0.0, lt=1.0)
+    light_drift_max: float = Field(default=0.15, gt=0.0)
+    dead_rms: SmallVoltage = 2e-5
+    noisy_snr_db_min: float = 0.0
+    backend_timeout: PositiveDuration = 5.0
+    store_timeout: PositiveDuration = 30.0
+
+
+@dataclass(frozen=True)
+class PlanPoint:
+    """One point of the sweep. ``amplitude_ratio`` is in the plan's basis; ``peak_ratio`` is peak."""
+
+    index: int
+    freq_hz: float
+    amplitude_ratio: float
+    peak_ratio: float
+
+
+class Plan(_Strict):
+    name: str = Field(min_length=1)
+    rig: str | None = None
+    scenario: str | None = None
+    frequencies: Frequencies
+    amplitude: Amplitude
+    order: Order = Order()
+    timing: Timing
+    tuning: Tuning = Tuning()
+    quality: Quality = Quality()
+    faults: FaultLimits = FaultLimits()
+    source_path: str = ""
+
+    def points(self) -> list[PlanPoint]:
+        freqs = self.frequencies.all_hz()
+        if self.order.frequency == "descending":
+            freqs = freqs[::-1]
+        amps = sorted(dict.fromkeys(self.amplitude.values), reverse=self.order.amplitude == "descending")
+        if self.order.major == "frequency":
+            pairs = [(float(f), a) for f in freqs for a in amps]
+        else:
+            pairs = [(float(f), a) for a in amps for f in freqs]
+        k = self.amplitude.to_peak
+        return [PlanPoint(i, f, a, a * k) for i, (f, a) in enumerate(pairs)]
+
+    def ceiling_v(self, rig: Rig) -> float:
+        """The plan's ceiling, or the rig's when the plan gives none."""
+        return rig.drive.ceiling if self.tuning.ceiling is None else self.tuning.ceiling
+
+    def check_against(self, rig: Rig) -> None:
+        """Raise ConfigError (naming the plan file and key) where the plan does not fit the rig."""
+        problems = []
+        if self.tuning.ceiling is not None and self.tuning.ceiling > rig.drive.ceiling:
+            problems.append(f"tuning.ceiling: {self.tuning.ceiling:g} V is above the rig's ceiling "
+                            f"{rig.drive.ceiling:g} V (drive.ceiling in {rig.source_path or 'the rig file'})")
+        nyquist = rig.acquisition.sample_rate / 2.0
+        f_max = float(self.frequencies.all_hz().max())
+        if f_max >= 0.8 * nyquist:
+            problems.append(f"frequencies: {f_max:g} Hz is too close to half the sample rate ({nyquist:g} Hz)")
+        if problems:
+            raise ConfigError(self.source_path or "<plan>", problems)
+
+    def estimated_duration_s(self, ramp_time_s: float = 0.3, tuning_steps: float = 1.5,
+                             overhead_s: float = 0.05) -> float:
+        """Rough run time: per point ``tuning_steps`` windows (each after a ramp and a discard),
+        the part of the settle time the last window has not already covered, the record and a
+        small evaluation/storage overhead; plus the final ramp down."""
+        t = self.timing
+        total = ramp_time_s
+        for p in self.points():
+            n_periods_window = math.ceil(t.tuning_window * p.freq_hz)
+            window_s = n_periods_window / p.freq_hz
+            step_s = ramp_time_s + t.tuning_discard + window_s
+            settle_left = max(0.0, t.settle_s(p.freq_hz) - t.tuning_discard - window_s)
+            total += tuning_steps * step_s + settle_left + t.record + overhead_s
+        return total
+
+    def describe_checks(self, rig: Rig | None = None) -> list[str]:
+        """The checks the engine will run, in plain words (for --dry-run)."""
+        q, fl, tu = self.quality, self.faults, self.tuning
+        ceiling = f"{self.ceiling_v(rig):g} V" if rig is not None else (
+            f"{tu.ceiling:g} V" if tu.ceiling else "the rig's ceiling")
+        unreachable = ("record at the ceiling and flag" if tu.when_unreachable == "record-at-ceiling"
+                       else "skip the point and flag")
+        return [
+            f"drive never above {ceiling} peak; unreachable target: {unreachable}",
+            f"tuning within {tu.tolerance:.1%} of the target in at most {tu.max_steps} steps "
+            f"(else flag 'tuning-not-converged')",
+            f"input clipping at {fl.clip_fraction:.0%} of the input range (flag the point)",
+            "light above the rig's safe maximum (abort)",
+            f"flame-out: mean light above dark below {fl.flame_out_fraction:.0%} of the start value (abort)",
+            f"dead sensor: rms below {fl.dead_rms * 1e3:g} mV (abort); noisy sensor: "
+            f"pressure SNR below {fl.noisy_snr_db_min:g} dB (flag)",
+            f"pressure amplitude above {fl.pressure_max:g} Pa (drive to zero, skip the point)",
+            f"back-end silent for {fl.backend_timeout:g} s (abort)",
+            f"mean light drift beyond {fl.light_drift_max:.0%} of the start value (flag)",
+            f"quality flags: SNR < {q.snr_db_min:g} dB, residual > {q.residual_max:g}, pair spread > "
+            f"{q.pair_spread_max:g}, distortion > {q.distortion_max:g}, drift > {q.drift_max:g}, "
+            f"cond > {q.cond_max:g}",
+        ]
+
+    def resolve(self, name: Literal["rig", "scenario"]) -> Path | None:
+        """The plan's default rig or scenario file, relative to the plan file."""
+        value = getattr(self, name)
+        if value is None:
+            return None
+        p = Path(value)
+        return p if p.is_absolute() else Path(self.source_path).parent / p
+
+
+def plan_from_dict(data: dict[str, Any], path: str = "<plan>") -> Plan:
+    try:
+        return Plan.model_validate({**data, "source_path": str(path)})
+    except ValidationError as err:
+        exc = format_validation_error(str(path), err)
+        raise ConfigError(str(path), [p.replace("docs/rig-file.md", "docs/plan-file.md")
+                                      for p in exc.problems]) from None
+
+
+def load_plan(path: str | Path, rig: Rig | None = None) -> Plan:
+    """Load and validate a plan file; with ``rig``, also check it against that rig."""
+    data = read_toml(path)
+    if "source_path" in data:
+        raise ConfigError(str(path), ["source_path: unknown key (check spelling; see docs/plan-file.md)"])
+    plan = plan_from_dict(data, str(path))
+    if rig is not None:
+        plan.check_against(rig)
+    return plan
