@@ -276,9 +276,9 @@ class RunWriter:
                     index.set_info(conn, {"backend": event.backend, "run_label": event.run_label,
                                           "n_points": str(event.n_points), "identity": event.identity,
                                           "sweep_started_wall_s": repr(event.wall_time_s)})
-                    kind = getattr(event.plan, "kind", None)
-                    if kind:
-                        index.set_info(conn, {"kind": str(kind)})
+                    basis = getattr(getattr(event.plan, "amplitude", None), "basis", None)
+                    if basis:
+                        index.set_info(conn, {"amplitude_basis": str(basis)})
                     index.upsert_points(conn, plan_points(event.plan))
                 elif isinstance(event, FaultRaised):
                     index.insert_fault(conn, {k: getattr(event, k) for k in

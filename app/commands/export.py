@@ -1,0 +1,22 @@
+"""``flamebode export RUN_DIR [--out DIR]``: CSV, JSON summary and gain/phase plots.
+
+Uses each point's accepted attempt and its newest analysis. Must not import Qt.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("run_dir", help="run folder written by 'flamebode sweep'")
+    p.add_argument("--out", default=None, help="output folder (default: RUN_DIR/export)")
+    p.add_argument("--no-plots", action="store_true", help="write only the CSV and the JSON summary")
+
+
+def run(args: argparse.Namespace) -> int:
+    from ..storage.export import export_run
+
+    for path in export_run(args.run_dir, args.out, plots=not args.no_plots):
+        print(f"wrote {path}")
+    return 0
