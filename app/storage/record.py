@@ -1,7 +1,7 @@
 """One attempt's raw record as its own HDF5 file: written whole, then renamed into place.
 
-A record is written under a temporary name (``.tmp-<attempt>.h5.part``) in the same
-folder, flushed and fsync'd, renamed to its final name and the folder fsync'd, so a
+A record is built in memory, written under a temporary name (``.tmp-<attempt>.h5.part``)
+in the same folder with plain file I/O, fsync'd, renamed to its final name and the folder fsync'd, so a
 file with a final name is always complete; a killed writer leaves only a ``.part``
 file, which readers report and never take for data. The samples are kept exactly as
 acquired (native dtype, volts), chunked per channel, gzip level 1 with shuffle and a
@@ -13,6 +13,7 @@ Imports: standard library, numpy, h5py only (no Qt, no drivers).
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 import os
 from dataclasses import dataclass
@@ -89,27 +90,37 @@ def write_record(folder: str | Path, final_name: str, attempt_id: str, data: np.
     final = folder / final_name
     if final.exists():
         raise FileExistsError(f"{final} already exists; a record is never overwritten")
-    arr = np.ascontiguousarray(data)
+    image = build_image(np.ascontiguousarray(data), attrs)
     try:
-        with h5py.File(tmp, "w", libver=("v110", "latest")) as f:
-            f.attrs["format"] = FORMAT
-            f.attrs["format_version"] = FORMAT_VERSION
-            ds = f.create_dataset(DATASET, data=arr, chunks=chunk_shape(arr.shape[1], arr.dtype.itemsize),
-                                  compression="gzip", compression_opts=GZIP_LEVEL, shuffle=True,
-                                  fletcher32=True)
-            ds.attrs["units"] = "V"
-            for key, value in attrs.items():
-                f.attrs[key] = _attr_value(value)
-            f.flush()
-        with open(tmp, "rb+") as fh:
+        with open(tmp, "wb") as fh:
+            fh.write(image)
+            fh.flush()
             os.fsync(fh.fileno())
         os.rename(tmp, final)
         fsync_dir(folder)
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
-    size, digest = file_digest(final)
-    return final, size, digest
+    return final, len(image), hashlib.sha256(image).hexdigest()
+
+
+def build_image(arr: np.ndarray, attrs: dict[str, Any]) -> bytes:
+    """The complete HDF5 file as bytes, built in memory.
+
+    HDF5 never writes to disk itself: a write that fails inside the library (full disk,
+    file-size limit) can crash the process when the file is closed, so the finished
+    image is written with plain file I/O, where a failure is an ordinary OSError.
+    """
+    bio = io.BytesIO()
+    with h5py.File(bio, "w", libver=("v110", "latest")) as f:
+        f.attrs["format"] = FORMAT
+        f.attrs["format_version"] = FORMAT_VERSION
+        ds = f.create_dataset(DATASET, data=arr, chunks=chunk_shape(arr.shape[1], arr.dtype.itemsize),
+                              compression="gzip", compression_opts=GZIP_LEVEL, shuffle=True, fletcher32=True)
+        ds.attrs["units"] = "V"
+        for key, value in attrs.items():
+            f.attrs[key] = _attr_value(value)
+    return bio.getvalue()
 
 
 def file_digest(path: str | Path) -> tuple[int, str]:
