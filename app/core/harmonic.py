@@ -1,1 +1,340 @@
-"""(being written) measurement core module: harmonic."""
+"""Harmonic estimation at a known frequency: complex amplitudes by least squares.
+
+Turns the raw samples of every channel into its complex amplitude at the drive
+frequency (plus offset and, on request, harmonics 2f, 3f, ...), with an uncertainty
+taken from the noise actually present near that frequency. It runs on every tuning
+window and every settled record, so it is built to be fast: 8 channels of 512 000
+samples take a few milliseconds.
+
+Convention (e^{+iωt}, PEAK amplitudes, t = n/fs from the first sample):
+
+    x(t) ≈ offset + Re{a e^{+iωt}} + Σ_{k≥2} Re{h_k e^{+ikωt}}
+
+The fit
+    Ordinary least squares on the regressors [1, cos kωt, sin kωt] (k = 1..K), exact
+    for any (non-integer) number of periods; over an integer number of periods it
+    reduces to a = (2/N) Σ x[n] e^{-iωnΔt}. The record is cut into equal segments;
+    one batched matrix product projects every segment of every channel onto a small
+    local template (the regressors with time restarted at the segment start); the
+    segment projections are rotated to the common time origin and summed, and the
+    Gram matrix is assembled the same way. A (2K+1)×(2K+1) solve then serves all
+    channels. Harmonics at or within one resolution bin (1/T) of fs/2 cannot be told
+    apart from their aliases: they are left out of the fit and reported as NaN.
+
+The noise estimate (not assumed white)
+    The same product also gives Hann-weighted least-squares amplitudes at f on
+    segments of length L overlapping by half (S = up to 32 segments of at least 4
+    periods each). Their scatter about the full-record fit, c_s = a_s − â e^{iωn_s},
+    has for locally white noise of two-sided density P the exact expectation
+    E|c_s|² = P (κ_seg − κ_full), where κ = E|δa|²/P of each estimator follows from
+    its least-squares matrices. Hence
+
+        noise_psd     G = (2/fs) · mean|c_s|² / (κ_seg − κ_full)    [units²/Hz, one-sided]
+        var_amplitude   = (fs/2) · G · κ_full                       (≈ 2G/T)
+
+    which is unbiased for white noise and, for coloured noise, uses the spectrum
+    averaged over the Hann main lobe of a segment, f ± 2S/T — local to f, not the
+    mean over all frequencies. The Hann taper keeps strong noise far from f (low-
+    frequency rumble) from leaking into the estimate. Relative scatter of the
+    reported σ is about 7 % with 32 segments; short records (few periods) give fewer
+    segments, a wider band and a rougher estimate.
+
+Derived figures
+    sigma_abs = sqrt(var/2) and sigma_phase_rad = sqrt(var/2)/|â| (small-noise limit);
+    snr_db = 10 log10( (|â|²/2) / (G/T) ): the sine's power over the noise power in
+    the estimator's resolution bandwidth 1/T; distortion = sqrt(Σ|h_k|²)/|â|;
+    rms_residual = sqrt(|x − model|²/N), from |x|² − bᵀβ (loses digits only when the
+    residual is below ~1e-7 of the signal).
+
+Pure numpy/scipy: must not import Qt, pyqtgraph, matplotlib, h5py, drivers, the
+engine or storage.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
+from scipy import optimize
+
+MIN_SAMPLES = 16
+MIN_PERIODS = 2.0
+MAX_SEGMENTS = 32
+MIN_PERIODS_PER_SEGMENT = 4.0
+MIN_SAMPLES_PER_SEGMENT = 32
+
+
+@dataclass(frozen=True)
+class HarmonicFit:
+    """Complex amplitudes of every channel at one frequency, with their uncertainty."""
+
+    freq_hz: float
+    sample_rate_hz: float
+    n_samples: int
+    amplitude: np.ndarray        # complex (n_ch,), peak, e^{+iωt}, t = 0 at the first sample
+    offset: np.ndarray           # (n_ch,)
+    harmonics: np.ndarray        # complex (n_ch, n_harmonics-1): 2f, 3f, ...; NaN where not fitted
+    noise_psd: np.ndarray        # one-sided PSD of the residual near f, units²/Hz
+    var_amplitude: np.ndarray    # E|â − a|² (complex variance), units²
+    sigma_abs: np.ndarray        # standard uncertainty of |â|
+    sigma_phase_rad: np.ndarray  # standard uncertainty of arg â
+    snr_db: np.ndarray           # (|â|²/2) / (noise_psd / T), in dB
+    distortion: np.ndarray       # sqrt(Σ|h_k|²)/|â| over fitted harmonics; NaN if none
+    rms_residual: np.ndarray     # rms of x − model over the record
+
+    @property
+    def duration_s(self) -> float:
+        return self.n_samples / self.sample_rate_hz
+
+
+@dataclass(frozen=True)
+class _Segments:
+    length: int   # L, even
+    hop: int      # L/2
+    count: int    # overlapping segments that fit in the record
+    n_full: int   # non-overlapping segments (the even-numbered overlapping ones)
+
+
+def fit_harmonics(x: np.ndarray, sample_rate_hz: float, freq_hz: float, n_harmonics: int = 1) -> HarmonicFit:
+    """Least-squares complex amplitude at ``freq_hz`` (and harmonics) of each channel.
+
+    ``x`` is (n_ch, n) or (n,). Raises ValueError with a plain message for non-finite
+    samples, a record shorter than 16 samples or 2 periods, or f not below fs/2.
+    """
+    data = _as_channels(x)
+    n_ch, n = data.shape
+    fs, f = float(sample_rate_hz), float(freq_hz)
+    _check_frequency(f, fs, n)
+    n_harm = _check_n_harmonics(n_harmonics)
+    orders = _fitted_orders(f, fs, n, n_harm)
+    cycles = f / fs
+    seg = _segmentation(n, cycles)
+    template = _template(np.arange(seg.length), cycles, orders)
+    hann = 0.5 - 0.5 * np.cos(2.0 * np.pi * (np.arange(seg.length) + 0.5) / seg.length)
+    n_par = template.shape[1]
+
+    sum_sq = np.einsum("ij,ij->i", data, data)
+    _check_finite(data, sum_sq)
+    tapered = template[:, :3] * hann[:, None]                      # Hann fit: offset, cos, sin
+    views = sliding_window_view(data, seg.length, axis=1)[:, ::seg.hop][:, :seg.count].transpose(1, 0, 2)
+    even = views[0::2] @ np.concatenate([template, tapered], axis=1)   # (n_full, n_ch, P + 3)
+    hann_proj = np.empty((seg.count, n_ch, 3))
+    hann_proj[0::2] = even[:, :, n_par:]
+    hann_proj[1::2] = views[1::2] @ tapered
+
+    rot = _rotations(np.arange(seg.count) * seg.hop, cycles, orders)   # (count, P, P)
+    rot_full = rot[0::2]
+    tail = _template(np.arange(seg.n_full * seg.length, n), cycles, orders)
+    b = np.einsum("scp,spq->cq", even[:, :, :n_par], rot_full) + data[:, seg.n_full * seg.length:] @ tail
+    gram = np.einsum("spq,pr,srt->qt", rot_full, template.T @ template, rot_full) + tail.T @ tail
+    gram_inv = np.linalg.inv(gram)
+    beta = b @ gram_inv                                                # (n_ch, P)
+
+    var_amp, psd = _noise(hann_proj, rot, beta, template, hann, gram_inv, fs)
+    rss = np.maximum(sum_sq - np.einsum("cp,cp->c", b, beta), 0.0)
+    return _assemble(beta, orders, n_harm, var_amp, psd, rss, f, fs, n)
+
+
+def _noise(hann_proj: np.ndarray, rot: np.ndarray, beta: np.ndarray, template: np.ndarray,
+           hann: np.ndarray, gram_inv: np.ndarray, fs: float) -> tuple[np.ndarray, np.ndarray]:
+    """(var_amplitude, one-sided noise PSD at f) from the scatter of Hann-segment fits.
+
+    Segment s fits [1, cos ωt, sin ωt] with Hann weights to the residual x − Dβ; its
+    projection of the full-record model is subtracted exactly through the cross-Gram
+    matrix, so offset and harmonics never leak in. For white noise of density P the
+    fundamental's scatter has E|c_s|² = P (κ_seg − κ_cross,s) exactly (see module notes).
+    """
+    local = template[:, :3]
+    gram_h_inv = np.linalg.inv(local.T @ (local * hann[:, None]))
+    cross = gram_h_inv @ (local * hann[:, None]).T @ template          # (3, P): A_s D_s = cross R_s
+    model = np.einsum("cq,spq,rp->scr", beta, rot, cross)               # full fit seen by each segment
+    scatter = (hann_proj @ gram_h_inv - model)[..., 1:3]
+    sum_sq = np.sum(scatter**2, axis=(0, 2))                           # (n_ch,)
+    cov_seg = gram_h_inv @ (local.T @ (local * (hann**2)[:, None])) @ gram_h_inv
+    seen = cross @ rot                                                  # (count, 3, P)
+    cov_cross = seen @ gram_inv @ seen.transpose(0, 2, 1)
+    kappa_seg = cov_seg[1, 1] + cov_seg[2, 2]
+    kappa_cross = cov_cross[:, 1, 1] + cov_cross[:, 2, 2]
+    density = sum_sq / np.sum(kappa_seg - kappa_cross)                 # two-sided, per sample
+    return density * (gram_inv[1, 1] + gram_inv[2, 2]), 2.0 * density / fs
+
+
+def _assemble(beta: np.ndarray, orders: np.ndarray, n_harm: int, var_amp: np.ndarray, psd: np.ndarray,
+              rss: np.ndarray, f: float, fs: float, n: int) -> HarmonicFit:
+    phasors = beta[:, 1::2] - 1j * beta[:, 2::2]                    # (n_ch, fitted orders)
+    amp = phasors[:, 0]
+    n_ch = beta.shape[0]
+    harmonics = np.full((n_ch, n_harm - 1), np.nan + 1j * np.nan)
+    harmonics[:, orders[1:] - 2] = phasors[:, 1:]
+    duration = n / fs
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mag = np.abs(amp)
+        sigma_abs = np.sqrt(var_amp / 2.0)
+        snr_db = 10.0 * np.log10((mag**2 / 2.0) / (psd / duration))
+        if orders.size > 1:
+            distortion = np.sqrt(np.sum(np.abs(phasors[:, 1:]) ** 2, axis=1)) / mag
+        else:
+            distortion = np.full(n_ch, np.nan)
+        sigma_phase = sigma_abs / mag
+    return HarmonicFit(freq_hz=f, sample_rate_hz=fs, n_samples=n, amplitude=amp, offset=beta[:, 0].copy(),
+                       harmonics=harmonics, noise_psd=psd, var_amplitude=var_amp, sigma_abs=sigma_abs,
+                       sigma_phase_rad=sigma_phase, snr_db=snr_db, distortion=distortion,
+                       rms_residual=np.sqrt(rss / n))
+
+
+def _template(n_idx: np.ndarray, cycles: float, orders: np.ndarray) -> np.ndarray:
+    """Regressors [1, cos kωn, sin kωn ...] at sample indices ``n_idx`` (phase reduced mod 1)."""
+    phase = 2.0 * np.pi * np.mod(np.outer(n_idx, orders * cycles), 1.0)
+    out = np.empty((n_idx.size, 1 + 2 * orders.size))
+    out[:, 0] = 1.0
+    out[:, 1::2] = np.cos(phase)
+    out[:, 2::2] = np.sin(phase)
+    return out
+
+
+def _rotations(starts: np.ndarray, cycles: float, orders: np.ndarray) -> np.ndarray:
+    """R_s with global regressors on segment s = local template @ R_s (block 2×2 per order)."""
+    n_par = 1 + 2 * orders.size
+    phase = 2.0 * np.pi * np.mod(np.outer(starts, orders * cycles), 1.0)
+    c, s = np.cos(phase), np.sin(phase)
+    rot = np.zeros((starts.size, n_par, n_par))
+    rot[:, 0, 0] = 1.0
+    i = np.arange(orders.size)
+    rot[:, 1 + 2 * i, 1 + 2 * i] = c
+    rot[:, 1 + 2 * i, 2 + 2 * i] = s
+    rot[:, 2 + 2 * i, 1 + 2 * i] = -s
+    rot[:, 2 + 2 * i, 2 + 2 * i] = c
+    return rot
+
+
+def _segmentation(n: int, cycles: float) -> _Segments:
+    periods = n * cycles
+    count_target = int(min(MAX_SEGMENTS, periods // MIN_PERIODS_PER_SEGMENT, n // MIN_SAMPLES_PER_SEGMENT))
+    count_target = max(count_target, 1)
+    length = 2 * (n // (2 * count_target))
+    hop = length // 2
+    count = (n - length) // hop + 1
+    return _Segments(length=length, hop=hop, count=count, n_full=n // length)
+
+
+def _fitted_orders(f: float, fs: float, n: int, n_harm: int) -> np.ndarray:
+    """Harmonic orders (1 first) at least one resolution bin below fs/2."""
+    k = np.arange(1, n_harm + 1)
+    return k[(fs / 2.0 - k * f) * (n / fs) >= 1.0]
+
+
+def _as_channels(x: np.ndarray) -> np.ndarray:
+    arr = np.asarray(x)
+    if np.iscomplexobj(arr):
+        raise ValueError("samples must be real, got a complex array")
+    if arr.ndim == 1:
+        arr = arr[None, :]
+    if arr.ndim != 2:
+        raise ValueError(f"samples must be (n_channels, n_samples) or (n_samples,), got shape {arr.shape}")
+    if arr.shape[0] == 0:
+        raise ValueError("no channels in the record")
+    if arr.shape[1] < MIN_SAMPLES:
+        raise ValueError(f"record too short: {arr.shape[1]} samples, need at least {MIN_SAMPLES}")
+    return np.ascontiguousarray(arr, dtype=np.float64)
+
+
+def _check_frequency(f: float, fs: float, n: int) -> None:
+    if not np.isfinite(fs) or fs <= 0.0:
+        raise ValueError(f"sample rate must be a positive number, got {fs!r} Hz")
+    if not np.isfinite(f) or f <= 0.0:
+        raise ValueError(f"frequency must be a positive number, got {f!r} Hz")
+    if f >= fs / 2.0:
+        raise ValueError(f"frequency {f:g} Hz is not below half the sample rate ({fs / 2.0:g} Hz)")
+    duration = n / fs
+    if f * duration < MIN_PERIODS:
+        raise ValueError(f"record too short: {f * duration:.3g} periods of {f:g} Hz in {duration:.4g} s, "
+                         f"need at least {MIN_PERIODS:g}")
+    if (fs / 2.0 - f) * duration < 1.0:
+        raise ValueError(f"frequency {f:g} Hz is within one resolution bin ({1.0 / duration:.3g} Hz) "
+                         f"of half the sample rate ({fs / 2.0:g} Hz)")
+
+
+def _check_n_harmonics(n_harmonics: int) -> int:
+    if isinstance(n_harmonics, bool) or int(n_harmonics) != n_harmonics or n_harmonics < 1:
+        raise ValueError(f"n_harmonics must be a whole number >= 1, got {n_harmonics!r}")
+    return int(n_harmonics)
+
+
+def _check_finite(data: np.ndarray, sum_sq: np.ndarray) -> None:
+    """Cheap check on the sums; the full scan only runs when something is wrong."""
+    if np.all(np.isfinite(sum_sq)):
+        return
+    for ch in np.flatnonzero(~np.isfinite(sum_sq)):
+        bad = np.flatnonzero(~np.isfinite(data[ch]))
+        if bad.size:
+            raise ValueError(f"channel {ch}: {bad.size} non-finite sample(s), first at index {bad[0]}")
+    raise ValueError(f"channel {int(np.flatnonzero(~np.isfinite(sum_sq))[0])}: values too large "
+                     "(sum of squares overflows)")
+
+
+def estimate_frequency(x: np.ndarray, sample_rate_hz: float, f_min_hz: float = 1.0,
+                       f_max_hz: float | None = None) -> float:
+    """Frequency of the strongest sine in one channel, refined to a small fraction of a bin.
+
+    For reprocessing a record whose forcing frequency was not stored: Hann-windowed FFT
+    peak in [f_min_hz, f_max_hz], interpolated from the two largest bins (exact for a
+    pure tone under a Hann window), then refined by maximising the power explained by a
+    least-squares sine fit (the maximum-likelihood estimator in white noise; Rife &
+    Boorstyn 1974). Pass the drive or reference channel, as a 1-D array.
+    """
+    sig = _one_channel(x)
+    n = sig.size
+    fs = float(sample_rate_hz)
+    if not np.isfinite(fs) or fs <= 0.0:
+        raise ValueError(f"sample rate must be a positive number, got {fs!r} Hz")
+    f_max = fs / 2.0 if f_max_hz is None else float(f_max_hz)
+    if not (0.0 <= f_min_hz < f_max <= fs / 2.0):
+        raise ValueError(f"search band {f_min_hz:g}..{f_max:g} Hz must lie within 0..{fs / 2.0:g} Hz")
+    bin_hz = fs / n
+    spectrum = np.abs(np.fft.rfft((sig - sig.mean()) * np.hanning(n)))
+    lo = max(int(np.ceil(f_min_hz / bin_hz)), 1)
+    hi = min(int(np.floor(f_max / bin_hz)), spectrum.size - 2)
+    if hi < lo:
+        raise ValueError(f"search band {f_min_hz:g}..{f_max:g} Hz holds no frequency bin of a {n}-sample record")
+    k = lo + int(np.argmax(spectrum[lo:hi + 1]))
+    coarse = (k + _hann_offset(spectrum, k)) * bin_hz
+    left = max(coarse - 0.5 * bin_hz, 1e-3 * bin_hz)
+    right = min(coarse + 0.5 * bin_hz, fs / 2.0 - 1e-3 * bin_hz)
+    centred = sig - sig.mean()
+    res = optimize.minimize_scalar(lambda fr: -_explained_power(centred, fr / fs), bounds=(left, right),
+                                   method="bounded", options={"xatol": 1e-5 * bin_hz})
+    return float(res.x)
+
+
+def _hann_offset(spectrum: np.ndarray, k: int) -> float:
+    """Bin offset of a tone from peak bin k under a Hann window (two-bin interpolation)."""
+    left, right = spectrum[k - 1], spectrum[k + 1]
+    if spectrum[k] <= 0.0:
+        return 0.0
+    alpha = max(left, right) / spectrum[k]
+    delta = (2.0 * alpha - 1.0) / (alpha + 1.0)
+    return float(np.clip(delta if right >= left else -delta, -0.5, 0.5))
+
+
+def _explained_power(sig: np.ndarray, cycles: float) -> float:
+    """bᵀG⁻¹b of a cos/sin/offset least-squares fit at ``cycles`` per sample."""
+    design = _template(np.arange(sig.size), cycles, np.array([1]))
+    b = sig @ design
+    return float(b @ np.linalg.solve(design.T @ design, b))
+
+
+def _one_channel(x: np.ndarray) -> np.ndarray:
+    arr = np.asarray(x)
+    if np.iscomplexobj(arr):
+        raise ValueError("samples must be real, got a complex array")
+    arr = np.squeeze(arr) if arr.ndim == 2 and 1 in arr.shape else arr
+    if arr.ndim != 1:
+        raise ValueError(f"pass one channel (a 1-D array) to estimate its frequency, got shape {np.shape(x)}")
+    if arr.size < MIN_SAMPLES:
+        raise ValueError(f"record too short: {arr.size} samples, need at least {MIN_SAMPLES}")
+    arr = arr.astype(np.float64)
+    bad = np.flatnonzero(~np.isfinite(arr))
+    if bad.size:
+        raise ValueError(f"{bad.size} non-finite sample(s), first at index {bad[0]}")
+    return arr
