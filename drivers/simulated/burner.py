@@ -1,0 +1,266 @@
+"""The simulated burner back-end: a rig to rehearse on and to run every test against.
+
+``SimulatedBurner`` behaves like a real rig behind the driver protocols (SineDrive,
+Acquirer, Identified, Stoppable, EmergencyHalt, Paced). Each drive sample comes from the
+ceiling guard; each block is synthesised from the guard's samples through the true
+physics (loudspeaker → acoustic network with flame feedback → sensors, light chain,
+ADC), with coloured noise, slow drift of temperature and flow, and the scenario's faults.
+The true FTF is never handed out here; see ``drivers.simulated.truth``.
+
+How to get the blocks of a 2 s record at one frequency and drive voltage::
+
+    from app.rig import load_rig
+    from drivers.simulated import SimulatedBurner
+    rig = load_rig("configs/demo-rig.toml")
+    sim = SimulatedBurner(rig, seed=7)          # demo scenario, fast (not real-time)
+    sim.start()
+    sim.set_drive(400.0, 0.5)                   # Hz, peak volts at the amplifier input
+    while sim.drive_status().ramping:           # let the guard's ramp finish
+        sim.read_block()
+    sim.read_block(); sim.read_block()          # a little acoustic settling (optional)
+    n = round(2.0 / rig.acquisition.block_duration)
+    blocks = [sim.read_block() for _ in range(n)]   # contiguous: start_index steps by n_samples
+    data = np.concatenate([b.data for b in blocks], axis=1)  # (channels, samples) in volts
+
+The true answer for the same point: ``truth.true_ftf(sim, 400.0, a)`` with the peak
+amplitude ratio a = |û_ref|/ū_ref, ``truth.true_velocity_per_volt(sim, 400.0, 0.5)``.
+
+Imports: numpy, app.rig, app.core.gas (gas properties only), drivers.protocols,
+drivers.errors, drivers.guard and this package. Never the core's estimators.
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+import numpy as np
+
+from app.rig import Rig
+from drivers.errors import BackendTimeout, DriverError
+from drivers.guard import CeilingGuard
+from drivers.protocols import Availability, Block, DriveStatus
+
+from .faults import FaultClock, active_mask
+from .model import BurnerModel
+from .noise import ColouredNoise, adc, shot_noise
+from .scenario import Scenario, load_scenario
+
+DEMO_SCENARIO = Path(__file__).resolve().parents[2] / "configs" / "demo-scenario.toml"
+TWO_PI = 2.0 * np.pi
+
+
+def resolve_scenario(rig: Rig, scenario: Scenario | str | Path | None) -> Scenario:
+    """The scenario object for ``rig``: as given, loaded from a path, or the default."""
+    if isinstance(scenario, Scenario):
+        out = scenario
+    elif scenario is not None:
+        out = load_scenario(scenario)
+    else:
+        out = Scenario.default_for(rig)
+        if DEMO_SCENARIO.exists():
+            demo = load_scenario(DEMO_SCENARIO)
+            same_file = rig.source_path and Path(rig.source_path).resolve() == demo.rig_path
+            if same_file or (demo.rig_path.exists() and demo.load_rig().name == rig.name):
+                out = demo
+    out.check_against(rig)
+    return out
+
+
+def analytic_drive(drive_v: np.ndarray, previous_v: float, freq_hz: np.ndarray) -> np.ndarray:
+    """Analytic signal of a sine drive with slowly varying envelope, from consecutive samples.
+
+    For d[n] = Re{A e^{iθn}}: A sin θn = (d[n-1] - d[n] cos θ)/sin θ, exact at constant A.
+    """
+    theta = TWO_PI * freq_hz
+    before = np.concatenate(([previous_v], drive_v[:-1]))
+    sin_t = np.sin(theta)
+    safe = np.where(np.abs(sin_t) > 1e-12, sin_t, 1.0)
+    quad = np.where(np.abs(sin_t) > 1e-12, (before - drive_v * np.cos(theta)) / safe, 0.0)
+    return drive_v + 1j * quad
+
+
+class SimulatedBurner:
+    """A burner rig in software. Deterministic from the seed; faster than real time by default."""
+
+    def __init__(self, rig: Rig, scenario: Scenario | str | Path | None = None,
+                 real_time: bool = False, seed: int | None = None) -> None:
+        self.rig = rig
+        self.scenario = resolve_scenario(rig, scenario)
+        self.seed = int(self.scenario.seed if seed is None else seed)
+        acq = rig.acquisition
+        self._fs = float(acq.sample_rate)
+        self._block_n = max(1, int(round(acq.block_duration * self._fs)))
+        self.guard = CeilingGuard(rig.drive.ceiling, self._fs, rig.drive.ramp_time)
+        self.model = BurnerModel(rig, self.scenario, self.seed)
+        self._channels = tuple(rig.input_channels)
+        self._faults = FaultClock(self.scenario.faults, self._fs)
+        rng = np.random.default_rng([self.seed, 1])
+        n_p = len(rig.pressure_sensors)
+        ns = self.scenario.noise
+        self._p_noise = ColouredNoise(n_p, self._fs, ns.pressure_corner, ns.pressure_correlation, rng)
+        self._l_noise = ColouredNoise(1, self._fs, ns.light_corner, 0.0, rng)
+        self._rng = rng
+        self._index = 0
+        self._prev_drive_v = 0.0
+        self._started = False
+        self._stopped = False
+        self._real_time = bool(real_time)
+        self._wall_anchor = (time.monotonic(), 0)
+
+    # ------------------------------------------------------------------ identity
+    @classmethod
+    def probe(cls) -> Availability:
+        return Availability(True, "built-in simulator")
+
+    def identity(self) -> dict[str, str]:
+        return {"maker": "flamebode", "model": "simulated burner", "serial": f"seed-{self.seed}",
+                "rig": self.rig.name, "scenario": self.scenario.source_path or "<default>",
+                "numpy": np.__version__}
+
+    # ------------------------------------------------------------------ acquisition
+    @property
+    def channels(self) -> tuple[str, ...]:
+        return self._channels
+
+    @property
+    def sample_rate_hz(self) -> float:
+        return self._fs
+
+    @property
+    def time_s(self) -> float:
+        """Simulated time since acquisition started (end of the last block)."""
+        return self._index / self._fs
+
+    @property
+    def flame_on(self) -> bool:
+        return self._index <= self._faults.flame_out_index
+
+    def set_real_time(self, real_time: bool) -> None:
+        self._real_time = bool(real_time)
+        self._wall_anchor = (time.monotonic(), self._index)
+
+    def start(self) -> None:
+        self._started, self._stopped = True, False
+        self._wall_anchor = (time.monotonic(), self._index)
+
+    def read_block(self, timeout_s: float = 2.0) -> Block:
+        """The next block of ``rig.acquisition.block_duration``; raises BackendTimeout after a hang."""
+        if not self._started or self._stopped:
+            raise DriverError("simulated burner: acquisition is not running (call start() first)")
+        if not self._faults.answers(self._index + self._block_n):
+            self._hang(timeout_s, "read_block")
+        data, status = self._synthesise()
+        block = Block(data=data, channels=self._channels, sample_rate_hz=self._fs, start_index=self._index,
+                      drive_freq_hz=status.freq_hz, drive_amplitude_v=status.amplitude_v)
+        self._index += self._block_n
+        self._pace()
+        return block
+
+    # ------------------------------------------------------------------ drive
+    def set_drive(self, freq_hz: float, amplitude_v: float) -> None:
+        if self._stopped:
+            raise DriverError("simulated burner: stopped; call start() before driving again")
+        if not self._faults.answers(self._index):
+            self._hang(2.0, "set_drive")
+        self.guard.request(freq_hz, amplitude_v)
+
+    def drive_status(self) -> DriveStatus:
+        return self.guard.status()
+
+    def stop(self) -> None:
+        """Ramp the drive down (the ramp is played out in simulated time) and stop. Idempotent."""
+        if self._stopped:
+            return
+        self.guard.ramp_down()
+        n_ramp = int(np.ceil(self.guard.time_to_settle_s() * self._fs))
+        if n_ramp:
+            self._prev_drive_v = float(self.guard.render(n_ramp)[-1])
+            self._index += n_ramp
+            if self._real_time:
+                time.sleep(n_ramp / self._fs)
+        self._stopped = True
+
+    def halt(self) -> None:
+        """Drive to zero from the next sample, no ramp (lock-free, any thread)."""
+        self.guard.halt()
+
+    # ------------------------------------------------------------------ internals
+    def _hang(self, timeout_s: float, what: str) -> None:
+        if self._real_time:
+            time.sleep(max(0.0, float(timeout_s)))
+        raise BackendTimeout(f"simulated burner: no answer to {what} within {timeout_s:g} s")
+
+    def _pace(self) -> None:
+        if not self._real_time:
+            return
+        wall0, index0 = self._wall_anchor
+        due = wall0 + (self._index - index0) / self._fs
+        delay = due - time.monotonic()
+        if delay > 0:
+            time.sleep(delay)
+
+    def _render(self) -> tuple[np.ndarray, np.ndarray, DriveStatus]:
+        """Drive samples from the guard and the per-sample frequency in cycles per sample."""
+        f_before = self.guard.status().freq_hz
+        drive_v = self.guard.render(self._block_n)
+        status = self.guard.status()
+        cps = np.full(self._block_n, status.freq_hz / self._fs)
+        if status.freq_hz != f_before:
+            zeros = np.flatnonzero(drive_v == 0.0)  # the guard switches frequency at an exact zero
+            cut = int(zeros[0]) + 1 if zeros.size else 0
+            cps[:cut] = f_before / self._fs
+        return drive_v, cps, status
+
+    def _synthesise(self) -> tuple[np.ndarray, DriveStatus]:
+        n, i0, fs = self._block_n, self._index, self._fs
+        drive_v, cps, status = self._render()
+        z = analytic_drive(drive_v, self._prev_drive_v, cps)
+        self._prev_drive_v = float(drive_v[-1])
+        state = self.model.drift_state(i0 / fs + 0.5 * n / fs)
+        disconnected = active_mask(self._faults.disconnect, i0, n)
+        if disconnected is not None:
+            z = np.where(disconnected, 0.0, z)  # the speaker no longer moves; the reference goes on
+        hot = self.model.forced(z, cps * fs, state, flame=True)
+        out_at = self._faults.flame_out_in_block(i0, n, hot.amplitude_ratio)
+        flame_mask = np.arange(i0, i0 + n) < out_at
+        if flame_mask.all():
+            forced = hot
+        else:
+            cold = self.model.forced(z, cps * fs, state, flame=False)
+            forced = hot.where(flame_mask, cold)
+        return self._channels_volts(drive_v, forced, flame_mask, state), status
+
+    def _channels_volts(self, drive_v, forced, flame_mask, state) -> np.ndarray:
+        n, i0 = self._block_n, self._index
+        rig, sc, m = self.rig, self.scenario, self.model
+        ns = sc.noise
+        noise_level = np.where(flame_mask, 1.0, ns.flame_out_fraction) * ns.pressure_rms
+        p_noise = self._p_noise.block(n) * noise_level
+        sens = m.true_sensitivity_v_pa[:, None]
+        volts = np.real(m.sensor_factor[:, None] * forced.pressure_pa) + sens * p_noise
+        volts += ns.electronic_rms * self._rng.standard_normal(volts.shape)
+        light = self._light_volts(forced.heat_release_ratio, flame_mask, state)
+        rows = [volts, light[None, :]]
+        if rig.drive.reference_channel:
+            rows.append((drive_v + ns.electronic_rms * self._rng.standard_normal(n))[None, :])
+        data = np.concatenate(rows, axis=0)
+        if self._faults.dropout_channel is not None:
+            dead = active_mask(self._faults.dropout, i0, n)
+            if dead is not None:
+                row = self._channels.index(self._faults.dropout_channel)
+                data[row, dead] = sc.faults.sensor_dropout.level
+        return adc(data, m.input_range_v, sc.adc.bits)
+
+    def _light_volts(self, heat_release_ratio: np.ndarray, flame_mask: np.ndarray, state) -> np.ndarray:
+        sc, n = self.scenario, self._block_n
+        flicker = sc.noise.light_flame_noise * self._l_noise.block(n)[0]
+        mean_v = sc.light.mean_signal * state.flow_factor
+        signal_v = np.where(flame_mask, mean_v * (1.0 + heat_release_ratio + flicker), 0.0)
+        sat = active_mask(self._faults.light_saturation, self._index, n)
+        if sat is not None:
+            signal_v = np.where(sat, signal_v * sc.faults.light_saturation.gain_factor, signal_v)
+        light = self.model.dark_offset_v + signal_v
+        light += shot_noise(light, sc.noise.light_shot_coefficient, self._rng)
+        light += sc.noise.electronic_rms * self._rng.standard_normal(n)
+        return np.minimum(light, sc.light.rail)

@@ -1,0 +1,255 @@
+"""The true physics of one simulated burner, assembled from a rig and a scenario.
+
+Builds the loudspeaker, the flame model, the acoustic network (per frequency, per
+drift state, with or without flame), the true sensor factors and the drift, and turns
+an analytic drive signal into analytic pressures, the heat-release ratio and the
+reference-plane velocity amplitude. Flame saturation enters through the describing
+function of a clip, found by bisection on the amplitude fixed point.
+
+Imports: numpy, app.rig, app.core.gas (gas properties only) and this package. Never the
+core's estimators (multimic, harmonic, response, quality).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from app.core.gas import mean_flow, mixture_state
+from app.rig import Rig
+
+from .acoustics import BurnerGeometry, BurnerNetwork, FlowState, Medium
+from .flame import FlameModel, GaussianTerm
+from .loudspeaker import Loudspeaker
+from .scenario import Scenario
+
+TWO_PI = 2.0 * np.pi
+
+
+@dataclass(frozen=True)
+class DriftState:
+    temperature_k: float  # true gas temperature at the sensors
+    flow_factor: float  # true mass flow / nominal mass flow
+
+
+@dataclass(frozen=True)
+class PointResponse:
+    """Steady response per peak volt at the amplifier input, at one frequency and drive level."""
+
+    pressure_per_v: np.ndarray  # Pa/V at each sensor (complex)
+    velocity_per_v: complex  # û_ref per volt (m/s/V), just upstream of the flame
+    flame_response: complex  # F actually acting (linear × saturation), 0 without flame
+    flame_linear: complex
+    velocity_reference_m_s: float
+
+
+@dataclass(frozen=True)
+class Forced:
+    """Analytic forced signals of one block (no noise)."""
+
+    pressure_pa: np.ndarray  # (n_sensors, n) complex analytic pressure
+    heat_release_ratio: np.ndarray  # (n,) Q'/Q̄, real, after the flame's clip
+    amplitude_ratio: np.ndarray  # (n,) |û_ref|/ū_ref envelope (peak)
+
+    def where(self, mask: np.ndarray, other: "Forced") -> "Forced":
+        return Forced(np.where(mask, self.pressure_pa, other.pressure_pa),
+                      np.where(mask, self.heat_release_ratio, other.heat_release_ratio),
+                      np.where(mask, self.amplitude_ratio, other.amplitude_ratio))
+
+
+def _medium(state, gamma: float | None = None) -> Medium:
+    g = state.gamma if gamma is None else gamma
+    c = state.speed_of_sound_m_s if gamma is None else math.sqrt(g * state.pressure_pa / state.density_kg_m3)
+    return Medium(state.density_kg_m3, c, g, state.kinematic_viscosity_m2_s, state.prandtl)
+
+
+def build_flame(scenario: Scenario, rig: Rig) -> FlameModel:
+    f = scenario.flame
+    nozzle_radius = math.sqrt(rig.duct.area_m2 / rig.duct.area_ratio / math.pi)
+    return FlameModel(kind=f.model, n=f.n, tau_s=f.tau,
+                      terms=tuple(GaussianTerm(t.n, t.tau, t.sigma) for t in f.terms),
+                      radius_m=f.radius if f.radius is not None else nozzle_radius,
+                      flame_speed_m_s=f.flame_speed, half_angle_rad=f.half_angle, saturation=f.saturation)
+
+
+def build_speaker(scenario: Scenario) -> Loudspeaker:
+    s = scenario.loudspeaker
+    return Loudspeaker(s.resonance, s.q, s.amplifier_gain, s.peak_velocity_per_volt,
+                       math.pi * s.cone_diameter**2 / 4.0, s.compression_voltage,
+                       s.second_harmonic_per_volt, s.third_harmonic_per_volt2)
+
+
+def true_sensor_errors(scenario: Scenario, rig: Rig, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """True/nominal sensitivity ratio and phase error (rad) of each pressure sensor."""
+    rng = np.random.default_rng([seed, 3])
+    n = len(rig.pressure_sensors)
+    spec = scenario.sensors
+    gains = 1.0 + spec.sensitivity_spread * np.clip(rng.standard_normal(n), -2.5, 2.5)
+    phases = spec.phase_spread * np.clip(rng.standard_normal(n), -2.5, 2.5)
+    for i, s in enumerate(rig.pressure_sensors):
+        if s.channel in spec.errors:
+            gains[i], phases[i] = spec.errors[s.channel].gain, spec.errors[s.channel].phase
+    return gains, phases
+
+
+class BurnerModel:
+    """True physics of a rig + scenario; responses are cached per frequency and drift state."""
+
+    def __init__(self, rig: Rig, scenario: Scenario, seed: int) -> None:
+        self.rig, self.scenario = rig, scenario
+        self.flame = build_flame(scenario, rig)
+        self.speaker = build_speaker(scenario)
+        self._mean = mean_flow(rig)
+        self._composition = self._mean.composition
+        sc, duct = scenario, rig.duct
+        self.geometry = BurnerGeometry(
+            plenum_length_m=sc.plenum.length, plenum_radius_m=sc.plenum.diameter / 2.0,
+            plenum_volume_m3=sc.plenum.volume, duct_radius_m=duct.radius_m, duct_start_m=duct.upstream_end,
+            reference_plane_m=duct.reference_plane, reference_area_m2=duct.area_m2 / duct.area_ratio,
+            chamber_length_m=sc.chamber.length, chamber_radius_m=sc.chamber.diameter / 2.0,
+            end_reflection=sc.chamber.end_reflection)
+        self.sensor_positions_m = np.array([s.position for s in rig.pressure_sensors])
+        gains, phases = true_sensor_errors(scenario, rig, seed)
+        self.true_sensitivity_v_pa = gains * np.array([s.sensitivity for s in rig.pressure_sensors])
+        self.sensor_phase_rad = phases
+        self.sensor_factor = self.true_sensitivity_v_pa * np.exp(1j * phases)
+        self.input_range_v = sc.adc.input_range or rig.acquisition.input_range
+        self.dark_offset_v = sc.light.dark_offset if sc.light.dark_offset is not None else rig.light.dark_offset
+        rng = np.random.default_rng([seed, 2])
+        self._drift_phase = rng.uniform(0.0, TWO_PI, 2)
+        self._networks: dict[tuple, BurnerNetwork] = {}
+        self._responses: dict[tuple, PointResponse] = {}
+
+    # ------------------------------------------------------------------ state
+    def drift_state(self, time_s: float) -> DriftState:
+        d = self.scenario.drift
+        temp = (self.rig.gas.temperature + d.temperature_offset_k
+                + d.temperature_swing_k * math.sin(TWO_PI * time_s / d.temperature_period + self._drift_phase[0]))
+        flow = 1.0 + d.flow_swing * math.sin(TWO_PI * time_s / d.flow_period + self._drift_phase[1])
+        return DriftState(round(temp, 2), round(flow, 5))  # rounded: cache keys, changes stay tiny
+
+    def nominal_state(self) -> DriftState:
+        return DriftState(round(self.rig.gas.temperature + self.scenario.drift.temperature_offset_k, 2), 1.0)
+
+    def flow_state(self, state: DriftState, flame: bool) -> FlowState:
+        p = self.rig.gas.pressure
+        cold_gas = mixture_state(self._composition, state.temperature_k, p)
+        nominal = self._mean.state
+        u_s = self._mean.velocity_sensors_m_s * state.flow_factor * nominal.density_kg_m3 / cold_gas.density_kg_m3
+        u_ref = u_s * self._mean.velocity_reference_m_s / self._mean.velocity_sensors_m_s
+        cold = _medium(cold_gas)
+        g = self.geometry
+        a_duct = math.pi * g.duct_radius_m**2
+        if flame:
+            hot = _medium(mixture_state(self._composition, self.scenario.flame.temperature, p),
+                          self.scenario.flame.burnt_gamma)
+            theta = self.scenario.flame.temperature / state.temperature_k
+        else:
+            hot, theta = cold, 1.0
+        u_ch = u_ref * g.reference_area_m2 / (math.pi * g.chamber_radius_m**2) * theta
+        return FlowState(cold=cold, hot=hot, mach_plenum=u_s * a_duct / (math.pi * g.plenum_radius_m**2) / cold.speed_of_sound_m_s,
+                         mach_duct=u_s / cold.speed_of_sound_m_s, mach_chamber=u_ch / hot.speed_of_sound_m_s,
+                         velocity_reference_m_s=u_ref, temperature_ratio=theta)
+
+    def network(self, freq_hz: float, state: DriftState, flame: bool) -> BurnerNetwork:
+        key = (freq_hz, state, flame)
+        net = self._networks.get(key)
+        if net is None:
+            if len(self._networks) > 512:
+                self._networks.clear()
+            net = BurnerNetwork(self.geometry, self.flow_state(state, flame), freq_hz, self.sensor_positions_m)
+            self._networks[key] = net
+        return net
+
+    # ------------------------------------------------------------------ responses
+    def response(self, freq_hz: float, drive_v: float, state: DriftState, flame: bool = True) -> PointResponse:
+        """Steady response per volt at ``drive_v`` peak (saturation and compression included)."""
+        key = (freq_hz, round(drive_v, 9), state, flame)
+        hit = self._responses.get(key)
+        if hit is None:
+            if len(self._responses) > 4096:
+                self._responses.clear()
+            hit = self._solve(freq_hz, drive_v, state, flame)
+            self._responses[key] = hit
+        return hit
+
+    def _solve(self, freq_hz: float, drive_v: float, state: DriftState, flame: bool) -> PointResponse:
+        net = self.network(freq_hz, state, flame)
+        u_bar = net.flow.velocity_reference_m_s
+        source = complex(self.speaker.volume_velocity_per_volt(freq_hz) * self.speaker.compression(drive_v))
+        f_lin = complex(self.flame.linear(freq_hz)) if flame else 0j
+
+        def at(factor: float) -> tuple[np.ndarray, complex, float]:
+            s0 = net.source_state(f_lin * factor, source)
+            u = complex(net.reference_velocity(s0))
+            return s0, u, float(self.flame.saturation_factor(abs(f_lin), abs(u) * drive_v / u_bar))
+
+        s0, u, n_new = at(1.0)
+        factor = 1.0
+        if n_new < 1.0 - 1e-12:  # saturated: bisection on N - N(a(N)) = 0, N in (0, 1]
+            lo, hi = 0.0, 1.0
+            for _ in range(48):
+                mid = 0.5 * (lo + hi)
+                _, _, n_mid = at(mid)
+                lo, hi = (lo, mid) if mid > n_mid else (mid, hi)
+            factor = 0.5 * (lo + hi)
+            s0, u, _ = at(factor)
+        return PointResponse(net.sensor_pressures(s0), u, f_lin * factor, f_lin, u_bar)
+
+    def pressure_per_volume_velocity(self, freq_hz: float, state: DriftState, flame: bool) -> np.ndarray:
+        """Sensor pressures per unit source volume velocity with the linear flame (for harmonics)."""
+        net = self.network(freq_hz, state, flame)
+        f_lin = complex(self.flame.linear(freq_hz)) if flame else 0j
+        return net.sensor_pressures(net.source_state(f_lin, 1.0))
+
+    # ------------------------------------------------------------------ time series
+    def forced(self, z: np.ndarray, freq_hz: np.ndarray, state: DriftState, flame: bool) -> Forced:
+        """Forced signals for an analytic drive ``z`` (volts) with per-sample frequency."""
+        n_s, n = len(self.sensor_positions_m), z.size
+        pressure = np.zeros((n_s, n), dtype=complex)
+        heat = np.zeros(n)
+        amplitude = np.zeros(n)
+        for f in np.unique(freq_hz):
+            idx = np.flatnonzero(freq_hz == f)
+            if f <= 0.0:
+                continue
+            p, q, a = self._forced_at(z[idx], float(f), state, flame)
+            pressure[:, idx], heat[idx], amplitude[idx] = p, q, a
+        return Forced(pressure, heat, amplitude)
+
+    def _forced_at(self, z: np.ndarray, freq_hz: float, state: DriftState, flame: bool):
+        env = np.abs(z)
+        lo, hi = float(env.min()), float(env.max())
+        levels = np.array([hi]) if hi - lo <= 1e-9 * max(hi, 1e-12) else np.linspace(lo, hi, 9)
+        resp = [self.response(freq_hz, float(v), state, flame) for v in levels]
+        h_p = np.array([r.pressure_per_v for r in resp]).T  # (n_s, levels)
+        h_u = np.array([r.velocity_per_v for r in resp])
+        u_bar = resp[0].velocity_reference_m_s
+        if levels.size == 1:
+            pressure = h_p[:, :1] * z[None, :]
+            u = h_u[0] * z
+        else:
+            interp = lambda h: np.interp(env, levels, h.real) + 1j * np.interp(env, levels, h.imag)  # noqa: E731
+            pressure = np.stack([interp(row) for row in h_p]) * z[None, :]
+            u = interp(h_u) * z
+        pressure += self._harmonics(z, env, freq_hz, state, flame)
+        q = np.real(resp[0].flame_linear * u) / u_bar
+        if self.flame.saturation is not None:
+            np.clip(q, -self.flame.saturation, self.flame.saturation, out=q)
+        return pressure, q, np.abs(u) / u_bar
+
+    def _harmonics(self, z, env, freq_hz: float, state: DriftState, flame: bool) -> np.ndarray:
+        """Pressures of the loudspeaker's 2nd and 3rd harmonics (linear flame at k f)."""
+        sp = self.speaker
+        total = np.zeros((len(self.sensor_positions_m), z.size), dtype=complex)
+        q1 = sp.volume_velocity_per_volt(freq_hz) * sp.compression(env) * z  # analytic volume velocity
+        mag = np.abs(q1)
+        unit = np.divide(q1, mag, out=np.zeros_like(q1), where=mag > 0)
+        for k in (2, 3):
+            if k * freq_hz >= 0.5 * self.rig.acquisition.sample_rate or not np.any(sp.harmonic_ratio(k, env)):
+                continue
+            qk = sp.harmonic_ratio(k, env) * mag * unit**k
+            total += self.pressure_per_volume_velocity(k * freq_hz, state, flame)[:, None] * qk[None, :]
+        return total
