@@ -15,7 +15,14 @@ from . import __version__
 from .errors import FlamebodeError
 
 # command name -> (module under app.commands, one-line help)
-COMMANDS: dict[str, tuple[str, str]] = {}
+COMMANDS: dict[str, tuple[str, str]] = {
+    "review": ("review", "list a run's points, attempts, decisions and quality flags"),
+    "accept": ("accept", "accept or reject attempts of a run (exports use the accepted attempt)"),
+    "export": ("export", "write a run's points as CSV, a JSON summary and gain/phase plots"),
+    "reprocess-run": ("reprocess_run", "recompute a run's points from their raw records with a changed rig file"),
+    "resume": ("resume", "continue an interrupted sweep from its first point without an accepted attempt"),
+    "reacquire": ("reacquire", "measure chosen or flagged points of a run again (new attempts, old ones kept)"),
+}
 
 
 def build_parser() -> argparse.ArgumentParser:

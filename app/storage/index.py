@@ -163,8 +163,9 @@ def _auto_accept(conn: sqlite3.Connection, point_index: int, attempt_id: str, go
     if current is not None and (current["decided_by"] == "user" or not good):
         return
     now = time.time()
-    conn.execute("UPDATE attempts SET decision = '', decided_by = '', decided_wall_s = ? "
-                 "WHERE point_index = ? AND decision = 'accepted'", (now, point_index))
+    conn.execute("UPDATE attempts SET decision = '', decided_by = 'auto', decision_reason = 'superseded by a "
+                 "newer attempt', decided_wall_s = ? WHERE point_index = ? AND decision = 'accepted'",
+                 (now, point_index))
     conn.execute("UPDATE attempts SET decision = 'accepted', decided_by = 'auto', decision_reason = ?, "
                  "decided_wall_s = ? WHERE attempt_id = ?",
                  ("newest attempt" + ("" if good else " (flagged; no other attempt)"), now, attempt_id))
@@ -177,8 +178,9 @@ def decide(conn: sqlite3.Connection, attempt_id: str, accept: bool, reason: str)
         raise KeyError(attempt_id)
     point, now = int(row["point_index"]), time.time()
     if accept:
-        conn.execute("UPDATE attempts SET decision = '', decided_by = 'user', decided_wall_s = ? "
-                     "WHERE point_index = ? AND decision = 'accepted'", (now, point))
+        conn.execute("UPDATE attempts SET decision = '', decided_by = 'user', decision_reason = 'another "
+                     "attempt accepted', decided_wall_s = ? WHERE point_index = ? AND decision = 'accepted'",
+                     (now, point))
     conn.execute("UPDATE attempts SET decision = ?, decided_by = 'user', decision_reason = ?, decided_wall_s = ? "
                  "WHERE attempt_id = ?", ("accepted" if accept else "rejected", reason, now, attempt_id))
     return point

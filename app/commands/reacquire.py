@@ -1,0 +1,45 @@
+"""``flamebode reacquire RUN_DIR --points 3,7 | --flagged``: measure chosen points again.
+
+New attempts are added and old ones kept; the newest good attempt becomes the accepted
+one unless the user accepted another (see docs/run-layout.md). Uses the run's own rig,
+plan and scenario snapshots and its back-end. Must not import Qt.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+from ..errors import FlamebodeError
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("run_dir", help="run folder")
+    which = p.add_mutually_exclusive_group(required=True)
+    which.add_argument("--points", help="point numbers, e.g. 3,7 or 10-12")
+    which.add_argument("--flagged", action="store_true", help="every point whose accepted attempt is flagged")
+    p.add_argument("--fast", action="store_true", default=None,
+                   help="simulated runs: run faster than real time (default: as the run was started)")
+
+
+def run(args: argparse.Namespace) -> int:
+    from ..plan import load_plan
+    from ..storage.reader import open_run
+    from .reprocess_run import parse_points
+    from .resume import continue_run
+
+    r = open_run(args.run_dir, verify=False)
+    if not r.index_readable:
+        raise FlamebodeError(f"{r.run_dir}: cannot reacquire while the index is unreadable: {r.problems[0]}")
+    planned = [p.index for p in load_plan(r.plan_path).points()]
+    wanted = r.flagged_points() if args.flagged else parse_points(args.points) or []
+    unknown = sorted(set(wanted) - set(planned))
+    if unknown:
+        raise FlamebodeError(f"--points: {', '.join(map(str, unknown))} not in this run's plan "
+                             f"(0-{len(planned) - 1})")
+    if not wanted:
+        print(f"{r.run_dir}: no point to reacquire")
+        return 0
+    print(f"reacquiring point(s) {', '.join(map(str, wanted))} of {r.run_dir}")
+    reason = continue_run(r.run_dir, [i for i in planned if i in set(wanted)], fast=args.fast)
+    print(f"sweep {reason}")
+    return 0 if reason == "complete" else 1
