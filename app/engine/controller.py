@@ -12,8 +12,8 @@ unreachable under the ceiling, or not converged within the allowed steps.
   a fraction of the ceiling.
 * Updates are secant steps on (log voltage, log amplitude); when the last two pairs are
   inconsistent (slope outside a sane band, e.g. noise or a nonlinear driver) the step falls
-  back to the proportional one (slope 1, the linear-acoustics answer). Every step is
-  limited to a factor ``max_step_factor`` and to the ceiling.
+  back to the proportional one (slope 1, the linear-acoustics answer). An upward step is
+  limited to a factor ``max_step_factor``; no request is ever above the ceiling.
 * An unreachable target is reported early: measured below target at the ceiling, or a
   prediction clearly above the ceiling after a step near it.
 
@@ -40,7 +40,7 @@ class ControllerSettings:
     tolerance: float = 0.05              # max relative deviation of the amplitude from the target
     max_steps: int = 8                   # tuning windows per point
     first_drive_fraction: float = 0.1    # first voltage of the very first point, of the ceiling
-    max_step_factor: float = 4.0         # one step changes the voltage by at most this factor
+    max_step_factor: float = 4.0         # one step raises the voltage by at most this factor
     slope_band: tuple[float, float] = (0.33, 3.0)   # sane d(log a)/d(log V)
     near_ceiling: float = 0.7            # a step at >= this fraction of the ceiling is "near" it
     unreachable_margin: float = 0.25     # predicted voltage above (1 + margin) * ceiling: unreachable
@@ -79,6 +79,14 @@ class TransferMemory:
     def n_learned(self) -> int:
         return len(self._learned)
 
+    def table(self, target_ratio: float | None = None) -> tuple[tuple[float, float], ...]:
+        """(freq_hz, ratio per volt) learned so far, one per frequency: a prior for a later run."""
+        if not self._learned:
+            return ()
+        target = target_ratio or next(iter(self._learned))[1]
+        fs, lg = self._per_frequency(target)
+        return tuple((float(f), float(np.exp(g))) for f, g in zip(fs, lg))
+
     def _per_frequency(self, target_ratio: float) -> tuple[np.ndarray, np.ndarray]:
         """One log-gain per learned frequency: the entry nearest the target amplitude (log scale)."""
         best: dict[float, tuple[float, float]] = {}
@@ -112,12 +120,15 @@ class TransferMemory:
         return float(np.exp(self._extrapolate(fs, lg, freq_hz)))
 
     def _extrapolate(self, fs: np.ndarray, lg: np.ndarray, freq_hz: float) -> float:
-        """Straight line in log-gain through the two nearest learned points, limited in size."""
+        """Half the slope of the line in log-gain through the two nearest learned points, limited in size.
+
+        Speaker and duct resonances make the gain swing by tens of percent between neighbouring
+        points; a damped slope is safer than a full one (less overshoot past a resonance)."""
         if freq_hz > fs[-1]:
             (f1, g1), (f2, g2) = (fs[-2], lg[-2]), (fs[-1], lg[-1])
         else:
             (f1, g1), (f2, g2) = (fs[1], lg[1]), (fs[0], lg[0])
-        value = g2 + (g2 - g1) / (f2 - f1) * (freq_hz - f2)
+        value = g2 + 0.5 * (g2 - g1) / (f2 - f1) * (freq_hz - f2)
         return float(np.clip(value, g2 - self._limit_log, g2 + self._limit_log))
 
 
@@ -179,8 +190,8 @@ class PointTuner:
             if s.slope_band[0] <= candidate <= s.slope_band[1]:
                 slope = candidate
         factor = (self.target_ratio / measured_ratio) ** (1.0 / slope)
-        factor = min(max(factor, 1.0 / s.max_step_factor), s.max_step_factor)
-        return drive_v * factor
+        # only upward steps are limited (ramping up gently); lowering the drive is always safe
+        return drive_v * min(factor, s.max_step_factor)
 
     def _previous_distinct(self, drive_v: float) -> TuningSample | None:
         for sample in reversed(self.history[:-1]):

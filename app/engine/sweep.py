@@ -1,0 +1,549 @@
+"""The sweep engine: runs a plan on a back-end, step by step, publishing what happens.
+
+Per point: preparing -> tuning (short windows, drive adjusted by the amplitude controller)
+-> settling -> recording -> evaluating -> storing, then the next point; at the end the
+drive is ramped to zero. Every state change goes through the table in ``states.py``.
+
+Commands (thread-safe, for a window or a signal handler on another thread):
+
+* ``pause()`` takes effect at the next step boundary: the drive is ramped to zero and held
+  there; ``resume()`` re-tunes the point (or starts the next one if paused between points).
+  A record in progress is finished, evaluated and stored before the pause.
+* ``stop()`` finishes the point in progress, then ends.
+* ``abort()`` ends at the next block: the drive is ramped down now; stored points are kept.
+* ``halt()`` zeroes the outputs at once from the caller's thread (EmergencyHalt when the
+  back-end has it), then the engine ends.
+
+All clean-up (drive to zero, final state, ``SweepFinished``) lives in the one ``finally``
+of :meth:`SweepEngine.run`, which runs on every exit path. Waiting while paused uses a
+``threading.Condition``, never a sleep loop. Every record and tuning window holds an
+integer number of drive periods (to within one sample).
+
+Imports: numpy, ``drivers.protocols`` / ``drivers.errors`` (protocols only, never a concrete
+back-end), ``app.core.response`` (lazily), the plan/rig descriptions and this package.
+Never Qt, never storage.
+"""
+
+from __future__ import annotations
+
+import math
+import threading
+import time
+import uuid
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+from app.errors import FlamebodeError
+from drivers.errors import BackendTimeout, DriverError
+from drivers.protocols import Acquirer, EmergencyHalt, Identified, SineDrive
+
+from . import states as S
+from .controller import AmplitudeController, ControllerSettings, Decision, PointTuner
+from .events import (BlockAcquired, DriveChanged, EventBus, FaultRaised, PointSettled, SweepFinished,
+                     SweepStarted, TuningStep)
+from .faults import Finding, SignalChecks, fault_event, quality_flags
+
+
+def integer_period_samples(freq_hz: float, sample_rate_hz: float, min_duration_s: float,
+                           max_extra: float = 0.1) -> tuple[int, int]:
+    """(periods, samples) for a window of at least ``min_duration_s`` holding a whole number of
+    periods: among up to ``max_extra`` more periods, the count whose length in samples is
+    closest to an integer (common practice: whole periods avoid leakage)."""
+    p0 = max(1, math.ceil(min_duration_s * freq_hz - 1e-9))
+    periods = np.arange(p0, p0 + max(1, int(p0 * max_extra)) + 1)
+    exact = periods * sample_rate_hz / freq_hz
+    err = np.abs(exact - np.round(exact))
+    best = int(np.argmax(err <= err.min() + 1e-3))   # first one within a thousandth of the best
+    return int(periods[best]), int(round(exact[best]))
+
+
+class _Halt(Exception):
+    pass
+
+
+class _Abort(Exception):
+    pass
+
+
+class _Stopped(Exception):
+    pass
+
+
+class _Fatal(Exception):
+    def __init__(self, event: FaultRaised):
+        super().__init__(event.message)
+        self.event = event
+
+
+class _Skip(Exception):
+    """The point is skipped (flagged); the sweep goes on."""
+
+
+@dataclass
+class SweepStats:
+    """Time accounting in samples (simulated time on a paced back-end)."""
+
+    drive_on_samples: int = 0
+    recorded_samples: int = 0
+    sample_rate_hz: float = 1.0
+    tuning_steps: list[int] = field(default_factory=list)   # windows per point, in order
+    settled: int = 0
+
+    @property
+    def overhead(self) -> float:
+        """(drive-on time - recording time) / recording time."""
+        if self.recorded_samples == 0:
+            return math.nan
+        return (self.drive_on_samples - self.recorded_samples) / self.recorded_samples
+
+
+class _Commands:
+    """Operator commands, shared between the engine thread and callers."""
+
+    def __init__(self) -> None:
+        self.cond = threading.Condition(threading.RLock())
+        self.pause = self.stop = self.abort = self.halt = False
+
+
+class SweepEngine:
+    """Runs one plan once. ``run()`` blocks; ``start()`` runs it on a worker thread."""
+
+    def __init__(self, plan: Any, rig: Any, drive: SineDrive, bus: EventBus, *,
+                 acquirer: Acquirer | None = None, controller: AmplitudeController | None = None,
+                 prior: tuple[tuple[float, float], ...] = (), backend_name: str = "",
+                 run_label: str = "", wait_for_store: bool = False,
+                 measure: Callable[..., Any] | None = None, evaluate: Callable[..., Any] | None = None):
+        if not isinstance(drive, SineDrive):
+            raise TypeError("the back-end cannot produce a sine drive (SineDrive)")
+        self.plan, self.rig, self.bus = plan, rig, bus
+        self.drive = drive
+        self.acquirer = acquirer if acquirer is not None else drive
+        if not isinstance(self.acquirer, Acquirer):
+            raise TypeError("the back-end cannot acquire channels (Acquirer)")
+        if measure is None or evaluate is None:
+            from app.core import response
+            measure = measure or response.measure_velocity
+            evaluate = evaluate or response.evaluate_point
+        self._measure, self._evaluate = measure, evaluate
+        self.ceiling_v = plan.ceiling_v(rig)
+        t = plan.tuning
+        self.controller = controller or AmplitudeController(
+            ControllerSettings(ceiling_v=self.ceiling_v, tolerance=t.tolerance, max_steps=t.max_steps,
+                               first_drive_fraction=t.first_drive_fraction, max_step_factor=t.max_step_factor),
+            prior=tuple(t.prior) + tuple(prior))
+        self.backend_name, self.run_label = backend_name, run_label or time.strftime("run-%Y%m%d-%H%M%S")
+        self.wait_for_store = wait_for_store
+        self.points = plan.points()
+        self.checks = SignalChecks(rig, plan)
+        self.stats = SweepStats()
+        self.machine = S.StateMachine(bus.publish)
+        self.finish_reason: str | None = None
+        self.error: BaseException | None = None
+        self.tuning_history: dict[int, tuple[tuple[float, float, float], ...]] = {}
+        self._cmd = _Commands()
+        self._thread: threading.Thread | None = None
+        self._pending: np.ndarray | None = None
+        self._channels: tuple[str, ...] = ()
+        self._fs = 1.0
+        self._drive_on = False
+        self._freq_hz = 0.0
+        self._drive_v = 0.0
+        self._since_settled = 0
+        self._overflows = 0
+        self._point_index: int | None = None
+        self._point_flags: list[str] = []
+
+    # ================================================================== commands
+    @property
+    def state(self) -> str:
+        return self.machine.state
+
+    def pause(self) -> None:
+        with self._cmd.cond:
+            self._cmd.pause = True
+            self._cmd.cond.notify_all()
+
+    def resume(self) -> None:
+        with self._cmd.cond:
+            self._cmd.pause = False
+            self._cmd.cond.notify_all()
+
+    def stop(self) -> None:
+        with self._cmd.cond:
+            self._cmd.stop = True
+            self._cmd.cond.notify_all()
+
+    def abort(self) -> None:
+        with self._cmd.cond:
+            self._cmd.abort = True
+            self._cmd.cond.notify_all()
+
+    def halt(self) -> None:
+        """Outputs to zero at once, from the caller's thread; the engine then ends."""
+        with self._cmd.cond:   # held: the engine cannot set a new drive between flag and halt
+            self._cmd.halt = True
+            self._zero_now()
+            self._cmd.cond.notify_all()
+
+    def start(self) -> threading.Thread:
+        self._thread = threading.Thread(target=self._run_quietly, name="sweep-engine", daemon=True)
+        self._thread.start()
+        return self._thread
+
+    def join(self, timeout_s: float | None = None) -> bool:
+        """Wait for a started sweep; True when it has ended."""
+        if self._thread is None:
+            return True
+        self._thread.join(timeout_s)
+        return not self._thread.is_alive()
+
+    def _run_quietly(self) -> None:
+        try:
+            self.run()
+        except BaseException as exc:  # kept for the caller; never raised on the worker thread
+            self.error = exc
+
+    # ================================================================== the run
+    def run(self) -> str:
+        """Run the whole plan; returns the finish reason (complete, stopped, aborted, halted, fault)."""
+        reason = "fault"
+        try:
+            self._begin()
+            for point in self.points:
+                if self._cmd.stop:
+                    raise _Stopped()
+                self._measure_point(point)
+            reason = "stopped" if self._cmd.stop else "complete"
+        except _Stopped:
+            reason = "stopped"
+        except _Abort:
+            reason = "aborted"
+        except _Halt:
+            reason = "halted"
+        except _Fatal as exc:
+            self.bus.publish(exc.event)
+        except BackendTimeout as exc:
+            self.bus.publish(fault_event("backend-timeout", f"{exc} (point {self._label()})", self._point_index))
+        except DriverError as exc:
+            self.bus.publish(fault_event("driver-error", f"{exc} (point {self._label()})", self._point_index))
+        finally:
+            self._finish(reason)
+        return reason
+
+    def _begin(self) -> None:
+        identity = self.drive.identity() if isinstance(self.drive, Identified) else {}
+        self.bus.publish(SweepStarted(run_label=self.run_label, n_points=len(self.points),
+                                      backend=self.backend_name, identity=dict(identity),
+                                      plan=self.plan, rig=self.rig))
+        self._identity = dict(identity)
+        self._set_state(S.PREPARING)
+        self.acquirer.start()
+        self._channels = tuple(self.acquirer.channels)
+        self._fs = float(self.acquirer.sample_rate_hz)
+        self.stats.sample_rate_hz = self._fs
+        missing = [c for c in self.rig.input_channels if c not in self._channels]
+        if missing:
+            raise DriverError(f"the back-end does not deliver channel(s) {', '.join(missing)} named in the rig")
+        # drive off: the light level with a burning flame, and every sensor alive
+        base = self._take(int(round(max(0.2, self.plan.timing.tuning_window) * self._fs)), S.PREPARING)
+        self._react(self.checks.set_baseline(base, self._channels), skip_ok=False)
+
+    def _finish(self, reason: str) -> None:
+        """The one clean-up: drive to zero (ramped, or at once on halt), final state, SweepFinished."""
+        try:
+            if not self._cmd.halt and reason != "halted":
+                if self.machine.state != S.WINDING_DOWN:
+                    self._set_state(S.WINDING_DOWN)
+                try:
+                    self._ramp_to_zero(S.WINDING_DOWN)
+                except (DriverError, _Fatal, _Skip):
+                    self._zero_now()      # the ramp could not be carried out: zero at once
+        finally:
+            self._drive_on = False
+            if self._cmd.halt or reason == "halted":
+                self._zero_now()
+                reason = "halted"
+            final = {"complete": S.FINISHED, "stopped": S.FINISHED, "aborted": S.ABORTED,
+                     "halted": S.HALTED, "fault": S.FAULTED}[reason]
+            if self.machine.state not in S.TERMINAL:
+                if not self.machine.can_go(final):
+                    self.machine.set(S.WINDING_DOWN, self._point_index)
+                self.machine.set(final, self._point_index)
+            self.finish_reason = reason
+            self.bus.publish(SweepFinished(reason=reason, n_settled=self.stats.settled, n_points=len(self.points)))
+
+    # ================================================================== one point
+    def _measure_point(self, point: Any) -> None:
+        self._point_index = point.index
+        self._point_flags = []
+        self._set_state(S.PREPARING)
+        self._boundary(resume_to=S.PREPARING)
+        attempt_start = time.time()
+        try:
+            drive_v = self._tune_and_settle(point)
+        except _Skip:
+            self.stats.tuning_steps.append(len(self._tuner.history))
+            return
+        self.stats.tuning_steps.append(len(self._tuner.history))
+        self._set_state(S.RECORDING)
+        _, n_record = integer_period_samples(point.freq_hz, self._fs, self.plan.timing.record, max_extra=0.01)
+        record = self._take(n_record, S.RECORDING)
+        self.stats.recorded_samples += n_record
+        self._react(self.checks.check_window(record, self._channels, drive_v, f"record of {self._label()}"))
+        self._set_state(S.EVALUATING)
+        result = self._evaluate_record(point, record)
+        if result is None:
+            return
+        self._set_state(S.STORING)
+        self._store(point, drive_v, record, result, attempt_start)
+        self._boundary(resume_to=S.PREPARING)
+
+    def _tune_and_settle(self, point: Any) -> float:
+        """Tune, then settle; a pause in between re-tunes. Returns the drive voltage to record at."""
+        self._set_state(S.TUNING)
+        while True:
+            self._tuner = self.controller.start_point(point.freq_hz, point.peak_ratio)
+            decision = self._tune(point)
+            if decision is None:          # paused and resumed: tune again
+                continue
+            drive_v = self._act_on(decision, point)
+            self._set_state(S.SETTLING)
+            self._settle(point, drive_v)
+            if self._boundary(resume_to=S.TUNING):
+                continue
+            return drive_v
+
+    def _tune(self, point: Any) -> Decision | None:
+        tuner: PointTuner = self._tuner
+        drive_v = tuner.first_drive()
+        while True:
+            estimate, window_s = self._tuning_window(point, drive_v)
+            ratio = float(estimate.amplitude_ratio)
+            self.controller.learn(point.freq_hz, point.peak_ratio, drive_v, ratio)
+            decision = tuner.update(drive_v, ratio, window_s)
+            k = self.plan.amplitude.to_peak
+            self.bus.publish(TuningStep(point_index=point.index, step=len(tuner.history), drive_v=drive_v,
+                                        measured_ratio=ratio / k, target_ratio=point.amplitude_ratio,
+                                        tolerance=self.plan.tuning.tolerance, window_s=window_s,
+                                        within_tolerance=decision.kind == "converged"))
+            self.tuning_history[point.index] = tuple((s.drive_v, s.measured_ratio / k, s.window_s)
+                                                     for s in tuner.history)
+            if decision.kind != "measure":
+                return decision
+            if self._boundary(resume_to=S.TUNING):
+                return None
+            drive_v = decision.drive_v
+
+    def _tuning_window(self, point: Any, drive_v: float) -> tuple[Any, float]:
+        timing = self.plan.timing
+        self._set_drive(point.freq_hz, drive_v)
+        self._wait_drive_settled(S.TUNING)
+        self._discard(int(round(timing.tuning_discard * self._fs)), S.TUNING)
+        _, n = integer_period_samples(point.freq_hz, self._fs, timing.tuning_window)
+        window = self._take(n, S.TUNING)
+        where = f"tuning {self._label()}"
+        self._react(self.checks.check_window(window, self._channels, drive_v, where))
+        estimate = self._measure(window, self._channels, self._fs, point.freq_hz, self.rig)
+        self._react(self.checks.check_pressure(float(estimate.pressure_peak_pa), where)
+                    + self.checks.check_response(estimate, drive_v, self.ceiling_v, where))
+        return estimate, n / self._fs
+
+    def _act_on(self, decision: Decision, point: Any) -> float:
+        """The voltage to record at; flags and skips per the plan for unreachable/not converged."""
+        if decision.kind == "converged":
+            return decision.drive_v
+        name = "target-unreachable" if decision.kind == "unreachable" else "tuning-not-converged"
+        message = f"{self._label()}: {decision.reason}"
+        if name == "target-unreachable" and self.plan.tuning.when_unreachable == "skip":
+            self._publish_finding(Finding(name, message), action="point skipped and flagged; sweep continues")
+            self._set_drive(point.freq_hz, 0.0)
+            self._set_state(S.PREPARING)
+            raise _Skip()
+        action = ("recorded at the ceiling; point flagged" if name == "target-unreachable"
+                  else "recorded at the closest voltage found; point flagged")
+        self._publish_finding(Finding(name, message), action=action)
+        if not math.isclose(decision.drive_v, self._drive_v, rel_tol=1e-9):
+            self._set_drive(point.freq_hz, decision.drive_v)
+            self._wait_drive_settled(S.TUNING)
+        return decision.drive_v
+
+    def _settle(self, point: Any, drive_v: float) -> None:
+        """Wait the settle time since the drive reached its final value (the last window counts)."""
+        left = int(round(self.plan.timing.settle_s(point.freq_hz) * self._fs)) - self._since_settled
+        if left > 0:
+            self._discard(left, S.SETTLING)
+
+    def _evaluate_record(self, point: Any, record: np.ndarray) -> Any | None:
+        try:
+            result = self._evaluate(record, self._channels, self._fs, point.freq_hz, self.rig)
+        except (ArithmeticError, ValueError, np.linalg.LinAlgError, FlamebodeError) as exc:
+            self._publish_finding(Finding("evaluation-failed", f"{self._label()}: {exc}"))
+            return None
+        self._react(self.checks.check_result(result, f"record of {self._label()}"), skip_ok=False)
+        achieved = float(result.velocity.amplitude_ratio)
+        self.controller.learn(point.freq_hz, point.peak_ratio, self._drive_v, achieved)
+        if abs(achieved / point.peak_ratio - 1.0) > self.plan.tuning.tolerance:
+            self._point_flags.append("amplitude-off-target")
+        return result
+
+    def _store(self, point: Any, drive_v: float, record: np.ndarray, result: Any, started_wall_s: float) -> None:
+        flags = tuple(dict.fromkeys(self._point_flags + list(quality_flags(result.quality, self.plan.quality))))
+        attempt_id = f"{self.run_label}-p{point.index:04d}-{uuid.uuid4().hex[:8]}"
+        self.bus.publish(PointSettled(
+            attempt_id=attempt_id, point_index=point.index, freq_hz=point.freq_hz,
+            target_ratio=point.amplitude_ratio, drive_v=drive_v, record=record, channels=self._channels,
+            sample_rate_hz=self._fs, result=result, tuning=self.tuning_history.get(point.index, ()),
+            flags=flags, overflows=self._overflows, identity=self._identity, started_wall_s=started_wall_s))
+        self._overflows = 0
+        if self.wait_for_store:
+            acked, error = self.bus.wait_ack(attempt_id, self.plan.faults.store_timeout)
+            if not acked or error:
+                why = error or f"no acknowledgement within {self.plan.faults.store_timeout:g} s"
+                raise _Fatal(fault_event("store-failed", f"{self._label()} was not stored: {why}", point.index))
+        self.stats.settled += 1
+
+    # ================================================================== faults and boundaries
+    def _react(self, findings: list[Finding], skip_ok: bool = True) -> None:
+        """Publish each finding once per point; fatal ones end the sweep, pressure-too-high skips."""
+        skip = False
+        for f in findings:
+            if f.fatal:
+                raise _Fatal(fault_event(f.name, f.message, self._point_index))
+            if f.name == "pressure-too-high" and skip_ok:
+                skip = True
+                continue
+            if f.name not in self._point_flags:
+                self._publish_finding(f)
+        if skip:
+            first = next(f for f in findings if f.name == "pressure-too-high")
+            self._publish_finding(first)
+            self._set_drive(self._freq_hz, 0.0)
+            self._set_state(S.PREPARING)
+            raise _Skip()
+
+    def _publish_finding(self, finding: Finding, action: str | None = None) -> None:
+        if finding.name not in self._point_flags:
+            self._point_flags.append(finding.name)
+        self.bus.publish(fault_event(finding.name, finding.message, self._point_index, action))
+
+    def _raise_if_ending(self) -> None:
+        if self._cmd.halt:
+            raise _Halt()
+        if self._cmd.abort:
+            raise _Abort()
+
+    def _boundary(self, resume_to: str) -> bool:
+        """A step boundary: act on halt/abort; on pause, hold the drive at zero until resumed.
+
+        Returns True when the sweep was paused here (the caller re-tunes)."""
+        self._raise_if_ending()
+        if not self._cmd.pause:
+            return False
+        self._set_state(S.PAUSED)
+        self._ramp_to_zero(S.PAUSED)
+        with self._cmd.cond:
+            while self._cmd.pause and not (self._cmd.halt or self._cmd.abort or self._cmd.stop):
+                self._cmd.cond.wait()
+        self._raise_if_ending()
+        if self._cmd.stop:
+            raise _Stopped()
+        self._set_state(resume_to)
+        return True
+
+    # ================================================================== drive and samples
+    def _set_state(self, new: str) -> None:
+        if self.machine.state != new:
+            self.machine.set(new, self._point_index)
+
+    def _set_drive(self, freq_hz: float, amplitude_v: float) -> None:
+        with self._cmd.cond:
+            self._raise_if_ending()
+            self.drive.set_drive(freq_hz, amplitude_v)
+            self._freq_hz, self._drive_v = freq_hz, amplitude_v
+            if amplitude_v > 0:
+                self._drive_on = True
+        self.bus.publish(DriveChanged(freq_hz=freq_hz, amplitude_v=amplitude_v, ceiling_v=self.ceiling_v))
+
+    def _zero_now(self) -> None:
+        """Outputs to zero without a ramp (EmergencyHalt), or the quickest request the back-end has."""
+        try:
+            if isinstance(self.drive, EmergencyHalt):
+                self.drive.halt()
+            elif self._freq_hz > 0:
+                self.drive.set_drive(self._freq_hz, 0.0)
+        except DriverError:
+            pass
+        self._drive_v = 0.0
+
+    def _ramp_to_zero(self, stage: str) -> None:
+        status = self.drive.drive_status()
+        if status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0:
+            return
+        freq = status.freq_hz if status.freq_hz > 0 else self._freq_hz
+        self.drive.set_drive(freq, 0.0)
+        self._drive_v = 0.0
+        self.bus.publish(DriveChanged(freq_hz=freq, amplitude_v=0.0, ceiling_v=self.ceiling_v))
+        self._wait_drive_settled(stage, check_commands=False)
+        self._drive_on = False
+
+    def _wait_drive_settled(self, stage: str, check_commands: bool = True) -> None:
+        """Read (and publish) blocks until the back-end says the ramp is over."""
+        limit = int((2.0 * self.rig.drive.ramp_time + 2.0) * self._fs)
+        waited = 0
+        while True:
+            status = self.drive.drive_status()
+            if not status.ramping and math.isclose(status.amplitude_v, self._drive_v, abs_tol=1e-9):
+                break
+            if waited > limit:
+                raise _Fatal(fault_event("drive-not-answering", f"the drive did not reach {self._drive_v:.3g} V "
+                                         f"within {limit / self._fs:.1f} s ({self._label()})", self._point_index))
+            waited += self._read_block(stage, check_commands).shape[1]
+        self._since_settled = 0
+
+    def _read_block(self, stage: str, check_commands: bool = True) -> np.ndarray:
+        if check_commands:
+            self._raise_if_ending()
+        block = self.acquirer.read_block(self.plan.faults.backend_timeout)
+        data = np.array(block.data, dtype=np.float64, copy=True)
+        if data.ndim != 2 or data.shape[0] != len(self._channels):
+            raise DriverError(f"the back-end delivered a block of shape {data.shape}, expected "
+                              f"({len(self._channels)}, n)")
+        self._overflows += int(block.overflows)
+        if self._drive_on:
+            self.stats.drive_on_samples += data.shape[1]
+        self._since_settled += data.shape[1]
+        self.bus.publish(BlockAcquired(data=data, channels=self._channels, sample_rate_hz=self._fs,
+                                       start_index=int(block.start_index), stage=stage,
+                                       point_index=self._point_index))
+        findings = self.checks.check_block(data, self._channels, f"{stage}, {self._label()}")
+        if findings and check_commands:
+            self._react(findings)
+        return data
+
+    def _take(self, n: int, stage: str) -> np.ndarray:
+        """The next ``n`` samples of every channel, across block boundaries."""
+        parts, have = [], 0
+        if self._pending is not None:
+            parts.append(self._pending)
+            have = self._pending.shape[1]
+            self._pending = None
+        while have < n:
+            data = self._read_block(stage)
+            parts.append(data)
+            have += data.shape[1]
+        joined = np.concatenate(parts, axis=1) if len(parts) > 1 else parts[0]
+        if joined.shape[1] > n:
+            self._pending = joined[:, n:].copy()
+        return np.ascontiguousarray(joined[:, :n])
+
+    def _discard(self, n: int, stage: str) -> None:
+        if n > 0:
+            self._take(n, stage)
+
+    def _label(self) -> str:
+        if self._point_index is None:
+            return "before the first point"
+        p = self.points[self._point_index]
+        return f"point {p.index + 1}/{len(self.points)} at {p.freq_hz:g} Hz, a = {p.amplitude_ratio:g}"
