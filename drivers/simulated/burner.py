@@ -161,7 +161,7 @@ class SimulatedBurner:
     def set_drive(self, freq_hz: float, amplitude_v: float) -> None:
         if self._stopped:
             raise DriverError("simulated burner: stopped; call start() before driving again")
-        if not self._faults.answers(self._index):
+        if not self._faults.answers(self._index + 1):
             self._hang(2.0, "set_drive")
         self.guard.request(freq_hz, amplitude_v)
 

@@ -1,0 +1,71 @@
+"""The ONLY place the simulator's true answers are exposed (tests, "show truth" overlay).
+
+The measurement code never reads this module (it lives in drivers, which the core may
+not import). All complex values use e^{+iωt}; amplitude ratios a = |û_ref|/ū_ref and
+drive voltages are PEAK values.
+
+Imports: numpy, app.rig and this package only.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from .burner import SimulatedBurner
+from .model import BurnerModel, DriftState, build_flame
+from .scenario import Scenario, load_scenario
+
+Source = SimulatedBurner | Scenario | str | Path
+
+
+def _model(source: Source) -> tuple[BurnerModel, DriftState]:
+    """The true model and the drift state to evaluate it at (the burner's current one)."""
+    if isinstance(source, SimulatedBurner):
+        return source.model, source.model.drift_state(source.time_s)
+    scenario = source if isinstance(source, Scenario) else load_scenario(source)
+    model = BurnerModel(scenario.load_rig(), scenario, scenario.seed)
+    return model, model.nominal_state()
+
+
+def true_ftf(source: Source, freq_hz: float | np.ndarray, amplitude_ratio: float | np.ndarray = 0.0):
+    """True FTF/FDF (Q̂'/Q̄)/(û_ref/ū_ref) at peak amplitude ratio ``amplitude_ratio``."""
+    if isinstance(source, SimulatedBurner):
+        flame = source.model.flame
+    else:
+        scenario = source if isinstance(source, Scenario) else load_scenario(source)
+        flame = build_flame(scenario, scenario.load_rig())
+    out = flame.describing(freq_hz, amplitude_ratio)
+    return complex(out) if np.ndim(out) == 0 else out
+
+
+def true_velocity_per_volt(source: Source, freq_hz: float, drive_v: float = 0.05) -> complex:
+    """û_ref (m/s, peak) per peak volt at the amplifier input, just upstream of the flame."""
+    model, state = _model(source)
+    return model.response(float(freq_hz), float(drive_v), state).velocity_per_v
+
+
+def true_pressure_per_volt(source: Source, freq_hz: float, drive_v: float = 0.05) -> np.ndarray:
+    """Complex pressure (Pa per peak volt) at each of the rig's sensors, in rig order."""
+    model, state = _model(source)
+    return model.response(float(freq_hz), float(drive_v), state).pressure_per_v
+
+
+def true_amplitude_ratio(source: Source, freq_hz: float, drive_v: float) -> float:
+    """Peak |û_ref|/ū_ref reached at a steady drive of ``drive_v`` peak volts."""
+    model, state = _model(source)
+    r = model.response(float(freq_hz), float(drive_v), state)
+    return abs(r.velocity_per_v) * drive_v / r.velocity_reference_m_s
+
+
+def true_mean_velocity_reference(source: Source) -> float:
+    """True bulk velocity ū_ref at the reference plane (m/s), including drift."""
+    model, state = _model(source)
+    return model.flow_state(state, flame=True).velocity_reference_m_s
+
+
+def true_sensor_factors(source: Source) -> dict[str, complex]:
+    """True complex sensitivity (V/Pa, with its phase error) of each pressure channel."""
+    model, _ = _model(source)
+    return {s.channel: complex(c) for s, c in zip(model.rig.pressure_sensors, model.sensor_factor)}
