@@ -53,15 +53,20 @@ def _positive_finite(name: str, value: float) -> float:
     return value
 
 
-def _toward(start_v: float, end_v: float, travel_v: np.ndarray) -> np.ndarray:
+# Ramp arithmetic is snapped to whole steps within this fraction of a step, so that the
+# same ramp cut into blocks differently ends on the same sample despite rounding.
+SNAP = 1e-9
+
+
+def _toward(start_v: float, end_v: float, travel_v: np.ndarray, snap_v: float) -> np.ndarray:
     """Amplitudes reached after moving ``travel_v`` volts from ``start_v`` toward ``end_v``.
 
-    Exactly ``end_v`` once the distance is covered, and never outside [start, end] even by
-    one rounding step (the envelope is bounded by construction, not by a later clip).
+    Exactly ``end_v`` once the distance is covered (to within ``snap_v``), and never outside
+    [start, end] even by one rounding step (bounded by construction, not by a later clip).
     """
     distance_v = abs(end_v - start_v)
     sign = 1.0 if end_v >= start_v else -1.0
-    moved = np.where(travel_v >= distance_v, end_v, start_v + sign * travel_v)
+    moved = np.where(travel_v + snap_v >= distance_v, end_v, start_v + sign * travel_v)
     return np.clip(moved, min(start_v, end_v), max(start_v, end_v))
 
 
@@ -247,18 +252,20 @@ class CeilingGuard:
         """
         a0, f0, phi0 = self._amp_v, self._freq_hz, self._phase_rad
         travel_v = k * self._step_v
+        snap_v = SNAP * self._step_v
         if self._pending is None:
-            amp_v = _toward(a0, self._target_v, travel_v)
+            amp_v = _toward(a0, self._target_v, travel_v, snap_v)
             phase = phi0 + k * self._dphi(f0)
             if k.size:
                 self._amp_v = float(amp_v[-1])
                 self._phase_rad = float(phase[-1] % TWO_PI)
             return amp_v, phase
         pend = self._pending
-        m = math.ceil(a0 / (self._step_v * quantum)) * quantum  # first point at zero
+        # first point at exactly zero (at least one point on, so a zero is always emitted)
+        m = max(1, math.ceil(a0 / (self._step_v * quantum) - SNAP)) * quantum
         after = k > m
-        down_v = np.where(k >= m, 0.0, _toward(a0, 0.0, travel_v))
-        amp_v = np.where(after, _toward(0.0, pend.amplitude_v, (k - m) * self._step_v), down_v)
+        down_v = np.where(k >= m, 0.0, _toward(a0, 0.0, travel_v, snap_v))
+        amp_v = np.where(after, _toward(0.0, pend.amplitude_v, (k - m) * self._step_v, snap_v), down_v)
         phi_m = phi0 + m * self._dphi(f0)
         phase = np.where(after, phi_m + (k - m) * self._dphi(pend.freq_hz), phi0 + k * self._dphi(f0))
         if k.size:
