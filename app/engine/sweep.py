@@ -441,8 +441,8 @@ class SweepEngine:
         self._raise_if_ending()
         if not self._cmd.pause:
             return False
+        self._ramp_to_zero(S.PAUSED)      # first: "paused" means the drive is at zero
         self._set_state(S.PAUSED)
-        self._ramp_to_zero(S.PAUSED)
         with self._cmd.cond:
             while self._cmd.pause and not (self._cmd.halt or self._cmd.abort or self._cmd.stop):
                 self._cmd.cond.wait()
