@@ -22,29 +22,31 @@ The fit
     apart from their aliases: they are left out of the fit and reported as NaN.
 
 The noise estimate (not assumed white)
-    The same product also gives Hann-weighted least-squares amplitudes at f on
-    segments of length L overlapping by half (S = up to 32 segments of at least 4
-    periods each). Their scatter about the full-record fit, c_s = a_s − â e^{iωn_s},
-    has for locally white noise of two-sided density P the exact expectation
-    E|c_s|² = P (κ_seg − κ_full), where κ = E|δa|²/P of each estimator follows from
-    its least-squares matrices. Hence
+    The same product also gives Hann-weighted least-squares fits of [1, cos ωt, sin ωt]
+    on segments of length L overlapping by half (up to S = 32 segments of at least 4
+    periods each). From each, the part explained by the full-record model is removed
+    exactly (through the known cross-Gram matrix, so offset and harmonics never leak
+    in), leaving c_s, the segment's amplitude at f of the residual. For locally white
+    noise of two-sided density P (units² per sample) E|c_s|² = P (κ_seg − κ_cross,s)
+    exactly, where the κ follow from the least-squares matrices (κ_full = E|δâ|²/P of
+    the full-record estimate, ≈ 4/N). Hence
 
-        noise_psd     G = (2/fs) · mean|c_s|² / (κ_seg − κ_full)    [units²/Hz, one-sided]
-        var_amplitude   = (fs/2) · G · κ_full                       (≈ 2G/T)
+        noise_psd     G = (2/fs) · Σ_s|c_s|² / Σ_s(κ_seg − κ_cross,s)   [units²/Hz, one-sided]
+        var_amplitude   = (fs/2) · G · κ_full                            (≈ 2G/T)
 
-    which is unbiased for white noise and, for coloured noise, uses the spectrum
-    averaged over the Hann main lobe of a segment, f ± 2S/T — local to f, not the
-    mean over all frequencies. The Hann taper keeps strong noise far from f (low-
-    frequency rumble) from leaking into the estimate. Relative scatter of the
-    reported σ is about 7 % with 32 segments; short records (few periods) give fewer
-    segments, a wider band and a rougher estimate.
+    This is unbiased for white noise and, for coloured noise, uses the spectrum
+    averaged over the Hann main lobe of a segment, f ± 2S/T — local to f, not the mean
+    over all frequencies; the taper keeps strong noise far from f (low-frequency
+    rumble) out of the estimate. The reported σ scatters by about 6–7 % from record
+    to record with 32 segments; short records (few periods) get fewer segments, a wider
+    band and a rougher estimate (one segment below 8 periods).
 
 Derived figures
     sigma_abs = sqrt(var/2) and sigma_phase_rad = sqrt(var/2)/|â| (small-noise limit);
     snr_db = 10 log10( (|â|²/2) / (G/T) ): the sine's power over the noise power in
     the estimator's resolution bandwidth 1/T; distortion = sqrt(Σ|h_k|²)/|â|;
-    rms_residual = sqrt(|x − model|²/N), from |x|² − bᵀβ (loses digits only when the
-    residual is below ~1e-7 of the signal).
+    rms_residual = sqrt(|x − model|²/N), computed as |x|² − bᵀβ without forming the
+    residual, so it is exact only to about 1e-8 of the signal's rms.
 
 Pure numpy/scipy: must not import Qt, pyqtgraph, matplotlib, h5py, drivers, the
 engine or storage.
