@@ -241,9 +241,13 @@ def _as_channels(x: np.ndarray) -> np.ndarray:
     return np.ascontiguousarray(arr, dtype=np.float64)
 
 
-def _check_frequency(f: float, fs: float, n: int) -> None:
+def _check_rate(fs: float) -> None:
     if not np.isfinite(fs) or fs <= 0.0:
         raise ValueError(f"sample rate must be a positive number, got {fs!r} Hz")
+
+
+def _check_frequency(f: float, fs: float, n: int) -> None:
+    _check_rate(fs)
     if not np.isfinite(f) or f <= 0.0:
         raise ValueError(f"frequency must be a positive number, got {f!r} Hz")
     if f >= fs / 2.0:
@@ -288,8 +292,7 @@ def estimate_frequency(x: np.ndarray, sample_rate_hz: float, f_min_hz: float = 1
     sig = _one_channel(x)
     n = sig.size
     fs = float(sample_rate_hz)
-    if not np.isfinite(fs) or fs <= 0.0:
-        raise ValueError(f"sample rate must be a positive number, got {fs!r} Hz")
+    _check_rate(fs)
     f_max = fs / 2.0 if f_max_hz is None else float(f_max_hz)
     if not (0.0 <= f_min_hz < f_max <= fs / 2.0):
         raise ValueError(f"search band {f_min_hz:g}..{f_max:g} Hz must lie within 0..{fs / 2.0:g} Hz")
@@ -328,15 +331,10 @@ def _explained_power(sig: np.ndarray, cycles: float) -> float:
 
 def _one_channel(x: np.ndarray) -> np.ndarray:
     arr = np.asarray(x)
-    if np.iscomplexobj(arr):
-        raise ValueError("samples must be real, got a complex array")
-    arr = np.squeeze(arr) if arr.ndim == 2 and 1 in arr.shape else arr
-    if arr.ndim != 1:
-        raise ValueError(f"pass one channel (a 1-D array) to estimate its frequency, got shape {np.shape(x)}")
-    if arr.size < MIN_SAMPLES:
-        raise ValueError(f"record too short: {arr.size} samples, need at least {MIN_SAMPLES}")
-    arr = arr.astype(np.float64)
-    bad = np.flatnonzero(~np.isfinite(arr))
+    if arr.ndim == 2 and arr.shape[0] != 1:
+        raise ValueError(f"pass one channel (a 1-D array) to estimate its frequency, got shape {arr.shape}")
+    sig = _as_channels(arr)[0]
+    bad = np.flatnonzero(~np.isfinite(sig))
     if bad.size:
         raise ValueError(f"{bad.size} non-finite sample(s), first at index {bad[0]}")
-    return arr
+    return sig
