@@ -198,6 +198,18 @@ class BurnerNetwork:
         p0 = -u0 * num / den
         return np.stack([p0, u0 * np.ones_like(p0)], axis=-1)
 
+    def reference_velocity_scalar(self, flame_response: complex, volume_velocity: complex) -> complex:
+        """û at the reference plane for one frequency (plain-Python fast path of the fixed point)."""
+        if not hasattr(self, "_scalars"):
+            up, w = self._upstream, self._end_w
+            self._scalars = tuple(complex(v) for v in (up[..., 0, 0], up[..., 0, 1], up[..., 1, 0],
+                                                        up[..., 1, 1], w[..., 0], w[..., 1]))
+        u00, u01, u10, u11, w0, w1 = self._scalars
+        m = 1.0 + (self.flow.temperature_ratio - 1.0) * flame_response
+        u0 = volume_velocity / self.source_area_m2
+        p0 = -u0 * (w0 * u01 + w1 * m * u11) / (w0 * u00 + w1 * m * u10)
+        return p0 * u10 + u0 * u11
+
     def reference_velocity(self, state0: np.ndarray) -> np.ndarray:
         """û just upstream of the flame at the reference plane (m/s)."""
         return apply(self._upstream, state0)[..., 1]

@@ -221,14 +221,17 @@ class SimulatedBurner:
         disconnected = active_mask(self._faults.disconnect, i0, n)
         if disconnected is not None:
             z = np.where(disconnected, 0.0, z)  # the speaker no longer moves; the reference goes on
-        hot = self.model.forced(z, cps * fs, state, flame=True)
-        out_at = self._faults.flame_out_in_block(i0, n, hot.amplitude_ratio)
-        flame_mask = np.arange(i0, i0 + n) < out_at
-        if flame_mask.all():
-            forced = hot
+        if self._faults.flame_out_index <= i0:  # blown off earlier: stays out
+            flame_mask = np.zeros(n, dtype=bool)
+            forced = self.model.forced(z, cps * fs, state, flame=False)
         else:
-            cold = self.model.forced(z, cps * fs, state, flame=False)
-            forced = hot.where(flame_mask, cold)
+            hot = self.model.forced(z, cps * fs, state, flame=True)
+            out_at = self._faults.flame_out_in_block(i0, n, hot.amplitude_ratio)
+            flame_mask = np.arange(i0, i0 + n) < out_at
+            if flame_mask.all():
+                forced = hot
+            else:
+                forced = hot.where(flame_mask, self.model.forced(z, cps * fs, state, flame=False))
         return self._channels_volts(drive_v, forced, flame_mask, state), status
 
     def _channels_volts(self, drive_v, forced, flame_mask, state) -> np.ndarray:
@@ -237,14 +240,16 @@ class SimulatedBurner:
         ns = sc.noise
         noise_level = np.where(flame_mask, 1.0, ns.flame_out_fraction) * ns.pressure_rms
         p_noise = self._p_noise.block(n) * noise_level
-        sens = m.true_sensitivity_v_pa[:, None]
-        volts = np.real(m.sensor_factor[:, None] * forced.pressure_pa) + sens * p_noise
-        volts += ns.electronic_rms * self._rng.standard_normal(volts.shape)
-        light = self._light_volts(forced.heat_release_ratio, flame_mask, state)
-        rows = [volts, light[None, :]]
+        n_p = len(rig.pressure_sensors)
+        data = self._rng.standard_normal((len(self._channels), n))  # electronic noise of every channel
+        data *= ns.electronic_rms
+        factor = m.sensor_factor[:, None]
+        p = forced.pressure_pa
+        data[:n_p] += factor.real * p.real - factor.imag * p.imag  # Re{S e^{iφ} p̂}
+        data[:n_p] += m.true_sensitivity_v_pa[:, None] * p_noise
+        data[n_p] += self._light_volts(forced.heat_release_ratio, flame_mask, state)
         if rig.drive.reference_channel:
-            rows.append((drive_v + ns.electronic_rms * self._rng.standard_normal(n))[None, :])
-        data = np.concatenate(rows, axis=0)
+            data[n_p + 1] += drive_v
         if self._faults.dropout_channel is not None:
             dead = active_mask(self._faults.dropout, i0, n)
             if dead is not None:
@@ -262,5 +267,4 @@ class SimulatedBurner:
             signal_v = np.where(sat, signal_v * sc.faults.light_saturation.gain_factor, signal_v)
         light = self.model.dark_offset_v + signal_v
         light += shot_noise(light, sc.noise.light_shot_coefficient, self._rng)
-        light += sc.noise.electronic_rms * self._rng.standard_normal(n)
         return np.minimum(light, sc.light.rail)

@@ -59,6 +59,14 @@ class Forced:
                       np.where(mask, self.amplitude_ratio, other.amplitude_ratio))
 
 
+def _clip_df(saturation: float | None, heat_release_amplitude: float) -> float:
+    """Scalar clip describing function N(a_s / amplitude) (same formula as flame.py)."""
+    if saturation is None or heat_release_amplitude <= saturation:
+        return 1.0
+    g = saturation / heat_release_amplitude
+    return (2.0 / math.pi) * (math.asin(g) + g * math.sqrt(1.0 - g * g))
+
+
 def _medium(state, gamma: float | None = None) -> Medium:
     g = state.gamma if gamma is None else gamma
     c = state.speed_of_sound_m_s if gamma is None else math.sqrt(g * state.pressure_pa / state.density_kg_m3)
@@ -181,21 +189,22 @@ class BurnerModel:
         source = complex(self.speaker.volume_velocity_per_volt(freq_hz) * self.speaker.compression(drive_v))
         f_lin = complex(self.flame.linear(freq_hz)) if flame else 0j
 
-        def at(factor: float) -> tuple[np.ndarray, complex, float]:
-            s0 = net.source_state(f_lin * factor, source)
-            u = complex(net.reference_velocity(s0))
-            return s0, u, float(self.flame.saturation_factor(abs(f_lin), abs(u) * drive_v / u_bar))
+        gain, sat = abs(f_lin), self.flame.saturation
 
-        s0, u, n_new = at(1.0)
+        def n_of(factor: float) -> float:
+            """Describing-function factor at the amplitude reached with F = f_lin · factor."""
+            u = net.reference_velocity_scalar(f_lin * factor, source)
+            return _clip_df(sat, gain * abs(u) * drive_v / u_bar)
+
         factor = 1.0
-        if n_new < 1.0 - 1e-12:  # saturated: bisection on N - N(a(N)) = 0, N in (0, 1]
+        if sat is not None and n_of(1.0) < 1.0 - 1e-12:  # saturated: bisection on N = N(a(N))
             lo, hi = 0.0, 1.0
             for _ in range(48):
                 mid = 0.5 * (lo + hi)
-                _, _, n_mid = at(mid)
-                lo, hi = (lo, mid) if mid > n_mid else (mid, hi)
+                lo, hi = (lo, mid) if mid > n_of(mid) else (mid, hi)
             factor = 0.5 * (lo + hi)
-            s0, u, _ = at(factor)
+        s0 = net.source_state(f_lin * factor, source)
+        u = complex(net.reference_velocity(s0))
         return PointResponse(net.sensor_pressures(s0), u, f_lin * factor, f_lin, u_bar)
 
     def pressure_per_volume_velocity(self, freq_hz: float, state: DriftState, flame: bool) -> np.ndarray:
@@ -246,10 +255,12 @@ class BurnerModel:
         total = np.zeros((len(self.sensor_positions_m), z.size), dtype=complex)
         q1 = sp.volume_velocity_per_volt(freq_hz) * sp.compression(env) * z  # analytic volume velocity
         mag = np.abs(q1)
-        unit = np.divide(q1, mag, out=np.zeros_like(q1), where=mag > 0)
+        inv = np.divide(1.0, mag, out=np.zeros_like(mag), where=mag > 0)
+        qk = q1
         for k in (2, 3):
+            qk = qk * q1 * inv  # |q1| e^{ik arg q1}
             if k * freq_hz >= 0.5 * self.rig.acquisition.sample_rate or not np.any(sp.harmonic_ratio(k, env)):
                 continue
-            qk = sp.harmonic_ratio(k, env) * mag * unit**k
-            total += self.pressure_per_volume_velocity(k * freq_hz, state, flame)[:, None] * qk[None, :]
+            total += np.multiply.outer(self.pressure_per_volume_velocity(k * freq_hz, state, flame),
+                                       sp.harmonic_ratio(k, env) * qk)
         return total

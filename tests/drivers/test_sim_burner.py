@@ -238,3 +238,30 @@ def test_scenario_errors_name_file_and_key(tmp_path, rig):
     assert "bad.toml" in msg and "chamber.lenght" in msg and "flame.tau" in msg
     with pytest.raises(ConfigError, match="sensor_dropout.channel"):
         SimulatedBurner(rig, scenario_with(sensor_dropout={"enabled": True, "channel": "p9"}))
+
+
+def test_real_time_pacing_and_hang(rig):
+    # Paced: real time follows the wall clock; a hung back-end makes the caller wait its timeout.
+    import time
+    sim = SimulatedBurner(rig, scenario_with(stops_answering={"enabled": True, "time": "0.2 s"}), real_time=True)
+    sim.start()
+    t0 = time.monotonic()
+    sim.read_block()
+    sim.read_block()
+    assert time.monotonic() - t0 >= 0.19
+    t1 = time.monotonic()
+    with pytest.raises(BackendTimeout):
+        sim.read_block(timeout_s=0.2)
+    assert time.monotonic() - t1 >= 0.19
+
+
+def test_other_rig_gets_default_scenario(rig):
+    from app.rig import rig_from_dict
+    data = read_toml(CONFIGS / "demo-rig.toml")
+    data["name"] = "another rig"
+    other = rig_from_dict(data, "/tmp/another-rig.toml")
+    sim = SimulatedBurner(other, seed=1)
+    assert sim.scenario.source_path == ""
+    sim.start()
+    sim.set_drive(300.0, 0.1)
+    assert sim.read_block().data.shape == (len(other.input_channels), sim.rig.acquisition.block_duration * sim.sample_rate_hz)
