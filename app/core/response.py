@@ -1,1 +1,237 @@
-"""(being written) measurement core module: response."""
+"""The FTF point: from a record (volts, named channels) and a rig to gain and phase.
+
+Pipeline: harmonic fit of every channel at the forcing frequency → calibrated sensor
+pressures → multi-microphone plane-wave fit → velocity at the reference plane over the
+mean velocity there → light fluctuation over mean light (dark offset removed) →
+FTF = (Q̂'/Q̄) / (û'_ref/ū_ref), convention x(t) = Re{x̂ e^{+iωt}} (a delay gives a
+falling phase). Uncertainties are propagated from each channel's noise near f and are
+reported as 95 % half-widths; quality figures go with every point.
+
+Amplitude ratios here are PEAK values (|û'|/ū with û' the peak amplitude).
+
+Must not import Qt, pyqtgraph, matplotlib, h5py, drivers, the engine or storage.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Mapping, Sequence
+
+import numpy as np
+
+from ..errors import RecordError
+from ..rig import Rig
+from . import gas, quality
+from .harmonic import HarmonicFit, fit_harmonics
+from .multimic import Medium, WaveFit, decompose, velocity_at_reference
+
+Z95 = 1.959963984540054  # two-sided 95 % quantile of the normal distribution
+
+
+@dataclass(frozen=True)
+class VelocityEstimate:
+    """Acoustic velocity at the reference plane from the wall pressures."""
+
+    freq_hz: float
+    velocity_ref: complex          # û' at the reference plane, m/s (peak), positive in the flow direction
+    amplitude_ratio: float         # |û'_ref| / ū_ref (peak)
+    sigma_ratio: float             # standard uncertainty of amplitude_ratio
+    var_velocity_ref: float        # E|δû|², (m/s)²
+    mean_velocity_ref_m_s: float
+    drive_phasor: complex | None   # drive reference channel's phasor in volts, if recorded
+    cond: float
+    residual: float
+    pair_spread: float
+    any_pair_in_band: bool
+    pressure_peak_pa: float        # largest sensor pressure amplitude
+    wave_fit: WaveFit = field(repr=False)
+
+
+@dataclass(frozen=True)
+class FtfPoint:
+    """One evaluated FTF/FDF point with its uncertainty and quality figures."""
+
+    freq_hz: float
+    velocity: VelocityEstimate
+    light_ratio: complex           # Q̂'/Q̄ from the light channel
+    ftf: complex
+    gain: float
+    phase_rad: float
+    gain_ci95: float               # 95 % half-width of the gain
+    phase_ci95_rad: float          # 95 % half-width of the phase
+    quality: dict[str, float]
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def amplitude_ratio(self) -> float:
+        return self.velocity.amplitude_ratio
+
+
+@dataclass(frozen=True)
+class _Prepared:
+    """Channel selection and constants shared by every evaluation with one rig."""
+
+    pressure_rows: np.ndarray
+    light_row: int
+    drive_row: int | None
+    sensitivities: np.ndarray
+    positions_m: np.ndarray
+    weights: np.ndarray
+
+
+def _prepare(channels: Sequence[str], rig: Rig) -> _Prepared:
+    names = list(channels)
+    needed = [s.channel for s in rig.pressure_sensors] + [rig.light.channel]
+    missing = [c for c in needed if c not in names]
+    if missing:
+        raise RecordError(f"record lacks channel(s) {', '.join(missing)} named in the rig file "
+                          f"'{rig.source_path}' (record has: {', '.join(names) or 'none'})")
+    ref = rig.drive.reference_channel
+    return _Prepared(
+        pressure_rows=np.array([names.index(s.channel) for s in rig.pressure_sensors]),
+        light_row=names.index(rig.light.channel),
+        drive_row=names.index(ref) if ref and ref in names else None,
+        sensitivities=np.array([s.sensitivity for s in rig.pressure_sensors]),
+        positions_m=np.array([s.position for s in rig.pressure_sensors]),
+        weights=np.array([s.weight for s in rig.pressure_sensors]),
+    )
+
+
+def medium_from(mean: gas.MeanFlow) -> Medium:
+    st = mean.state
+    return Medium(speed_of_sound_m_s=st.speed_of_sound_m_s, density_kg_m3=st.density_kg_m3,
+                  mach=mean.mach_sensors, kinematic_viscosity_m2_s=st.kinematic_viscosity_m2_s,
+                  gamma=st.gamma, prandtl=st.prandtl)
+
+
+def _check_record(data: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float) -> np.ndarray:
+    arr = np.asarray(data, dtype=float)
+    if arr.ndim != 2 or arr.shape[0] != len(channels):
+        raise RecordError(f"record has shape {arr.shape}, expected ({len(channels)} channels, samples)")
+    if not np.isfinite(sample_rate_hz) or sample_rate_hz <= 0:
+        raise RecordError(f"sample rate {sample_rate_hz!r} Hz is not a positive number")
+    if not np.isfinite(freq_hz) or not 0 < freq_hz < sample_rate_hz / 2:
+        raise RecordError(f"forcing frequency {freq_hz!r} Hz is not between 0 and half the sample rate "
+                          f"({sample_rate_hz / 2:g} Hz)")
+    if arr.shape[1] < max(16, 2 * sample_rate_hz / freq_hz):
+        raise RecordError(f"record of {arr.shape[1]} samples is too short: it needs at least two periods "
+                          f"of {freq_hz:g} Hz ({int(np.ceil(2 * sample_rate_hz / freq_hz))} samples)")
+    bad = ~np.isfinite(arr).all(axis=1)
+    if bad.any():
+        names = [c for c, b in zip(channels, bad) if b]
+        raise RecordError(f"channel(s) {', '.join(names)} contain non-numeric or infinite samples")
+    return arr
+
+
+def _velocity_from_fit(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow,
+                       medium: Medium, harmonic: int = 1) -> tuple[complex, float, WaveFit]:
+    """û_ref and its variance at ``harmonic`` × the forcing frequency from one harmonic fit."""
+    freq = fit.freq_hz * harmonic
+    corr = np.array([s.correction(freq) for s in rig.pressure_sensors])
+    if harmonic == 1:
+        volts = fit.amplitude[prep.pressure_rows]
+    else:
+        volts = fit.harmonics[prep.pressure_rows, harmonic - 2]
+    p_hat = volts / prep.sensitivities * corr
+    noise_var = fit.var_amplitude[prep.pressure_rows] * np.abs(corr / prep.sensitivities) ** 2
+    wf = decompose(p_hat, prep.positions_m, freq, rig.duct.radius_m, medium,
+                   weights=prep.weights, noise_var=noise_var)
+    u_ref, var_u = velocity_at_reference(wf, rig.duct.reference_plane, rig.duct.area_ratio)
+    return complex(u_ref), float(var_u), wf
+
+
+def _mean_flow(rig: Rig, mean_flow: gas.MeanFlow | None) -> gas.MeanFlow:
+    return mean_flow if mean_flow is not None else gas.mean_flow(rig)
+
+
+def measure_velocity(data: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float,
+                     rig: Rig, mean_flow: gas.MeanFlow | None = None) -> VelocityEstimate:
+    """Velocity amplitude at the reference plane from one window (used while tuning)."""
+    arr = _check_record(data, channels, sample_rate_hz, freq_hz)
+    prep = _prepare(channels, rig)
+    mean = _mean_flow(rig, mean_flow)
+    fit = fit_harmonics(arr, sample_rate_hz, freq_hz, n_harmonics=1)
+    return _velocity_estimate(fit, prep, rig, mean)
+
+
+def _velocity_estimate(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow) -> VelocityEstimate:
+    medium = medium_from(mean)
+    u_ref, var_u, wf = _velocity_from_fit(fit, prep, rig, mean, medium)
+    u_mean = mean.velocity_reference_m_s
+    ratio = abs(u_ref) / u_mean
+    p_peak = float(np.max(np.abs(fit.amplitude[prep.pressure_rows] / prep.sensitivities)))
+    drive = complex(fit.amplitude[prep.drive_row]) if prep.drive_row is not None else None
+    return VelocityEstimate(
+        freq_hz=fit.freq_hz, velocity_ref=u_ref, amplitude_ratio=float(ratio),
+        sigma_ratio=float(np.sqrt(var_u / 2.0) / u_mean), var_velocity_ref=var_u,
+        mean_velocity_ref_m_s=u_mean, drive_phasor=drive, cond=float(wf.cond), residual=float(wf.residual),
+        pair_spread=float(wf.pair_spread_at(rig.duct.reference_plane)), any_pair_in_band=bool(wf.any_pair_in_band),
+        pressure_peak_pa=p_peak, wave_fit=wf)
+
+
+def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float,
+                   rig: Rig, mean_flow: gas.MeanFlow | None = None) -> FtfPoint:
+    """Evaluate one record into an FTF point with 95 % intervals and quality figures."""
+    arr = _check_record(data, channels, sample_rate_hz, freq_hz)
+    prep = _prepare(channels, rig)
+    mean = _mean_flow(rig, mean_flow)
+    fit = fit_harmonics(arr, sample_rate_hz, freq_hz, n_harmonics=3)
+    vel = _velocity_estimate(fit, prep, rig, mean)
+    medium = medium_from(mean)
+
+    light_mean = float(fit.offset[prep.light_row]) - rig.light.dark_offset
+    warnings: list[str] = []
+    if light_mean <= 3.0 * float(fit.rms_residual[prep.light_row]):
+        raise RecordError(f"mean light on '{rig.light.channel}' ({fit.offset[prep.light_row]:.4g} V) is not above "
+                          f"the dark offset ({rig.light.dark_offset:.4g} V): no flame, or a wrong dark offset")
+    light_ratio = complex(fit.amplitude[prep.light_row]) / light_mean
+    var_light_ratio = float(fit.var_amplitude[prep.light_row]) / light_mean**2
+
+    vel_ratio = vel.velocity_ref / vel.mean_velocity_ref_m_s
+    var_vel_ratio = vel.var_velocity_ref / vel.mean_velocity_ref_m_s**2
+    if vel_ratio == 0:
+        raise RecordError("velocity amplitude at the reference plane is zero: no forcing in this record")
+    ftf = light_ratio / vel_ratio
+    # First-order propagation of independent complex errors: δF/F = δL/L − δU/U.
+    rel_var = var_light_ratio / max(abs(light_ratio) ** 2, 1e-300) + var_vel_ratio / abs(vel_ratio) ** 2
+    sigma_rel = float(np.sqrt(rel_var / 2.0))
+    gain = abs(ftf)
+
+    u2, _, _ = _velocity_from_fit(fit, prep, rig, mean, medium, harmonic=2)
+    u3, _, _ = _velocity_from_fit(fit, prep, rig, mean, medium, harmonic=3)
+    figures = {
+        "snr_db_pressure_min": float(np.min(fit.snr_db[prep.pressure_rows])),
+        "snr_db_light": float(fit.snr_db[prep.light_row]),
+        "mmm_residual": vel.residual,
+        "pair_spread": vel.pair_spread,
+        "cond": vel.cond,
+        "distortion_velocity": float(np.hypot(abs(u2), abs(u3)) / abs(vel.velocity_ref)),
+        "distortion_light": float(fit.distortion[prep.light_row]),
+        "light_mean_v": float(fit.offset[prep.light_row]),
+        "light_max_v": float(np.max(arr[prep.light_row])),
+        "relative_uncertainty": sigma_rel,
+    }
+    figures.update(quality.drift_figures(arr, sample_rate_hz, freq_hz, lambda f: _velocity_estimate(f, prep, rig, mean),
+                                         prep.light_row))
+    if not vel.any_pair_in_band:
+        warnings.append(f"at {freq_hz:g} Hz no sensor pair lies in its usable band (0.1π < ks < 0.8π)")
+    return FtfPoint(freq_hz=float(freq_hz), velocity=vel, light_ratio=light_ratio, ftf=complex(ftf),
+                    gain=float(gain), phase_rad=float(np.angle(ftf)),
+                    gain_ci95=Z95 * sigma_rel * gain, phase_ci95_rad=Z95 * sigma_rel,
+                    quality=figures, warnings=tuple(warnings))
+
+
+def point_summary(point: FtfPoint) -> Mapping[str, object]:
+    """Plain numbers for tables and JSON (the ``--json`` form of ``flamebode reprocess``)."""
+    return {
+        "frequency_hz": point.freq_hz,
+        "velocity_ratio": point.velocity.amplitude_ratio,
+        "velocity_ratio_basis": "peak",
+        "gain": point.gain,
+        "gain_ci95": point.gain_ci95,
+        "phase_rad": point.phase_rad,
+        "phase_ci95_rad": point.phase_ci95_rad,
+        "mean_velocity_ref_m_s": point.velocity.mean_velocity_ref_m_s,
+        "quality": dict(point.quality),
+        "warnings": list(point.warnings),
+    }
