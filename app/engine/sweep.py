@@ -108,12 +108,17 @@ class _Commands:
 
 
 class SweepEngine:
-    """Runs one plan once. ``run()`` blocks; ``start()`` runs it on a worker thread."""
+    """Runs one plan once. ``run()`` blocks; ``start()`` runs it on a worker thread.
+
+    ``points`` restricts the run to those plan indices (re-acquiring or resuming a run);
+    ``wait_for_store`` makes the store step wait for a storing subscriber's acknowledgement;
+    ``prior`` is a (freq_hz, ratio per volt) table from an earlier run on the same rig.
+    """
 
     def __init__(self, plan: Any, rig: Any, drive: SineDrive, bus: EventBus, *,
                  acquirer: Acquirer | None = None, controller: AmplitudeController | None = None,
                  prior: tuple[tuple[float, float], ...] = (), backend_name: str = "",
-                 run_label: str = "", wait_for_store: bool = False,
+                 run_label: str = "", wait_for_store: bool = False, points: list[int] | None = None,
                  measure: Callable[..., Any] | None = None, evaluate: Callable[..., Any] | None = None):
         if not isinstance(drive, SineDrive):
             raise TypeError("the back-end cannot produce a sine drive (SineDrive)")
@@ -135,7 +140,9 @@ class SweepEngine:
             prior=tuple(t.prior) + tuple(prior))
         self.backend_name, self.run_label = backend_name, run_label or time.strftime("run-%Y%m%d-%H%M%S")
         self.wait_for_store = wait_for_store
-        self.points = plan.points()
+        self._all_points = plan.points()
+        wanted = None if points is None else set(points)
+        self.points = [p for p in self._all_points if wanted is None or p.index in wanted]
         self.checks = SignalChecks(rig, plan)
         self.stats = SweepStats()
         self.machine = S.StateMachine(bus.publish)
@@ -545,5 +552,5 @@ class SweepEngine:
     def _label(self) -> str:
         if self._point_index is None:
             return "before the first point"
-        p = self.points[self._point_index]
-        return f"point {p.index + 1}/{len(self.points)} at {p.freq_hz:g} Hz, a = {p.amplitude_ratio:g}"
+        p = self._all_points[self._point_index]
+        return f"point {p.index + 1}/{len(self._all_points)} at {p.freq_hz:g} Hz, a = {p.amplitude_ratio:g}"

@@ -1,0 +1,140 @@
+"""Headless progress display: a bus subscriber that shows a live status line and results.
+
+The subscriber (``ProgressDisplay.__call__``) runs on the engine's thread and only copies
+the few numbers it needs and enqueues them; a display thread renders them with rich: a
+live line (point i/N, state, frequency, amplitude error, drive voltage against the ceiling,
+ETA) on a terminal, and one result line per settled point and one line per fault
+everywhere (plain lines when the output is not a terminal).
+
+Imports: standard library, rich and ``app.engine.events`` only.
+"""
+
+from __future__ import annotations
+
+import math
+import queue
+import threading
+import time
+from typing import IO, Any
+
+from rich.console import Console
+from rich.live import Live
+from rich.text import Text
+
+from .events import (DriveChanged, Event, FaultRaised, PointSettled, StateChanged, SweepFinished,
+                     SweepStarted, TuningStep)
+
+_STOP = object()
+
+
+class ProgressDisplay:
+    """Subscribe with ``bus.subscribe(display)``; ``start()`` before the sweep, ``close()`` after."""
+
+    def __init__(self, file: IO[str] | None = None, estimated_s: float | None = None):
+        self.console = Console(file=file, highlight=False, soft_wrap=True)
+        self._queue: queue.Queue[Any] = queue.Queue()
+        self._thread: threading.Thread | None = None
+        self._estimated_s = estimated_s
+        self.status: dict[str, Any] = {"point": None, "n": 0, "state": "idle", "freq_hz": math.nan,
+                                       "error": math.nan, "drive_v": 0.0, "ceiling_v": math.nan,
+                                       "settled": 0}
+        self._t0 = time.monotonic()
+        self.lines: list[str] = []     # every result/fault line printed (for the caller's summary)
+
+    # -- engine thread: copy and enqueue only
+    def __call__(self, event: Event) -> None:
+        if isinstance(event, PointSettled):
+            r = event.result
+            self._queue.put(("settled", event.point_index, event.freq_hz, event.target_ratio,
+                             float(r.velocity.amplitude_ratio), float(r.gain), float(r.gain_ci95),
+                             float(r.phase_rad), float(r.phase_ci95_rad), event.drive_v, event.flags))
+        elif isinstance(event, (StateChanged, DriveChanged, TuningStep, FaultRaised, SweepStarted, SweepFinished)):
+            self._queue.put(event if not isinstance(event, SweepStarted)
+                            else ("started", event.n_points, event.run_label, event.backend))
+
+    def start(self) -> "ProgressDisplay":
+        self._t0 = time.monotonic()
+        self._thread = threading.Thread(target=self._loop, name="progress-display", daemon=True)
+        self._thread.start()
+        return self
+
+    def close(self) -> None:
+        if self._thread is not None:
+            self._queue.put(_STOP)
+            self._thread.join(10.0)
+            self._thread = None
+
+    # -- display thread
+    def _loop(self) -> None:
+        live = None
+        if self.console.is_terminal:
+            live = Live(self._status_text(), console=self.console, refresh_per_second=8, transient=True)
+            live.start()
+        try:
+            while True:
+                item = self._queue.get()
+                if item is _STOP:
+                    return
+                line = self._apply(item)
+                if line is not None:
+                    self.lines.append(line.plain)
+                    self.console.print(line)
+                if live is not None:
+                    live.update(self._status_text())
+        finally:
+            if live is not None:
+                live.stop()
+
+    def _apply(self, item: Any) -> Text | None:
+        s = self.status
+        if isinstance(item, tuple) and item[0] == "started":
+            s["n"] = item[1]
+            return Text(f"sweep {item[2]}: {item[1]} points on {item[3] or 'back-end'}", style="bold")
+        if isinstance(item, tuple) and item[0] == "settled":
+            return self._result_line(item)
+        if isinstance(item, StateChanged):
+            s["state"], s["point"] = item.new, item.point_index
+        elif isinstance(item, DriveChanged):
+            s["drive_v"], s["ceiling_v"], s["freq_hz"] = item.amplitude_v, item.ceiling_v, item.freq_hz
+        elif isinstance(item, TuningStep):
+            s["error"] = item.measured_ratio / item.target_ratio - 1.0
+        elif isinstance(item, FaultRaised):
+            style = "bold red" if item.fatal else "yellow"
+            where = f"point {item.point_index + 1}: " if item.point_index is not None else ""
+            return Text(f"  {'FAULT' if item.fatal else 'flag '} {item.name}: {where}{item.message}. "
+                        f"{item.action}. {item.advice}", style=style)
+        elif isinstance(item, SweepFinished):
+            return Text(f"sweep {item.reason}: {item.n_settled} of {item.n_points} points settled and kept",
+                        style="bold")
+        return None
+
+    def _result_line(self, item: tuple) -> Text:
+        _, index, freq, target, achieved, gain, gain_ci, phase, phase_ci, drive_v, flags = item
+        self.status["settled"] += 1
+        n = self.status["n"] or "?"
+        text = (f"  {index + 1:>3}/{n}  {freq:8.1f} Hz  a {achieved:.4f} ({(achieved / target - 1) * 100:+5.1f} %)  "
+                f"gain {gain:.3f} ± {gain_ci:.3f}  phase {math.degrees(phase):+7.1f}° ± {math.degrees(phase_ci):.1f}°  "
+                f"drive {drive_v:.3f} V")
+        if flags:
+            text += f"  [{', '.join(flags)}]"
+        return Text(text, style="yellow" if flags else "")
+
+    def _status_text(self) -> Text:
+        s = self.status
+        n = s["n"] or 0
+        point = "-" if s["point"] is None else f"{s['point'] + 1}/{n}"
+        done = s["settled"]
+        elapsed = time.monotonic() - self._t0
+        eta = "?"
+        if done and n:
+            eta = f"{elapsed / done * (n - done):.0f} s"
+        elif self._estimated_s:
+            eta = f"~{max(0.0, self._estimated_s - elapsed):.0f} s"
+        err = "" if math.isnan(s["error"]) else f"  amplitude error {s['error'] * 100:+.1f} %"
+        ceiling = s["ceiling_v"]
+        bar = ""
+        if ceiling and not math.isnan(ceiling):
+            filled = int(round(20 * min(1.0, s["drive_v"] / ceiling)))
+            bar = f" [{'#' * filled}{'.' * (20 - filled)}] of {ceiling:g} V"
+        freq = "" if math.isnan(s["freq_hz"]) else f"  {s['freq_hz']:.1f} Hz"
+        return Text(f"point {point}  {s['state']}{freq}{err}  drive {s['drive_v']:.3f} V{bar}  ETA {eta}")
