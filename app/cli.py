@@ -17,7 +17,6 @@ from .errors import FlamebodeError
 # command name -> (module under app.commands, one-line help)
 COMMANDS: dict[str, tuple[str, str]] = {
     "sweep": ("sweep", "run a sweep plan headless (or --dry-run to print its points and checks)"),
-    "sweep": ("sweep", "run a sweep plan headless (or --dry-run to print its points and checks)"),
     "reprocess": ("reprocess", "compute an FTF point from one recorded file (HDF5 or CSV)"),
     "review": ("review", "list a run's points, attempts, decisions and quality flags"),
     "accept": ("accept", "accept or reject attempts of a run (exports use the accepted attempt)"),
