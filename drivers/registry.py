@@ -117,4 +117,14 @@ def open_backend(name: str, rig: Any, **options: Any) -> Any:
     return backend
 
 
-__all__ = ["BackendInfo", "GROUP", "backend_names", "list_backends", "open_backend"]
+def close_backend(backend: Any) -> None:
+    """Stop a back-end opened by :func:`open_backend` and drop it from the safety registry."""
+    try:
+        stop = getattr(backend, "stop", None)
+        if callable(stop):
+            stop()
+    finally:
+        safety.unregister(backend)
+
+
+__all__ = ["BackendInfo", "GROUP", "backend_names", "close_backend", "list_backends", "open_backend"]

@@ -143,9 +143,15 @@ def test_open_simulated_backend(demo_rig_path):
     try:
         from drivers.simulated.burner import SimulatedBurner
         assert isinstance(sim, SimulatedBurner) and sim in safety.registered()
+        sim.start()
+        sim.set_drive(100.0, 0.5)
+        for _ in range(5):
+            sim.read_block()
+        assert sim.drive_status().amplitude_v == 0.5
     finally:
-        sim.stop()
-        safety.unregister(sim)
+        registry.close_backend(sim)
+    assert sim not in safety.registered()
+    assert sim.drive_status().amplitude_v == 0.0
 
 
 # --------------------------------------------------------------------------- CLI
