@@ -9,7 +9,7 @@ unreachable under the ceiling, or not converged within the allowed steps.
   drive-to-velocity gain |u'_ref/u_mean| per volt at earlier points, interpolated or
   extrapolated in frequency on log-magnitude) and, when given, from an earlier run's table
   of (frequency, ratio per volt), rescaled to this run. The very first point starts low, at
-  a fraction of the ceiling.
+  a fraction of the ceiling; a point beyond the learned range starts below its prediction.
 * Updates are secant steps on (log voltage, log amplitude); when the last two pairs are
   inconsistent (slope outside a sane band, e.g. noise or a nonlinear driver) the step falls
   back to the proportional one (slope 1, the linear-acoustics answer). An upward step is
@@ -45,6 +45,7 @@ class ControllerSettings:
     near_ceiling: float = 0.7            # a step at >= this fraction of the ceiling is "near" it
     unreachable_margin: float = 0.25     # predicted voltage above (1 + margin) * ceiling: unreachable
     extrapolation_limit: float = 3.0     # an extrapolated gain stays within this factor of the nearest
+    extrapolation_caution: float = 0.5   # first voltage of an extrapolated point, of the prediction
 
 
 @dataclass(frozen=True)
@@ -99,6 +100,16 @@ class TransferMemory:
 
     def _prior_at(self, freqs_hz: np.ndarray) -> np.ndarray:
         return np.interp(freqs_hz, self._prior_f, self._prior_lg)   # held at the ends
+
+    def extrapolation_distance(self, freq_hz: float) -> float:
+        """0 inside the learned frequency range (or with a prior); else the relative distance to it."""
+        if self._prior_f.size or not self._learned:
+            return 0.0
+        fs = np.array([f for f, _ in self._learned])
+        lo, hi = float(fs.min()), float(fs.max())
+        if lo <= freq_hz <= hi:
+            return 0.0
+        return abs(freq_hz - (lo if freq_hz < lo else hi)) / freq_hz
 
     def predict(self, freq_hz: float, target_ratio: float) -> float | None:
         """Predicted ratio per volt at ``freq_hz``, or None when nothing is known yet."""
@@ -224,9 +235,18 @@ class AmplitudeController:
         else:
             gain = self.memory.predict(freq_hz, target_ratio)
             if gain is not None and gain > 0:
-                start = target_ratio / gain
+                start = target_ratio / gain * self._caution(freq_hz)
         start = max(start, 1e-4 * s.ceiling_v)
         return PointTuner(s, freq_hz, target_ratio, start, proportional=self.proportional)
+
+    def _caution(self, freq_hz: float) -> float:
+        """Start below an extrapolated prediction: past the learned range a resonance may lie
+        (the gain can grow tenfold); the first window then measures safely and the next step
+        corrects. Interpolated or prior-based predictions are used as they are."""
+        d = self.memory.extrapolation_distance(freq_hz)
+        if d == 0.0:
+            return 1.0
+        return self.settings.extrapolation_caution if d <= 0.15 else self.settings.extrapolation_caution**2
 
     def learn(self, freq_hz: float, target_ratio: float, drive_v: float, measured_ratio: float) -> None:
         self.memory.learn(freq_hz, target_ratio, drive_v, measured_ratio)

@@ -117,9 +117,15 @@ def test_prior_table_rescaled_to_this_run() -> None:
     assert m.predict(200.0, 0.05) == pytest.approx(0.04)
 
 
-def test_prediction_makes_the_second_point_one_window() -> None:
-    # a flat chain: after the first point, the predicted voltage is right at once
+def test_interpolated_prediction_is_one_window_extrapolated_starts_low() -> None:
+    # a flat chain: between learned points the predicted voltage is right at once
     ctrl = AmplitudeController(ControllerSettings(ceiling_v=2.0, tolerance=0.05))
     _tune(ctrl, lambda v: 0.3 * v, 100.0, 0.05)
-    d, tuner, _ = _tune(ctrl, lambda v: 0.3 * v, 150.0, 0.05)
+    _tune(ctrl, lambda v: 0.3 * v, 300.0, 0.05)
+    d, tuner, _ = _tune(ctrl, lambda v: 0.3 * v, 200.0, 0.05)
     assert d.kind == "converged" and len(tuner.history) == 1
+    # beyond the learned range the first voltage is below the prediction (a resonance may lie there)
+    d, tuner, req = _tune(ctrl, lambda v: 0.3 * v, 320.0, 0.05)
+    assert req[0] == pytest.approx(0.5 * 0.05 / 0.3) and d.kind == "converged" and len(tuner.history) == 2
+    d, tuner, req = _tune(ctrl, lambda v: 0.3 * v, 1000.0, 0.05)
+    assert req[0] == pytest.approx(0.25 * 0.05 / 0.3)
