@@ -84,6 +84,7 @@ class HarmonicFit:
     snr_db: np.ndarray           # (|â|²/2) / (noise_psd / T), in dB
     distortion: np.ndarray       # sqrt(Σ|h_k|²)/|â| over fitted harmonics; NaN if none
     rms_residual: np.ndarray     # rms of x − model over the record
+    halves: tuple["HarmonicFit", "HarmonicFit"] | None = None  # same model fitted to each half (drift figure)
 
     @property
     def duration_s(self) -> float:
@@ -135,7 +136,23 @@ def fit_harmonics(x: np.ndarray, sample_rate_hz: float, freq_hz: float, n_harmon
 
     var_amp, psd = _noise(hann_proj, rot, beta, template, hann, gram_inv, fs)
     rss = np.maximum(sum_sq - np.einsum("cp,cp->c", b, beta), 0.0)
-    return _assemble(beta, orders, n_harm, var_amp, psd, rss, f, fs, n)
+    halves = None
+    split = seg.n_full // 2
+    if split >= 1:
+        # The first `split` non-overlapping segments against the rest: two more fits of the same
+        # model from the projections already made (no second pass over the samples).
+        b1 = np.einsum("scp,spq->cq", even[:split, :, :n_par], rot_full[:split])
+        g1 = np.einsum("spq,pr,srt->qt", rot_full[:split], template.T @ template, rot_full[:split])
+        n1 = split * seg.length
+        parts = []
+        for b_h, g_h, n_h in ((b1, g1, n1), (b - b1, gram - g1, n - n1)):
+            g_h_inv = np.linalg.inv(g_h)
+            beta_h = b_h @ g_h_inv
+            # Noise density as in the full record; the variance scales with the part's own Gram matrix.
+            var_h = var_amp / (gram_inv[1, 1] + gram_inv[2, 2]) * (g_h_inv[1, 1] + g_h_inv[2, 2])
+            parts.append(_assemble(beta_h, orders, n_harm, var_h, psd, np.full(beta.shape[0], np.nan), f, fs, n_h))
+        halves = (parts[0], parts[1])
+    return _assemble(beta, orders, n_harm, var_amp, psd, rss, f, fs, n, halves)
 
 
 def _noise(hann_proj: np.ndarray, rot: np.ndarray, beta: np.ndarray, template: np.ndarray,
@@ -163,7 +180,8 @@ def _noise(hann_proj: np.ndarray, rot: np.ndarray, beta: np.ndarray, template: n
 
 
 def _assemble(beta: np.ndarray, orders: np.ndarray, n_harm: int, var_amp: np.ndarray, psd: np.ndarray,
-              rss: np.ndarray, f: float, fs: float, n: int) -> HarmonicFit:
+              rss: np.ndarray, f: float, fs: float, n: int,
+              halves: tuple[HarmonicFit, HarmonicFit] | None = None) -> HarmonicFit:
     phasors = beta[:, 1::2] - 1j * beta[:, 2::2]                    # (n_ch, fitted orders)
     amp = phasors[:, 0]
     n_ch = beta.shape[0]
@@ -182,7 +200,7 @@ def _assemble(beta: np.ndarray, orders: np.ndarray, n_harm: int, var_amp: np.nda
     return HarmonicFit(freq_hz=f, sample_rate_hz=fs, n_samples=n, amplitude=amp, offset=beta[:, 0].copy(),
                        harmonics=harmonics, noise_psd=psd, var_amplitude=var_amp, sigma_abs=sigma_abs,
                        sigma_phase_rad=sigma_phase, snr_db=snr_db, distortion=distortion,
-                       rms_residual=np.sqrt(rss / n))
+                       rms_residual=np.sqrt(rss / n), halves=halves)
 
 
 def _template(n_idx: np.ndarray, cycles: float, orders: np.ndarray) -> np.ndarray:

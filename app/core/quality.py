@@ -17,15 +17,20 @@ import numpy as np
 from .harmonic import HarmonicFit, fit_harmonics
 
 
-def drift_figures(data: np.ndarray, sample_rate_hz: float, freq_hz: float,
-                  velocity_of: Callable[[HarmonicFit], object], light_row: int) -> dict[str, float]:
+def drift_figures(fit: HarmonicFit, data: np.ndarray, velocity_of: Callable[[HarmonicFit], object],
+                  light_row: int) -> dict[str, float]:
     """Relative change of velocity phasor and mean light between the record's two halves.
 
     A drifting operating point (mean flow, temperature) or a slowly dying flame shows up
-    here before it shows in the point's scatter (common practice: compare halves).
+    here before it shows in the point's scatter (common practice: compare halves). Uses
+    the half-record fits the harmonic estimator already made, or fits the halves anew.
     """
-    half = data.shape[1] // 2
-    fits = [fit_harmonics(part, sample_rate_hz, freq_hz, n_harmonics=1) for part in (data[:, :half], data[:, half:2 * half])]
+    if fit.halves is not None:
+        fits = list(fit.halves)
+    else:
+        half = data.shape[1] // 2
+        fits = [fit_harmonics(part, fit.sample_rate_hz, fit.freq_hz, n_harmonics=1)
+                for part in (data[:, :half], data[:, half:2 * half])]
     vels = [velocity_of(f) for f in fits]
     u = [v.velocity_ref for v in vels]  # type: ignore[attr-defined]
     mean_abs = 0.5 * (abs(u[0]) + abs(u[1]))

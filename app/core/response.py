@@ -116,11 +116,20 @@ def _check_record(data: np.ndarray, channels: Sequence[str], sample_rate_hz: flo
     if arr.shape[1] < max(16, 2 * sample_rate_hz / freq_hz):
         raise RecordError(f"record of {arr.shape[1]} samples is too short: it needs at least two periods "
                           f"of {freq_hz:g} Hz ({int(np.ceil(2 * sample_rate_hz / freq_hz))} samples)")
-    bad = ~np.isfinite(arr).all(axis=1)
-    if bad.any():
-        names = [c for c, b in zip(channels, bad) if b]
-        raise RecordError(f"channel(s) {', '.join(names)} contain non-numeric or infinite samples")
     return arr
+
+
+def _fit(arr: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float, n_harmonics: int) -> HarmonicFit:
+    """fit_harmonics with its input errors turned into RecordErrors that name the channel."""
+    try:
+        return fit_harmonics(arr, sample_rate_hz, freq_hz, n_harmonics=n_harmonics)
+    except ValueError as exc:
+        text = str(exc)
+        if text.startswith("channel "):
+            index, _, rest = text[len("channel "):].partition(":")
+            if index.isdigit() and int(index) < len(channels):
+                text = f"channel '{channels[int(index)]}':{rest}"
+        raise RecordError(text) from None
 
 
 def _velocity_from_fit(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow,
@@ -150,7 +159,7 @@ def measure_velocity(data: np.ndarray, channels: Sequence[str], sample_rate_hz: 
     arr = _check_record(data, channels, sample_rate_hz, freq_hz)
     prep = _prepare(channels, rig)
     mean = _mean_flow(rig, mean_flow)
-    fit = fit_harmonics(arr, sample_rate_hz, freq_hz, n_harmonics=1)
+    fit = _fit(arr, channels, sample_rate_hz, freq_hz, 1)
     return _velocity_estimate(fit, prep, rig, mean)
 
 
@@ -175,7 +184,7 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     arr = _check_record(data, channels, sample_rate_hz, freq_hz)
     prep = _prepare(channels, rig)
     mean = _mean_flow(rig, mean_flow)
-    fit = fit_harmonics(arr, sample_rate_hz, freq_hz, n_harmonics=3)
+    fit = _fit(arr, channels, sample_rate_hz, freq_hz, 3)
     vel = _velocity_estimate(fit, prep, rig, mean)
     medium = medium_from(mean)
 
@@ -211,8 +220,7 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
         "light_max_v": float(np.max(arr[prep.light_row])),
         "relative_uncertainty": sigma_rel,
     }
-    figures.update(quality.drift_figures(arr, sample_rate_hz, freq_hz, lambda f: _velocity_estimate(f, prep, rig, mean),
-                                         prep.light_row))
+    figures.update(quality.drift_figures(fit, arr, lambda f: _velocity_estimate(f, prep, rig, mean), prep.light_row))
     if not vel.any_pair_in_band:
         warnings.append(f"at {freq_hz:g} Hz no sensor pair lies in its usable band (0.1π < ks < 0.8π)")
     return FtfPoint(freq_hz=float(freq_hz), velocity=vel, light_ratio=light_ratio, ftf=complex(ftf),
