@@ -200,6 +200,7 @@ def test_settled_output_is_the_requested_sine():
     assert guard.settled()
     x = np.concatenate([guard.render(n) for n in (1, 7, 1000, 3, 4096)])
     # fit the phase of the first sample, then compare to A sin(phi0 + 2 pi f k / fs)
+    # (the imaginary part of A e^{+i(omega t + phi0)}: the project's e^{+i omega t} convention)
     phi0 = math.asin(x[0] / 0.8) if x[1] > x[0] else math.pi - math.asin(x[0] / 0.8)
     k = np.arange(x.size)
     np.testing.assert_allclose(x, 0.8 * np.sin(phi0 + 2 * math.pi * freq_hz * k / fs_hz), atol=1e-9)
