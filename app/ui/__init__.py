@@ -1,1 +1,1 @@
-"""Desktop front end: the only package that imports Qt or pyqtgraph."""
+"""The desktop front end (PySide6 + pyqtgraph): the only package that imports Qt."""

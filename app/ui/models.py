@@ -1,0 +1,302 @@
+"""Qt-free models behind the window: trace ring buffers, the point table, the tuning history,
+the response curve and the sweep status.
+
+Widgets are thin: they read these models (on a ~30 Hz timer or when notified) and draw.
+Models are fed on the GUI thread by the window from the bridge's queued signals, so they
+need no locks; every accessor returns copies, never an array a model still writes into.
+
+Imports: standard library, numpy and the engine's event types only. Never Qt or pyqtgraph.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+from app.engine.events import FaultRaised, PointSettled, StateChanged, TuningStep
+
+
+class Observable:
+    """Plain callbacks run after a change (on the thread that changed the model)."""
+
+    def __init__(self) -> None:
+        self._listeners: list[Callable[[], None]] = []
+        self.version = 0
+
+    def subscribe(self, listener: Callable[[], None]) -> None:
+        self._listeners.append(listener)
+
+    def notify(self) -> None:
+        self.version += 1
+        for listener in list(self._listeners):
+            listener()
+
+
+# ====================================================================== traces
+class TraceBuffer:
+    """The last ``seconds`` of every channel, in a ring; ``append`` never drops a sample.
+
+    ``total_samples`` counts every sample ever appended, so a test (or the benchmark) can
+    check that no block was lost between the engine and the plots.
+    """
+
+    def __init__(self, channels: tuple[str, ...], sample_rate_hz: float, seconds: float = 1.0) -> None:
+        self.channels = tuple(channels)
+        self.sample_rate_hz = float(sample_rate_hz)
+        self.capacity = max(2, int(round(seconds * sample_rate_hz)))
+        self._ring = np.zeros((len(self.channels), self.capacity), dtype=np.float64)
+        self._head = 0               # next column to write
+        self._filled = 0
+        self.total_samples = 0
+        self.version = 0
+
+    def append(self, data: np.ndarray) -> None:
+        """Append a (channels, n) block; a block longer than the ring keeps its newest part."""
+        n = data.shape[1]
+        if n >= self.capacity:
+            self._ring[:] = data[:, n - self.capacity:]
+            self._head = 0
+        else:
+            first = min(n, self.capacity - self._head)
+            self._ring[:, self._head:self._head + first] = data[:, :first]
+            self._ring[:, :n - first] = data[:, first:]
+            self._head = (self._head + n) % self.capacity
+        self._filled = min(self.capacity, self._filled + n)
+        self.total_samples += n
+        self.version += 1
+
+    def snapshot(self) -> tuple[np.ndarray, np.ndarray]:
+        """(time_s, data) of the buffered samples, oldest first; time ends at the newest sample (0 s)."""
+        if self._filled < self.capacity:
+            data = self._ring[:, :self._filled].copy()
+        else:
+            data = np.concatenate((self._ring[:, self._head:], self._ring[:, :self._head]), axis=1)
+        t = (np.arange(data.shape[1]) - data.shape[1]) / self.sample_rate_hz
+        return t, data
+
+
+# ====================================================================== tuning
+@dataclass
+class TuningHistory(Observable):
+    """Tuning steps of the current point: measured amplitude against the target band, drive
+    voltage against the ceiling."""
+
+    point_index: int | None = None
+    target_ratio: float = math.nan
+    tolerance: float = math.nan
+    ceiling_v: float = math.nan
+    steps: list[tuple[int, float, float, bool]] = field(default_factory=list)  # (step, drive_v, ratio, ok)
+
+    def __post_init__(self) -> None:
+        Observable.__init__(self)
+
+    def add(self, ev: TuningStep) -> None:
+        if ev.point_index != self.point_index:
+            self.point_index, self.steps = ev.point_index, []
+        self.target_ratio, self.tolerance = ev.target_ratio, ev.tolerance
+        self.steps.append((ev.step, ev.drive_v, ev.measured_ratio, ev.within_tolerance))
+        self.notify()
+
+    def load(self, point_index: int, tuning: tuple[tuple[float, float, float], ...], target_ratio: float,
+             tolerance: float) -> None:
+        """Show a stored point's tuning ((drive_v, measured_ratio, window_s) per step)."""
+        self.point_index, self.target_ratio, self.tolerance = point_index, target_ratio, tolerance
+        self.steps = [(i + 1, float(d), float(r), abs(r / target_ratio - 1) <= tolerance)
+                      for i, (d, r, _w) in enumerate(tuning)]
+        self.notify()
+
+    def arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(step, drive_v, measured_ratio) as float arrays."""
+        if not self.steps:
+            return np.zeros(0), np.zeros(0), np.zeros(0)
+        a = np.array([(s, d, r) for s, d, r, _ in self.steps], dtype=float)
+        return a[:, 0], a[:, 1], a[:, 2]
+
+
+# ====================================================================== points
+PLANNED, MEASURING, KEPT, FLAGGED, SKIPPED, FAILED, REJECTED = (
+    "planned", "measuring", "kept", "flagged", "skipped", "fault", "rejected")
+
+
+@dataclass
+class PointRow:
+    index: int
+    freq_hz: float
+    target_ratio: float
+    status: str = PLANNED
+    attempts: int = 0
+    flags: tuple[str, ...] = ()
+    gain: float = math.nan
+    gain_ci95: float = math.nan
+    phase_rad: float = math.nan
+    phase_ci95_rad: float = math.nan
+    achieved_ratio: float = math.nan
+    drive_v: float = math.nan
+    attempt_id: str = ""
+    decision: str = ""
+    faults: list[str] = field(default_factory=list)
+
+
+class PointTable(Observable):
+    """One row per planned point: status, attempts, flags and the newest result."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.rows: list[PointRow] = []
+        self._by_index: dict[int, PointRow] = {}
+        self.settled: dict[int, PointSettled] = {}   # live sweep: the newest attempt's event per point
+
+    def set_plan(self, points: list[Any]) -> None:
+        self.rows = [PointRow(p.index, float(p.freq_hz), float(p.amplitude_ratio)) for p in points]
+        self._by_index = {r.index: r for r in self.rows}
+        self.settled = {}
+        self.notify()
+
+    def row(self, index: int) -> PointRow | None:
+        return self._by_index.get(index)
+
+    def on_state(self, ev: StateChanged) -> None:
+        r = self.row(ev.point_index) if ev.point_index is not None else None
+        if r is not None and ev.new in ("tuning", "settling", "recording") and r.status in (PLANNED, KEPT, FLAGGED,
+                                                                                            SKIPPED, REJECTED):
+            r.status = MEASURING
+            self.notify()
+
+    def on_settled(self, ev: PointSettled) -> None:
+        r = self.row(ev.point_index)
+        if r is None:
+            return
+        res = ev.result
+        r.attempts += 1
+        r.flags = tuple(ev.flags)
+        r.status = FLAGGED if ev.flags else KEPT
+        r.gain, r.phase_rad = float(getattr(res, "gain", math.nan)), float(getattr(res, "phase_rad", math.nan))
+        r.gain_ci95 = float(getattr(res, "gain_ci95", math.nan))
+        r.phase_ci95_rad = float(getattr(res, "phase_ci95_rad", math.nan))
+        vel = getattr(res, "velocity", None)
+        r.achieved_ratio = float(getattr(vel, "amplitude_ratio", math.nan))
+        r.drive_v, r.attempt_id, r.decision = ev.drive_v, ev.attempt_id, "accepted"
+        self.settled[ev.point_index] = ev
+        self.notify()
+
+    def on_fault(self, ev: FaultRaised) -> None:
+        r = self.row(ev.point_index) if ev.point_index is not None else None
+        if r is None:
+            return
+        r.faults.append(ev.name)
+        if ev.fatal:
+            r.status = FAILED
+        elif ev.name == "pressure-too-high" or "skipped" in ev.action:
+            r.status = SKIPPED
+        if ev.name not in r.flags:
+            r.flags = r.flags + (ev.name,)
+        self.notify()
+
+    def on_finished(self) -> None:
+        """A point left 'measuring' when the sweep ended was interrupted."""
+        for r in self.rows:
+            if r.status == MEASURING:
+                r.status = PLANNED if r.attempts == 0 else (FLAGGED if r.flags else KEPT)
+        self.notify()
+
+    def load_run(self, run: Any) -> None:
+        """Rows from a stored run (app.storage.reader.Run): the accepted attempt's newest analysis."""
+        accepted = run.accepted()
+        self.rows, self.settled = [], {}
+        for p in run.points:
+            i = int(p["point_index"])
+            r = PointRow(i, float(p["freq_hz"]), float(p["target_ratio"]))
+            atts = run.attempts_of(i)
+            r.attempts = len(atts)
+            a = accepted.get(i)
+            if a is None:
+                r.status = REJECTED if any(x["decision"] == "rejected" for x in atts) else PLANNED
+                if atts:
+                    r.attempt_id = atts[-1]["attempt_id"]
+                    r.decision = atts[-1]["decision"]
+            else:
+                _fill_from_attempt(r, a)
+            self.rows.append(r)
+        self._by_index = {r.index: r for r in self.rows}
+        self.notify()
+
+    def curves(self) -> dict[float, dict[str, np.ndarray]]:
+        """Per target amplitude, sorted by frequency: freq_hz, gain, gain_ci95, phase_rad, phase_ci95_rad
+        (points with a result only; phase unwrapped along frequency)."""
+        out: dict[float, list[PointRow]] = {}
+        for r in self.rows:
+            if np.isfinite(r.gain) and r.status in (KEPT, FLAGGED, MEASURING):
+                out.setdefault(round(r.target_ratio, 9), []).append(r)
+        curves = {}
+        for amp, rows in sorted(out.items()):
+            rows.sort(key=lambda r: r.freq_hz)
+            a = np.array([(r.freq_hz, r.gain, r.gain_ci95, r.phase_rad, r.phase_ci95_rad, r.index)
+                          for r in rows], dtype=float)
+            curves[amp] = {"freq_hz": a[:, 0], "gain": a[:, 1], "gain_ci95": np.nan_to_num(a[:, 2]),
+                           "phase_rad": np.unwrap(a[:, 3]), "phase_ci95_rad": np.nan_to_num(a[:, 4]),
+                           "index": a[:, 5].astype(int)}
+        return curves
+
+    @property
+    def n_done(self) -> int:
+        return sum(r.status in (KEPT, FLAGGED, SKIPPED) for r in self.rows)
+
+
+def _fill_from_attempt(r: PointRow, a: dict[str, Any]) -> None:
+    an = a.get("analysis") or {}
+
+    def num(key: str) -> float:
+        v = an.get(key)
+        return math.nan if v is None else float(v)
+
+    flags = tuple(a.get("flags") or ()) + tuple(w for w in an.get("warnings", ()) if w not in (a.get("flags") or ()))
+    r.flags, r.status = flags, (FLAGGED if flags else KEPT)
+    r.gain, r.gain_ci95 = num("gain"), num("gain_ci95")
+    r.phase_rad, r.phase_ci95_rad = num("phase_rad"), num("phase_ci95_rad")
+    r.achieved_ratio = num("achieved_ratio")
+    r.drive_v = float(a.get("drive_v", math.nan))
+    r.attempt_id, r.decision = a["attempt_id"], a.get("decision", "")
+
+
+# ====================================================================== status
+class SweepStatus(Observable):
+    """State, current point and time left of the sweep in progress."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.state = "idle"
+        self.point_index: int | None = None
+        self.n_points = 0
+        self.n_done = 0
+        self.estimated_s = math.nan
+        self.started_s: float | None = None
+        self.finish_reason: str | None = None
+        self.drive_v = 0.0
+        self.freq_hz = 0.0
+        self.ceiling_v = math.nan
+
+    def begin(self, n_points: int, estimated_s: float) -> None:
+        self.n_points, self.estimated_s, self.n_done = n_points, estimated_s, 0
+        self.started_s, self.finish_reason, self.state = time.monotonic(), None, "idle"
+        self.notify()
+
+    def time_left_s(self, now_s: float | None = None) -> float:
+        """Remaining time: the plan's estimate at first, then extrapolated from the points done."""
+        if self.started_s is None or self.finish_reason is not None:
+            return math.nan
+        now = time.monotonic() if now_s is None else now_s
+        elapsed = now - self.started_s
+        if self.n_done > 0:
+            return max(0.0, elapsed / self.n_done * (self.n_points - self.n_done))
+        return max(0.0, self.estimated_s - elapsed)
+
+
+def format_duration(seconds: float) -> str:
+    if not np.isfinite(seconds):
+        return "–"
+    seconds = int(round(seconds))
+    return f"{seconds // 60} min {seconds % 60:02d} s" if seconds >= 60 else f"{seconds} s"

@@ -1,0 +1,128 @@
+"""One sweep driven from the window: back-end, run writer and engine, opened and closed on a
+worker thread (never on the GUI thread).
+
+It mirrors ``flamebode sweep``: the run writer subscribes to the bus before the engine
+starts, the back-end is registered with the safety net, and closing joins the engine,
+flushes the writer and stops the back-end. Re-acquiring points of a stored run uses the
+run's own snapshots and back-end, as ``flamebode reacquire`` does.
+
+Imports: the engine, storage, plan/rig, the driver registry and the standard library.
+Never Qt (the window hands these calls to its task runner).
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable
+
+from app.engine.events import EventBus
+from app.engine.sweep import SweepEngine
+from app.errors import FlamebodeError
+from app.plan import Plan, load_plan
+from app.rig import Rig, load_rig
+
+
+class SessionError(FlamebodeError):
+    """A sweep cannot be started from the window (back-end, run folder...)."""
+
+
+@dataclass
+class SweepRequest:
+    """What the window asks for: files, back-end, where to store, which points."""
+
+    rig_path: Path
+    plan_path: Path
+    run_dir: Path
+    backend: str = "simulated"
+    scenario_path: Path | None = None
+    fast: bool = False
+    seed: int | None = None
+    points: list[int] | None = None
+    existing_run: bool = False     # re-acquire: append attempts to run_dir with its own snapshots
+
+
+class SweepSession:
+    """Owns the device, writer and engine of one sweep."""
+
+    def __init__(self, request: SweepRequest, subscriber: Callable[[Any], None]) -> None:
+        self.request = request
+        self.bus = EventBus()
+        self.bus.subscribe(subscriber)
+        self.device: Any = None
+        self.writer: Any = None
+        self.engine: SweepEngine | None = None
+        self.rig: Rig | None = None
+        self.plan: Plan | None = None
+        self.closed = False
+
+    # -------------------------------------------------------------- worker thread
+    def open_and_start(self) -> "SweepSession":
+        """Load files, open the back-end and the run writer, start the engine's thread."""
+        from app.storage.writer import RunWriter, writer_for_existing_run
+        from drivers import safety
+
+        req = self.request
+        self.rig = load_rig(req.rig_path)
+        self.plan = load_plan(req.plan_path, self.rig)
+        if req.existing_run:
+            self.writer = writer_for_existing_run(req.run_dir, self.bus)
+        else:
+            self.writer = RunWriter(req.run_dir, req.rig_path, req.plan_path, self.bus,
+                                    scenario_path=req.scenario_path,
+                                    options={"backend": req.backend, "fast": "1" if req.fast else "0",
+                                             "started_from": "window"})
+        self.writer.start()
+        self.bus.subscribe(self.writer)
+        try:
+            self.device = self._open_device()
+            safety.register(self.device)
+            label = time.strftime("w%Y%m%d-%H%M%S")
+            self.engine = SweepEngine(self.plan, self.rig, self.device, self.bus, backend_name=req.backend,
+                                      run_label=label, wait_for_store=True, points=req.points)
+            self.engine.start()
+        except BaseException:
+            self.close()
+            raise
+        return self
+
+    def _open_device(self) -> Any:
+        req = self.request
+        if req.existing_run:
+            from app.commands.resume import open_backend as reopen
+            from app.storage.reader import open_run
+
+            device, _name = reopen(open_run(req.run_dir, verify=False).info, self.rig, Path(req.run_dir), req.fast)
+            return device
+        from app.commands.sweep import open_device
+
+        return open_device(req.backend, self.rig, req.scenario_path, req.fast, req.seed)
+
+    def close(self, timeout_s: float = 30.0) -> str | None:
+        """Join the engine (halting it if it does not end), flush the writer, stop the back-end."""
+        from drivers import safety
+
+        if self.closed:
+            return self.engine.finish_reason if self.engine else None
+        self.closed = True
+        try:
+            if self.engine is not None and not self.engine.join(timeout_s):
+                self.engine.halt()
+                self.engine.join(10.0)
+        finally:
+            if self.writer is not None:
+                self.writer.close()
+            if self.device is not None:
+                stop = getattr(self.device, "stop", None)
+                if callable(stop):
+                    stop()
+                safety.unregister(self.device)
+        if self.engine is not None and self.engine.error is not None:
+            raise SessionError(f"the sweep ended with an internal error: {self.engine.error!r}; "
+                               f"the drive was brought to zero")
+        return self.engine.finish_reason if self.engine else None
+
+    @property
+    def storage_fault(self) -> str | None:
+        return self.writer.fault if self.writer is not None else None

@@ -1,0 +1,117 @@
+"""The point list: one row per planned point with its status, attempts, result and flags.
+
+``PointTableQt`` adapts the Qt-free ``PointTable`` to a table view (it holds no data of
+its own); selecting rows emits ``selection_changed`` with the plan indices.
+
+Imports: PySide6, ``app.ui.models`` and ``.style`` only.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from PySide6.QtCore import QAbstractTableModel, QModelIndex, QPersistentModelIndex, Qt, Signal
+from PySide6.QtGui import QColor
+from PySide6.QtWidgets import QAbstractItemView, QHeaderView, QTableView, QVBoxLayout, QWidget
+
+from ..models import PointRow, PointTable
+from .style import STATUS_COLOURS
+
+COLUMNS = ("#", "Frequency (Hz)", "Target |u'|/ū", "Status", "Attempts", "Gain", "Phase (deg)", "Flags")
+Index = QModelIndex | QPersistentModelIndex
+
+
+def _num(v: float, fmt: str) -> str:
+    return format(v, fmt) if math.isfinite(v) else ""
+
+
+def cell_text(r: PointRow, col: int) -> str:
+    values = (str(r.index + 1), f"{r.freq_hz:g}", f"{r.target_ratio:g}", r.status, str(r.attempts),
+              _num(r.gain, ".3f") + (f" ± {r.gain_ci95:.3f}" if math.isfinite(r.gain_ci95) and math.isfinite(r.gain)
+                                     else ""),
+              _num(math.degrees(r.phase_rad), "+.1f") if math.isfinite(r.phase_rad) else "",
+              ", ".join(r.flags))
+    return values[col]
+
+
+class PointTableQt(QAbstractTableModel):
+    def __init__(self, table: PointTable, parent: Any = None) -> None:
+        super().__init__(parent)
+        self.table = table
+        table.subscribe(self._changed)
+
+    def _changed(self) -> None:
+        self.beginResetModel()
+        self.endResetModel()
+
+    def rowCount(self, parent: Index = QModelIndex()) -> int:  # noqa: B008 (Qt's signature)
+        return 0 if parent.isValid() else len(self.table.rows)
+
+    def columnCount(self, parent: Index = QModelIndex()) -> int:  # noqa: B008
+        return 0 if parent.isValid() else len(COLUMNS)
+
+    def data(self, index: Index, role: int = Qt.ItemDataRole.DisplayRole) -> Any:
+        if not index.isValid():
+            return None
+        r = self.table.rows[index.row()]
+        if role == Qt.ItemDataRole.DisplayRole:
+            return cell_text(r, index.column())
+        if role == Qt.ItemDataRole.BackgroundRole:
+            return QColor(STATUS_COLOURS.get(r.status, "#FFFFFF"))
+        if role == Qt.ItemDataRole.ToolTipRole and index.column() == 7 and r.flags:
+            return "\n".join(r.flags)
+        return None
+
+    def headerData(self, section: int, orientation: Qt.Orientation, role: int = Qt.ItemDataRole.DisplayRole) -> Any:
+        if role == Qt.ItemDataRole.DisplayRole and orientation == Qt.Orientation.Horizontal:
+            return COLUMNS[section]
+        return None
+
+
+class PointListView(QWidget):
+    selection_changed = Signal(list)
+
+    def __init__(self, table: PointTable, parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.qt_model = PointTableQt(table, self)
+        self.view = QTableView()
+        self.view.setModel(self.qt_model)
+        self.view.setSelectionBehavior(QAbstractItemView.SelectionBehavior.SelectRows)
+        self.view.setSelectionMode(QAbstractItemView.SelectionMode.ExtendedSelection)
+        self.view.verticalHeader().setVisible(False)
+        self.view.verticalHeader().setDefaultSectionSize(20)
+        header = self.view.horizontalHeader()
+        header.setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
+        header.setStretchLastSection(True)
+        lay = QVBoxLayout(self)
+        lay.setContentsMargins(0, 0, 0, 0)
+        lay.addWidget(self.view)
+        self._selected: list[int] = []
+        self.qt_model.modelAboutToBeReset.connect(self._remember)
+        self.qt_model.modelReset.connect(self._restore)
+        self.view.selectionModel().selectionChanged.connect(self._emit)
+
+    def selected(self) -> list[int]:
+        rows = sorted({i.row() for i in self.view.selectionModel().selectedRows()})
+        return [self.qt_model.table.rows[r].index for r in rows if r < len(self.qt_model.table.rows)]
+
+    def select_points(self, indices: list[int]) -> None:
+        self.view.clearSelection()
+        sel = self.view.selectionModel()
+        for row, r in enumerate(self.qt_model.table.rows):
+            if r.index in indices:
+                sel.select(self.qt_model.index(row, 0), sel.SelectionFlag.Select | sel.SelectionFlag.Rows)
+                self.view.scrollTo(self.qt_model.index(row, 0))
+
+    def _remember(self) -> None:
+        self._selected = self.selected()
+
+    def _restore(self) -> None:
+        if self._selected:
+            blocked = self.view.selectionModel().blockSignals(True)
+            self.select_points(self._selected)
+            self.view.selectionModel().blockSignals(blocked)
+
+    def _emit(self, *_: object) -> None:
+        self.selection_changed.emit(self.selected())

@@ -1,0 +1,117 @@
+"""Review of a stored run: point list, response curve, the selected point's record and
+figures, and the actions (accept, reject, re-acquire, reprocess with another rig file,
+export). The window carries the actions out on its worker thread.
+
+Imports: PySide6, ``app.ui.models`` and the sibling views only.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from PySide6.QtCore import Qt
+from PySide6.QtWidgets import (QGridLayout, QGroupBox, QLabel, QPushButton, QSplitter, QTextBrowser, QVBoxLayout,
+                               QWidget)
+
+from ..models import PointTable, TuningHistory
+from .points import PointListView
+from .response import ResponseView
+from .traces import TracesView
+
+
+class ReviewView(QWidget):
+    def __init__(self, parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.points = PointTable()
+        self.tuning = TuningHistory()
+        self.run: Any = None
+        self.title = QLabel("No run open. Use “Open run…” (Ctrl+O), or finish a sweep.")
+        self.title.setWordWrap(True)
+        self.title.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
+        self.point_list = PointListView(self.points)
+        self.response = ResponseView(self.points)
+        self.record = TracesView("Record")
+        self.details = QTextBrowser()
+        self.details.setMinimumHeight(120)
+        self.accept_button = QPushButton("Accept attempt")
+        self.reject_button = QPushButton("Reject attempt")
+        self.reacquire_button = QPushButton("Re-acquire selected")
+        self.reacquire_flagged_button = QPushButton("Re-acquire flagged")
+        self.reprocess_button = QPushButton("Reprocess with rig file…")
+        self.export_button = QPushButton("Export")
+        self.accept_button.setToolTip("Use this attempt for the point (A)")
+        self.reject_button.setToolTip("Do not use this attempt (R)")
+        self.reacquire_button.setToolTip("Measure the selected points again; old attempts are kept")
+        self.export_button.setToolTip("Write CSV, JSON summary and gain/phase plots into RUN/export (Ctrl+E)")
+        grid = QGridLayout()
+        for k, b in enumerate((self.accept_button, self.reject_button, self.reacquire_button,
+                               self.reacquire_flagged_button, self.reprocess_button, self.export_button)):
+            grid.addWidget(b, k // 3, k % 3)
+        actions = QGroupBox("Decisions and actions")
+        actions.setLayout(grid)
+        self.message = QLabel("")
+        self.message.setWordWrap(True)
+
+        left = QWidget()
+        ll = QVBoxLayout(left)
+        ll.setContentsMargins(0, 0, 0, 0)
+        ll.addWidget(self.title)
+        ll.addWidget(self.point_list, 3)
+        ll.addWidget(actions)
+        ll.addWidget(self.message)
+        ll.addWidget(self.details, 2)
+        right = QSplitter(Qt.Orientation.Vertical)
+        right.addWidget(self.response)
+        right.addWidget(self.record)
+        split = QSplitter()
+        split.addWidget(left)
+        split.addWidget(right)
+        split.setSizes([620, 780])
+        lay = QVBoxLayout(self)
+        lay.addWidget(split)
+        self.response.point_clicked.connect(lambda i: self.point_list.select_points([i]))
+        self.point_list.selection_changed.connect(self.response.select)
+        self.set_enabled(False)
+
+    def set_enabled(self, on: bool) -> None:
+        for b in (self.accept_button, self.reject_button, self.reacquire_button, self.reacquire_flagged_button,
+                  self.reprocess_button, self.export_button):
+            b.setEnabled(on)
+
+    def load(self, run: Any) -> None:
+        self.run = run
+        self.points.load_run(run)
+        kind = run.kind
+        n_ok = len(run.accepted())
+        problems = f" — {len(run.problems)} problem(s): " + "; ".join(run.problems[:3]) if run.problems else ""
+        self.title.setText(f"<b>{kind} run</b> {run.run_dir} — {n_ok} of {len(run.points)} points with an "
+                           f"accepted attempt, {len(run.flagged_points())} flagged{problems}")
+        self.set_enabled(run.index_readable)
+
+    def show_attempts(self, point_index: int) -> None:
+        """Figures and decisions of every attempt of one point."""
+        if self.run is None:
+            return
+        lines = [f"<b>Point {point_index + 1}</b>"]
+        for a in self.run.attempts_of(point_index):
+            an = a.get("analysis") or {}
+            q = an.get("quality") or {}
+            gain, phase = an.get("gain"), an.get("phase_rad")
+            res = (f"gain {gain:.4f} ± {an.get('gain_ci95') or math.nan:.4f}, phase "
+                   f"{math.degrees(phase):+.1f}° ± {math.degrees(an.get('phase_ci95_rad') or math.nan):.1f}°"
+                   if gain is not None and phase is not None else "no result")
+            figs = ", ".join(f"{k} {v:.3g}" for k, v in q.items() if v is not None)
+            lines.append(f"attempt {a['seq']} <tt>{a['attempt_id']}</tt> — <b>{a['decision'] or 'not used'}</b> "
+                         f"({a.get('decision_reason', '')}); drive {a['drive_v']:.3f} V; {res}; flags: "
+                         f"{', '.join(a['flags']) or 'none'}; record {a['record_status']}<br><small>{figs}</small>")
+        self.details.setHtml("<br>".join(lines))
+
+    def current_attempt(self) -> dict[str, Any] | None:
+        """The attempt shown for the first selected point: the accepted one, else the newest."""
+        sel = self.point_list.selected()
+        if self.run is None or not sel:
+            return None
+        atts = self.run.attempts_of(sel[0])
+        accepted = [a for a in atts if a["decision"] == "accepted"]
+        return (accepted or atts or [None])[-1]

@@ -1,0 +1,50 @@
+"""Colours, pens and pyqtgraph settings shared by the plots (our own palette).
+
+Plots follow the project's rules for live drawing: pen width 1, no antialiasing, no
+OpenGL, curves created once and updated with copies from a timer.
+
+Imports: pyqtgraph and PySide6 only.
+"""
+
+from __future__ import annotations
+
+import pyqtgraph as pg
+
+# colour-blind-safe hues (Okabe & Ito, "Color Universal Design", 2008), dark enough on white
+CHANNEL_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#56B4E9", "#E69F00", "#555555", "#000000")
+STATUS_COLOURS = {"planned": "#FFFFFF", "measuring": "#DCEBFA", "kept": "#E3F4E1", "flagged": "#FFF1C9",
+                  "skipped": "#EFE3F6", "fault": "#F9D6D2", "rejected": "#E4E4E4"}
+HALT_STYLE = ("QToolButton { background: #C62828; color: white; font-weight: bold; font-size: 15px; "
+              "padding: 8px 18px; border: 2px solid #7F0000; border-radius: 6px; } "
+              "QToolButton:pressed { background: #8E0000; }")
+SIM_STYLE = "QLabel { background: #FFE08A; color: #3A2A00; padding: 4px 10px; font-weight: bold; border-radius: 4px; }"
+FAULT_FATAL_STYLE = "QFrame#faultBanner { background: #FBE3E0; border: 2px solid #C62828; border-radius: 6px; }"
+FAULT_FLAG_STYLE = "QFrame#faultBanner { background: #FFF4D6; border: 2px solid #B7791F; border-radius: 6px; }"
+
+
+def configure_pyqtgraph() -> None:
+    pg.setConfigOptions(antialias=False, useOpenGL=False, background="w", foreground="#202020")
+
+
+def pen(colour: str, style: object = None) -> object:
+    from PySide6.QtCore import Qt
+
+    return pg.mkPen(colour, width=1, style=style or Qt.PenStyle.SolidLine)
+
+
+def new_plot(layout: pg.GraphicsLayoutWidget, title: str, y_label: str, x_label: str = "",
+             row: int | None = None, col: int | None = None, live: bool = False) -> pg.PlotItem:
+    """A plot with our labels and grid; ``live`` plots (long traces) get peak downsampling and
+    clipping to the view (pyqtgraph's own advice for fast updates). Point plots do not: their
+    per-point data (clicked point's index) must stay aligned with the points."""
+    p = layout.addPlot(row=row, col=col, title=title)
+    p.setLabel("left", y_label)
+    if x_label:
+        p.setLabel("bottom", x_label)
+    p.showGrid(x=True, y=True, alpha=0.25)
+    for side in ("left", "bottom"):
+        p.getAxis(side).enableAutoSIPrefix(False)   # the unit in the label stays true
+    if live:
+        p.setDownsampling(auto=True, mode="peak")
+        p.setClipToView(True)
+    return p

@@ -1,0 +1,579 @@
+"""The main window: set-up, the live sweep and review, with the run controls in one toolbar.
+
+The engine runs on its own thread; its events reach the window only through the one
+``EventBridge`` (queued signals) and feed the Qt-free models in ``app.ui.models``. A ~30 Hz
+timer redraws the live traces from copies. Everything that touches a driver or writes a
+file (opening the back-end, the run folder, saving an editor, accept/reject, reprocess,
+export, closing a sweep) goes to the ``TaskRunner``'s worker thread; the emergency halt
+gets a thread of its own so it never waits behind other work.
+
+Imports: PySide6, pyqtgraph (through the views), the engine's event types and states,
+storage readers and commands (in worker tasks), the driver registry and the simulator's
+truth (rehearsal overlay only).
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from pathlib import Path
+from typing import Any
+
+from PySide6.QtCore import Qt, QTimer
+from PySide6.QtGui import QAction, QCloseEvent, QKeySequence
+from PySide6.QtWidgets import (QFileDialog, QLabel, QMainWindow, QSizePolicy, QSplitter, QTabWidget, QToolBar,
+                               QToolButton, QVBoxLayout, QWidget)
+
+from app.engine import states as S
+from app.engine.events import (BlockAcquired, DriveChanged, FaultRaised, PointSettled, StateChanged, SweepFinished,
+                               SweepStarted, TuningStep)
+
+from .bridge import EventBridge, TaskResult, TaskRunner
+from .models import PointTable, SweepStatus, TraceBuffer, TuningHistory, format_duration
+from .session import SweepRequest, SweepSession
+from .views.fault_banner import FaultBanner
+from .views.points import PointListView
+from .views.response import ResponseView
+from .views.review import ReviewView
+from .views.setup import SetupView
+from .views.style import HALT_STYLE, SIM_STYLE, configure_pyqtgraph
+from .views.traces import TracesView, channel_roles
+from .views.tuning import TuningView
+
+FRAME_MS = 33                     # ~30 frames/s
+TRACE_SECONDS = 0.5
+STATE_WORDS = {S.IDLE: "ready", S.PREPARING: "preparing the point", S.TUNING: "tuning the amplitude",
+               S.SETTLING: "settling", S.RECORDING: "recording", S.EVALUATING: "computing gain and phase",
+               S.STORING: "storing", S.PAUSED: "paused (drive at zero)", S.WINDING_DOWN: "ramping the drive down",
+               S.FINISHED: "finished", S.ABORTED: "aborted (drive at zero)",
+               S.HALTED: "HALTED (outputs zeroed)", S.FAULTED: "stopped by a fault (drive at zero)"}
+
+
+class MainWindow(QMainWindow):
+    def __init__(self, rig_path: str | Path, plan_path: str | Path, runs_root: str | Path = "runs",
+                 backend: str = "simulated", fast: bool = False, scenario_path: str | Path | None = None,
+                 backends: list[Any] | None = None) -> None:
+        super().__init__()
+        configure_pyqtgraph()
+        self.setWindowTitle("flamebode — flame response sweeps")
+        self.bridge = EventBridge(self)
+        self.tasks = TaskRunner(self)
+        self.bridge.event.connect(self._on_event)
+        self.tasks.finished.connect(self._task_failed)
+        self.status = SweepStatus()
+        self.points = PointTable()
+        self.tuning_model = TuningHistory()
+        self.traces_buffer: TraceBuffer | None = None
+        self.session: SweepSession | None = None
+        self.last_run_dir: Path | None = None
+        self.roles: dict[str, str] = {}
+        self._build_setup(rig_path, plan_path, runs_root, backend, fast, scenario_path, backends)
+        self._build_sweep_tab()
+        self.review = ReviewView()
+        self._wire_review()
+        self.tabs = QTabWidget()
+        self.tabs.addTab(self.setup, "Set-up")
+        self.tabs.addTab(self.sweep_tab, "Sweep")
+        self.tabs.addTab(self.review, "Review")
+        self.setCentralWidget(self.tabs)
+        self._build_toolbar()
+        self.timer = QTimer(self)
+        self.timer.setInterval(FRAME_MS)
+        self.timer.timeout.connect(self._frame)
+        self.timer.start()
+        self._update_controls()
+        self.resize(1400, 900)
+
+    # ================================================================== building
+    def _build_setup(self, rig_path: str | Path, plan_path: str | Path, runs_root: str | Path, backend: str,
+                     fast: bool, scenario_path: str | Path | None, backends: list[Any] | None) -> None:
+        self.setup = SetupView()
+        if backends is None:
+            from drivers.registry import list_backends
+
+            backends = list_backends()
+        self.setup.set_backends(backends, backend)
+        self.setup.fast.setChecked(fast)
+        self.setup.scenario.setText(str(scenario_path) if scenario_path else "")
+        self.setup.runs_root.setText(str(runs_root))
+        self.setup.rig_editor.load(Path(rig_path))
+        self.setup.plan_editor.load(Path(plan_path))
+        self.setup.rig_editor.save_requested.connect(self._save_file)
+        self.setup.plan_editor.save_requested.connect(self._save_file)
+        self.setup.backend.currentIndexChanged.connect(lambda _i: self._update_controls())
+        for box in self.setup.checks.values():
+            box.toggled.connect(lambda _on: self._update_controls())
+
+    def _build_sweep_tab(self) -> None:
+        self.banner = FaultBanner()
+        self.traces = TracesView()
+        self.tuning = TuningView(self.tuning_model)
+        self.response = ResponseView(self.points)
+        self.point_list = PointListView(self.points)
+        self.state_label = QLabel()
+        self.state_label.setStyleSheet("font-size: 14px; padding: 2px 6px;")
+        left = QSplitter(Qt.Orientation.Vertical)
+        left.addWidget(self.traces)
+        left.addWidget(self.tuning)
+        left.setStretchFactor(0, 3)
+        left.setStretchFactor(1, 2)
+        right = QSplitter(Qt.Orientation.Vertical)
+        right.addWidget(self.response)
+        right.addWidget(self.point_list)
+        right.setStretchFactor(0, 3)
+        right.setStretchFactor(1, 2)
+        split = QSplitter()
+        split.addWidget(left)
+        split.addWidget(right)
+        self.sweep_tab = QWidget()
+        lay = QVBoxLayout(self.sweep_tab)
+        lay.addWidget(self.state_label)
+        lay.addWidget(self.banner)
+        lay.addWidget(split, 1)
+        self.response.point_clicked.connect(lambda i: self.point_list.select_points([i]))
+        self.point_list.selection_changed.connect(self.response.select)
+
+    def _action(self, text: str, keys: list[str], slot: Any, tip: str) -> QAction:
+        act = QAction(text, self)
+        act.setShortcuts([QKeySequence(k) for k in keys])
+        act.setShortcutContext(Qt.ShortcutContext.ApplicationShortcut)
+        act.setToolTip(f"{tip} ({', '.join(keys)})")
+        act.triggered.connect(slot)
+        self.addAction(act)
+        return act
+
+    def _build_toolbar(self) -> None:
+        bar = QToolBar("Run controls")
+        bar.setMovable(False)
+        bar.setToolButtonStyle(Qt.ToolButtonStyle.ToolButtonTextOnly)
+        self.addToolBar(Qt.ToolBarArea.TopToolBarArea, bar)
+        self.sim_label = QLabel()
+        bar.addWidget(self.sim_label)
+        self.start_action = self._action("▶ Start", ["F5"], self.start_sweep, "start the sweep")
+        self.pause_action = self._action("Pause", ["F6"], self.toggle_pause,
+                                         "pause at the next step (drive to zero) / resume")
+        self.stop_action = self._action("Stop after point", ["F7"], self.stop_after_point,
+                                        "finish the point in progress, then end")
+        self.abort_action = self._action("Abort", ["F8"], self.abort_sweep,
+                                         "ramp the drive down now; stored points are kept")
+        self.open_action = self._action("Open run…", ["Ctrl+O"], self.choose_run, "open a stored run for review")
+        self.export_action = self._action("Export", ["Ctrl+E"], self.export_run, "export the reviewed run")
+        for act in (self.start_action, self.pause_action, self.stop_action, self.abort_action):
+            bar.addAction(act)
+        bar.addSeparator()
+        bar.addAction(self.open_action)
+        spacer = QWidget()
+        spacer.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Preferred)
+        bar.addWidget(spacer)
+        self.halt_action = self._action("■ EMERGENCY HALT", ["Esc", "F12"], self.emergency_halt,
+                                        "outputs to zero at once")
+        self.halt_button = QToolButton()
+        self.halt_button.setDefaultAction(self.halt_action)
+        self.halt_button.setStyleSheet(HALT_STYLE)
+        self.halt_button.setMinimumHeight(44)
+        bar.addWidget(self.halt_button)
+
+    def _wire_review(self) -> None:
+        r = self.review
+        r.point_list.selection_changed.connect(self._review_selected)
+        r.accept_button.clicked.connect(lambda: self.decide(True))
+        r.reject_button.clicked.connect(lambda: self.decide(False))
+        r.reacquire_button.clicked.connect(lambda: self.reacquire(r.point_list.selected()))
+        r.reacquire_flagged_button.clicked.connect(
+            lambda: self.reacquire(r.run.flagged_points() if r.run is not None else []))
+        r.reprocess_button.clicked.connect(self.choose_reprocess_rig)
+        r.export_button.clicked.connect(self.export_run)
+
+    # ================================================================== run controls
+    @property
+    def engine(self) -> Any:
+        return self.session.engine if self.session is not None else None
+
+    def running(self) -> bool:
+        return self.session is not None and not self.session.closed
+
+    def start_sweep(self) -> bool:
+        """Start a new sweep with the saved rig and plan files; False (with a message) when refused."""
+        if self.running():
+            return False
+        refusal = self._start_refusal()
+        if refusal:
+            self._say(refusal)
+            return False
+        self.reset_live_view()
+        req = self._request(points=None, run_dir=self._new_run_dir(), existing=False)
+        self._launch(req)
+        return True
+
+    def reacquire(self, indices: list[int]) -> bool:
+        """Measure points of the reviewed run again (new attempts; old ones kept)."""
+        run = self.review.run
+        if self.running() or run is None or not indices:
+            self.review.message.setText("Select the points to re-acquire first." if not indices else
+                                        "A sweep is running.")
+            return False
+        if not self._simulated_run(run) and not self.setup.checklist_done():
+            self._say("Tick every item of the safety checklist (Set-up) before forcing on real hardware.")
+            return False
+        self.reset_live_view()
+        self.points.load_run(run)
+        req = self._request(points=sorted(indices), run_dir=Path(run.run_dir), existing=True)
+        req.rig_path, req.plan_path = Path(run.rig_path), Path(run.plan_path)
+        req.backend = run.info.get("backend", "simulated") or "simulated"
+        self._launch(req)
+        self.review.message.setText(f"Re-acquiring point(s) {', '.join(str(i + 1) for i in sorted(indices))}…")
+        return True
+
+    def _launch(self, req: SweepRequest) -> None:
+        self.session = SweepSession(req, self.bridge)
+        self.status.state, self.status.finish_reason = "starting", None
+        self.tabs.setCurrentWidget(self.sweep_tab)
+        self.tasks.submit("start", self.session.open_and_start, on_done=self._started)
+        self._update_controls()
+
+    def _started(self, result: TaskResult) -> None:
+        if result.error is not None:
+            self._say(f"Could not start: {result.error}")
+            self.status.state = "idle"
+            if self.session is not None:
+                self.session.closed = True
+            self._update_controls()
+
+    def toggle_pause(self) -> None:
+        eng = self.engine
+        if eng is None or not self.running():
+            return
+        if self.status.state == S.PAUSED or self.status.state == "pause requested":
+            eng.resume()
+            if self.status.state == "pause requested":
+                self.status.state = "resuming"
+        else:
+            eng.pause()
+            if self.status.state != S.PAUSED:
+                self.status.state = "pause requested"
+        self._update_controls()
+
+    def stop_after_point(self) -> None:
+        if self.engine is not None and self.running():
+            self.engine.stop()
+            self._say("Stopping after the point in progress.")
+
+    def abort_sweep(self) -> None:
+        if self.engine is not None and self.running():
+            self.engine.abort()
+            self._say("Aborting: ramping the drive to zero; stored points are kept.")
+
+    def emergency_halt(self) -> None:
+        """Outputs to zero at once, on a thread of its own (never the GUI thread, never queued)."""
+        eng = self.engine
+        if eng is not None and self.running():
+            self.tasks.now("halt", eng.halt)
+            self._say("EMERGENCY HALT: outputs zeroed.")
+
+    def _start_refusal(self) -> str:
+        s = self.setup
+        for ed in (s.rig_editor, s.plan_editor):
+            if ed.dirty:
+                return f"Save the {ed.kind} file first (it has unsaved changes)."
+            if not ed.check():
+                return f"The {ed.kind} file has problems; see the Set-up tab."
+        if not s.is_simulated() and not s.checklist_done():
+            self.tabs.setCurrentWidget(s)
+            return "Tick every item of the safety checklist before forcing on real hardware."
+        return ""
+
+    def _request(self, points: list[int] | None, run_dir: Path, existing: bool) -> SweepRequest:
+        s = self.setup
+        scenario = Path(s.scenario.text()) if s.scenario.text().strip() else None
+        if scenario is None and s.is_simulated():
+            from app.plan import load_plan
+
+            scenario = load_plan(s.plan_editor.path).resolve("scenario")   # a read, never a write
+        return SweepRequest(rig_path=Path(s.rig_editor.path), plan_path=Path(s.plan_editor.path), run_dir=run_dir,
+                            backend=s.backend_name(), scenario_path=scenario,
+                            fast=s.fast.isChecked() and s.is_simulated(), points=points, existing_run=existing)
+
+    def _new_run_dir(self) -> Path:
+        root = Path(self.setup.runs_root.text() or "runs")
+        base = root / time.strftime("%Y%m%d-%H%M%S")
+        out, k = base, 1
+        while out.exists():
+            out, k = base.with_name(f"{base.name}-{k}"), k + 1
+        return out
+
+    def reset_live_view(self) -> None:
+        self.banner.reset()
+        self.traces_buffer = None
+        self.tuning_model.steps, self.tuning_model.point_index = [], None
+        self.tuning_model.notify()
+        self.response.reset()
+
+    # ================================================================== events (GUI thread)
+    def _on_event(self, ev: Any) -> None:
+        if isinstance(ev, BlockAcquired):
+            self._on_block(ev)
+        elif isinstance(ev, StateChanged):
+            self.status.state, self.status.point_index = ev.new, ev.point_index
+            self.points.on_state(ev)
+            self._update_controls()
+        elif isinstance(ev, DriveChanged):
+            self.status.drive_v, self.status.freq_hz = ev.amplitude_v, ev.freq_hz
+        elif isinstance(ev, TuningStep):
+            self.tuning_model.add(ev)
+        elif isinstance(ev, PointSettled):
+            self.points.on_settled(ev)
+            self.status.n_done = self.points.n_done
+        elif isinstance(ev, FaultRaised):
+            self.banner.show_fault(ev)
+            self.points.on_fault(ev)
+        elif isinstance(ev, SweepStarted):
+            self._on_started(ev)
+        elif isinstance(ev, SweepFinished):
+            self._on_finished(ev)
+
+    def _on_started(self, ev: SweepStarted) -> None:
+        req = self.session.request if self.session else None
+        if req is not None and not req.existing_run:
+            self.points.set_plan(ev.plan.points())
+        n = len(ev.plan.points()) if req is None or req.points is None else len(req.points)
+        self.status.begin(n, ev.plan.estimated_duration_s(ramp_time_s=ev.rig.drive.ramp_time) * n /
+                          max(1, len(ev.plan.points())))
+        self.status.ceiling_v = ev.plan.ceiling_v(ev.rig)
+        self.tuning.set_ceiling(self.status.ceiling_v)
+        self.roles = channel_roles(ev.rig)
+        freqs = [p.freq_hz for p in ev.plan.points()]
+        self.response.set_truth(self._truth_for(ev, req), (0.9 * min(freqs), 1.05 * max(freqs)))
+
+    def _truth_for(self, ev: SweepStarted, req: SweepRequest | None) -> Any:
+        if req is None or not (ev.backend or "").startswith("simulated"):
+            return None
+        scenario = req.scenario_path
+        if req.existing_run:
+            src = self.review.run.info.get("scenario_source") if self.review.run is not None else None
+            scenario = Path(src) if src else None
+        if scenario is None or not Path(scenario).exists():
+            return None
+        from drivers.simulated.truth import true_ftf
+
+        to_peak = ev.plan.amplitude.to_peak
+        return lambda f, amp: true_ftf(scenario, f, amp * to_peak)
+
+    def _on_block(self, ev: BlockAcquired) -> None:
+        buf = self.traces_buffer
+        if buf is None or buf.channels != ev.channels:
+            buf = self.traces_buffer = TraceBuffer(ev.channels, ev.sample_rate_hz, TRACE_SECONDS)
+            self.traces.configure(ev.channels, self.roles or {})
+        buf.append(ev.data)
+
+    def _on_finished(self, ev: SweepFinished) -> None:
+        self.status.finish_reason = ev.reason
+        self.points.on_finished()
+        self._update_controls()
+        session = self.session
+        if session is None:
+            return
+        self.tasks.submit("close", session.close, on_done=self._closed)
+
+    def _closed(self, result: TaskResult) -> None:
+        session = self.session
+        self._update_controls()
+        if session is None:
+            return
+        fault = session.storage_fault
+        if fault:
+            self._say(f"Storage fault: {fault}")
+        run_dir = Path(session.request.run_dir)
+        self.last_run_dir = run_dir
+        self.open_review(run_dir)
+
+    def _frame(self) -> None:
+        """~30 Hz: redraw traces from a copy; refresh the state line."""
+        self.traces.refresh(self.traces_buffer)
+        self._state_line()
+
+    def _state_line(self) -> None:
+        st = self.status
+        words = STATE_WORDS.get(st.state, st.state)
+        if st.finish_reason:
+            words = STATE_WORDS.get({"complete": S.FINISHED, "stopped": S.FINISHED, "aborted": S.ABORTED,
+                                     "halted": S.HALTED, "fault": S.FAULTED}.get(st.finish_reason, ""), words)
+        point = ""
+        if st.point_index is not None and self.points.row(st.point_index) is not None:
+            r = self.points.row(st.point_index)
+            point = f" — point {r.index + 1} of {len(self.points.rows)}, {r.freq_hz:g} Hz, |u'|/ū {r.target_ratio:g}"
+        left = st.time_left_s()
+        tail = (f" — {st.n_done}/{st.n_points} done, about {format_duration(left)} left"
+                if st.n_points and math.isfinite(left) else "")
+        drive = f" — drive {st.drive_v:.3f} V (ceiling {st.ceiling_v:.2f} V)" if math.isfinite(st.ceiling_v) else ""
+        self.state_label.setText(f"<b>{words}</b>{point}{tail}{drive}")
+
+    # ================================================================== controls state
+    def _update_controls(self) -> None:
+        running = self.running()
+        sim = self.setup.is_simulated()
+        self.sim_label.setText("SIMULATED BURNER — rehearsal, no hardware is driven" if sim else
+                               f"REAL HARDWARE: {self.setup.backend_name()}")
+        self.sim_label.setStyleSheet(SIM_STYLE if sim else SIM_STYLE.replace("#FFE08A", "#F4B6B0"))
+        can_start = not running and (sim or self.setup.checklist_done())
+        self.start_action.setEnabled(can_start)
+        for act in (self.pause_action, self.stop_action, self.abort_action):
+            act.setEnabled(running)
+        self.pause_action.setText("Resume" if self.status.state in (S.PAUSED, "pause requested") else "Pause")
+        self.halt_action.setEnabled(True)      # always there; does nothing when no sweep runs
+        self.review.set_enabled(self.review.run is not None and not running and self.review.run.index_readable)
+
+    def _say(self, text: str) -> None:
+        self.statusBar().showMessage(text, 15000)
+
+    def _task_failed(self, result: TaskResult) -> None:
+        if result.error is not None and result.name != "start":
+            self._say(f"{result.name} failed: {result.error}")
+            self.review.message.setText(f"{result.name} failed: {result.error}")
+
+    # ================================================================== files (worker thread)
+    def _save_file(self, path: str, text: str) -> None:
+        editor = self.setup.rig_editor if path == str(self.setup.rig_editor.path) else self.setup.plan_editor
+
+        def write() -> str:
+            tmp = Path(path).with_name(f".{Path(path).name}.part")
+            tmp.write_text(text, encoding="utf-8")
+            tmp.replace(path)
+            return path
+
+        def done(result: TaskResult) -> None:
+            if result.error is None:
+                editor.mark_saved()
+
+        self.tasks.submit("save", write, on_done=done)
+
+    # ================================================================== review
+    def choose_run(self) -> None:
+        name = QFileDialog.getExistingDirectory(self, "Open a run folder", self.setup.runs_root.text() or ".")
+        if name:
+            self.open_review(Path(name))
+
+    def open_review(self, run_dir: Path) -> None:
+        from app.storage.reader import open_run
+
+        def done(result: TaskResult) -> None:
+            if result.error is None:
+                self.review.load(result.value)
+                self.tabs.setCurrentWidget(self.review)
+                self._update_controls()
+
+        self.tasks.submit("open run", lambda: open_run(run_dir), on_done=done)
+
+    def _review_selected(self, indices: list[int]) -> None:
+        if not indices or self.review.run is None:
+            return
+        self.review.show_attempts(indices[0])
+        att = self.review.current_attempt()
+        if att is None or att["record_status"] != "ok":
+            return
+        run = self.review.run
+
+        def done(result: TaskResult) -> None:
+            if result.error is None and self.review.run is run:
+                rec = result.value
+                self.review.record.show_record(rec.data, rec.channels, rec.sample_rate_hz, self._roles_of(rec))
+
+        self.tasks.submit("read record", lambda: run.read_record(att["attempt_id"]), on_done=done)
+
+    @staticmethod
+    def _roles_of(rec: Any) -> dict[str, str]:
+        roles = rec.attrs.get("channel_roles")
+        names = {"pressure": "pressure", "light": "light", "drive_reference": "drive"}
+        if isinstance(roles, (list, tuple)) or hasattr(roles, "tolist"):
+            return {c: names.get(str(r), "other") for c, r in zip(rec.channels, list(roles))}
+        return {}
+
+    def decide(self, accept: bool) -> None:
+        run = self.review.run
+        att = self.review.current_attempt()
+        if run is None or att is None:
+            self.review.message.setText("Select a point first.")
+            return
+        from app.storage import index
+
+        def write() -> int:
+            conn = index.connect(Path(run.run_dir) / index.INDEX_NAME, timeout_s=5.0)
+            try:
+                with conn:
+                    return index.decide(conn, att["attempt_id"], accept,
+                                        f"{'accepted' if accept else 'rejected'} in the window")
+            finally:
+                conn.close()
+
+        verb = "accepted" if accept else "rejected"
+        self.review.message.setText(f"point {att['point_index'] + 1}: attempt {att['seq']} {verb}")
+        self.tasks.submit("decide", write, on_done=lambda r: r.error is None and self.open_review(Path(run.run_dir)))
+
+    def choose_reprocess_rig(self) -> None:
+        run = self.review.run
+        if run is None:
+            return
+        name, _ = QFileDialog.getOpenFileName(self, "Rig file to reprocess with", str(run.run_dir),
+                                              "TOML files (*.toml)")
+        if name:
+            self.reprocess(Path(name))
+
+    def reprocess(self, rig_path: Path, points: list[int] | None = None) -> None:
+        """New analyses of the run's records with another rig file (raw records only read)."""
+        run = self.review.run
+        if run is None or self.running():
+            return
+        import argparse
+
+        from app.commands import reprocess_run
+
+        text = None if not points else ",".join(map(str, points))
+        args = argparse.Namespace(run_dir=str(run.run_dir), rig=str(rig_path), points=text)
+        self.review.message.setText(f"Reprocessing with {rig_path}…")
+
+        def done(result: TaskResult) -> None:
+            if result.error is None:
+                self.review.message.setText(f"Reprocessed with {rig_path}.")
+                self.open_review(Path(run.run_dir))
+
+        self.tasks.submit("reprocess", lambda: reprocess_run.run(args), on_done=done)
+
+    def export_run(self) -> None:
+        run = self.review.run
+        if run is None:
+            self._say("Open a run first.")
+            return
+        from app.storage.export import export_run
+
+        def done(result: TaskResult) -> None:
+            if result.error is None:
+                self.last_export = list(result.value)
+                self.review.message.setText("Exported: " + ", ".join(p.name for p in result.value) +
+                                            f" in {result.value[0].parent}")
+
+        self.review.message.setText("Exporting…")
+        self.tasks.submit("export", lambda: export_run(run.run_dir), on_done=done)
+
+    @staticmethod
+    def _simulated_run(run: Any) -> bool:
+        return (run.info.get("backend", "simulated") or "simulated").startswith("sim")
+
+    # ================================================================== closing
+    def shutdown(self) -> None:
+        """End any sweep safely (ramped abort), then wait for the worker threads."""
+        self.timer.stop()
+        session = self.session
+        if session is not None and not session.closed:
+            if session.engine is not None:
+                session.engine.abort()
+
+            def abort_and_close() -> None:   # after a queued start, too
+                if session.engine is not None:
+                    session.engine.abort()
+                session.close()
+
+            self.tasks.submit("close", abort_and_close)
+        self.tasks.shutdown()
+
+    def closeEvent(self, event: QCloseEvent) -> None:
+        self.shutdown()
+        super().closeEvent(event)
