@@ -13,7 +13,7 @@ from __future__ import annotations
 import math
 import tomllib
 from pathlib import Path
-from typing import Annotated, Any, Literal
+from typing import Annotated, Any
 
 from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationError,
                       field_validator, model_validator)

@@ -9,7 +9,6 @@ Must not import Qt, pyqtgraph, matplotlib, h5py, drivers, the engine or storage.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import Callable, Mapping
 
 import numpy as np
@@ -42,44 +41,44 @@ def drift_figures(fit: HarmonicFit, data: np.ndarray, velocity_of: Callable[[Har
     }
 
 
-@dataclass(frozen=True)
-class QualityLimits:
-    """Thresholds above/below which a settled point is flagged (defaults: common practice)."""
-
-    min_snr_db: float = 20.0
-    max_mmm_residual: float = 0.05
-    max_pair_spread: float = 0.10
-    max_distortion: float = 0.10
-    max_drift: float = 0.05
-    max_cond: float = 10.0
-
+# (figure key, flag name, threshold attribute, sense): a figure beyond its threshold raises the flag.
+QUALITY_RULES = (
+    ("snr_db_pressure_min", "low-snr-pressure", "snr_db_min", "min"),
+    ("snr_db_light", "low-snr-light", "snr_db_min", "min"),
+    ("mmm_residual", "high-residual", "residual_max", "max"),
+    ("pair_spread", "pair-spread", "pair_spread_max", "max"),
+    ("distortion_velocity", "distortion-velocity", "distortion_max", "max"),
+    ("distortion_light", "distortion-light", "distortion_max", "max"),
+    ("drift_velocity", "drift-velocity", "drift_max", "max"),
+    ("drift_light", "drift-light", "drift_max", "max"),
+    ("cond", "ill-conditioned", "cond_max", "max"),
+)
 
 FLAG_TEXT = {
-    "low-snr": "a pressure or light channel has a low signal-to-noise ratio at the forcing frequency",
-    "mmm-residual": "the pressures do not fit plane waves well (sensor position, calibration or higher modes)",
+    "low-snr-pressure": "a pressure channel has a low signal-to-noise ratio at the forcing frequency",
+    "low-snr-light": "the light channel has a low signal-to-noise ratio at the forcing frequency",
+    "high-residual": "the pressures do not fit plane waves well (sensor position, calibration or higher modes)",
     "pair-spread": "sensor pairs disagree on the velocity at the reference plane",
-    "distortion": "velocity or light has strong harmonics (speaker nonlinearity or flame saturation)",
-    "drift": "the operating point drifted between the two halves of the record",
-    "ill-conditioned": "the multi-microphone fit is badly conditioned at this frequency",
-    "out-of-band": "no sensor pair is in its usable band at this frequency",
+    "distortion-velocity": "the velocity has strong harmonics (speaker nonlinearity or a resonance)",
+    "distortion-light": "the light has strong harmonics (flame saturation)",
+    "drift-velocity": "the forcing at the reference plane drifted between the two halves of the record",
+    "drift-light": "the mean light drifted between the two halves of the record (flow, temperature or flame)",
+    "ill-conditioned": "the multi-microphone fit is badly conditioned at this frequency (sensor spacing)",
 }
 
 
-def quality_flags(figures: Mapping[str, float], limits: QualityLimits, any_pair_in_band: bool = True) -> tuple[str, ...]:
-    """Flags raised by a point's figures; empty when everything is within limits."""
+def quality_flags(figures: Mapping[str, float], thresholds: object) -> tuple[str, ...]:
+    """Flags for every figure beyond its threshold (``thresholds`` has the attributes named in
+    QUALITY_RULES, e.g. a plan's ``[quality]`` table); a NaN figure gives ``<flag>-unknown``."""
     flags = []
-    if min(figures.get("snr_db_pressure_min", np.inf), figures.get("snr_db_light", np.inf)) < limits.min_snr_db:
-        flags.append("low-snr")
-    if figures.get("mmm_residual", 0.0) > limits.max_mmm_residual:
-        flags.append("mmm-residual")
-    if figures.get("pair_spread", 0.0) > limits.max_pair_spread:
-        flags.append("pair-spread")
-    if max(figures.get("distortion_velocity", 0.0), figures.get("distortion_light", 0.0)) > limits.max_distortion:
-        flags.append("distortion")
-    if max(figures.get("drift_velocity", 0.0), figures.get("drift_light", 0.0)) > limits.max_drift:
-        flags.append("drift")
-    if figures.get("cond", 1.0) > limits.max_cond:
-        flags.append("ill-conditioned")
-    if not any_pair_in_band:
-        flags.append("out-of-band")
+    for key, flag, attr, sense in QUALITY_RULES:
+        value = figures.get(key)
+        if value is None:
+            continue
+        limit = getattr(thresholds, attr)
+        value = float(value)
+        if not np.isfinite(value) and not (sense == "min" and value == np.inf):
+            flags.append(f"{flag}-unknown")
+        elif (sense == "min" and value < limit) or (sense == "max" and value > limit):
+            flags.append(flag)
     return tuple(flags)

@@ -176,30 +176,3 @@ class SignalChecks:
 
 
 # quality figure -> (flag, plan attribute, "min" or "max")
-_QUALITY_RULES = (
-    ("snr_db_pressure_min", "low-snr-pressure", "snr_db_min", "min"),
-    ("snr_db_light", "low-snr-light", "snr_db_min", "min"),
-    ("mmm_residual", "high-residual", "residual_max", "max"),
-    ("pair_spread", "pair-spread", "pair_spread_max", "max"),
-    ("distortion_velocity", "distortion-velocity", "distortion_max", "max"),
-    ("distortion_light", "distortion-light", "distortion_max", "max"),
-    ("drift_velocity", "drift-velocity", "drift_max", "max"),
-    ("drift_light", "drift-light", "drift_max", "max"),
-    ("cond", "ill-conditioned", "cond_max", "max"),
-)
-
-
-def quality_flags(quality: dict[str, float], thresholds: Any) -> tuple[str, ...]:
-    """Flags for every quality figure beyond the plan's threshold; a missing or NaN figure is flagged too."""
-    flags = []
-    for key, flag, attr, sense in _QUALITY_RULES:
-        value = quality.get(key)
-        if value is None:
-            continue
-        limit = getattr(thresholds, attr)
-        value = float(value)
-        if not np.isfinite(value) and not (sense == "min" and value == np.inf):
-            flags.append(f"{flag}-unknown")
-        elif (sense == "min" and value < limit) or (sense == "max" and value > limit):
-            flags.append(flag)
-    return tuple(flags)

@@ -35,6 +35,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from app.core.quality import quality_flags
 from app.errors import FlamebodeError
 from drivers.errors import BackendTimeout, DriverError
 from drivers.protocols import Acquirer, EmergencyHalt, Identified, SineDrive
@@ -43,7 +44,7 @@ from . import states as S
 from .controller import AmplitudeController, ControllerSettings, Decision, PointTuner
 from .events import (BlockAcquired, DriveChanged, EventBus, FaultRaised, PointSettled, SweepFinished,
                      SweepStarted, TuningStep)
-from .faults import Finding, SignalChecks, fault_event, quality_flags
+from .faults import Finding, SignalChecks, fault_event
 
 
 def integer_period_samples(freq_hz: float, sample_rate_hz: float, min_duration_s: float,

@@ -8,7 +8,7 @@ from typing import Any
 from app.engine.events import EventBus
 from app.engine.sweep import SweepEngine
 from app.plan import Plan, plan_from_dict
-from app.rig import Rig, load_rig
+from app.rig import Rig
 
 CONFIGS = Path(__file__).resolve().parents[2] / "configs"
 
