@@ -1,0 +1,234 @@
+"""Sound-card back-end through a real audio server: a PulseAudio null sink played and recorded.
+
+The "rig" is the null sink: output 1 carries the drive, and its monitor gives it back on
+input 1 (the drive reference); a test-only subclass plays on output 2 a known filtered,
+delayed and scaled copy of the drive, H, which comes back on input 2 as the "flame".
+The back-end's blocks are fitted with the core's harmonic estimator and the ratio of the two
+inputs must give H back in gain and phase.
+
+Convention: x(t) = Re{x̂ e^{+iωt}}. H of the test filter is scipy.signal.freqz of its
+coefficients times e^{-iωm/fs} for a delay of m samples (freqz evaluates Σ h[n] e^{-iωn},
+the e^{+iωt} transfer function; a delay gives a falling phase). Sources: scipy.signal
+(lfilter/freqz) for the known transfer; the 16-bit sample format of the null sink
+(PulseAudio default) bounds the level error to about 1/32768 of full scale.
+
+These tests need the server that .ci/start-audio starts (PULSE_SERVER exported); they skip
+with the reason otherwise. Records are short (0.5 s) and the whole module runs in ~15 s.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import time
+import tomllib
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+from scipy import signal
+
+from app.core.harmonic import fit_harmonics
+from app.rig import Rig, rig_from_dict
+from drivers.errors import CeilingExceeded, DriverError
+from drivers.soundcard import SoundCard, SoundCardBlock
+
+DEMO = Path(__file__).resolve().parents[2] / "configs" / "demo-rig.toml"
+FS = 48000.0
+LSB = 1.0 / 32768.0
+
+
+def _audio_server_reason() -> str:
+    if not os.environ.get("PULSE_SERVER"):
+        return "PULSE_SERVER is not set (no private audio server; .ci/start-audio starts one)"
+    if shutil.which("pactl") is None:
+        return "pactl not found (pulseaudio-utils missing)"
+    try:
+        ok = subprocess.run(["pactl", "info"], capture_output=True, timeout=10).returncode == 0
+    except (OSError, subprocess.TimeoutExpired) as exc:
+        return f"pactl info failed: {exc}"
+    if not ok:
+        return f"no audio server answers at PULSE_SERVER={os.environ['PULSE_SERVER']} (pactl info failed)"
+    av = SoundCard.probe()
+    return "" if av.available else f"sound-card back-end unavailable: {av.reason}"
+
+
+_REASON = _audio_server_reason()
+pytestmark = [pytest.mark.audio, pytest.mark.skipif(bool(_REASON), reason=_REASON or "audio server present")]
+
+
+def make_rig() -> Rig:
+    """The demo rig's channels, every one read from one of the two monitor inputs."""
+    data = tomllib.loads(DEMO.read_text(encoding="utf-8"))
+    data["acquisition"] = {"sample_rate": "48 kHz", "block_duration": "0.05 s"}
+    data["drive"] = {**data["drive"], "ceiling": "0.8 V", "ramp_time": "0.1 s"}
+    data["hardware"] = {"soundcard": {
+        "device": "pulse", "output_channel": 1, "output_full_scale": "1 V",
+        "inputs": {"drv_ref": 1, "p1": 2, "p2": 2, "p3": 2, "p4": 2, "pmt": 2},
+        # p2 as a calibrated microphone: a full scale of 50 Pa at 14.2 mV/Pa is 0.71 V
+        "full_scale": {"drv_ref": "1 V", "p1": "1 V", "p2": "50 Pa", "p3": "1 V", "p4": "1 V", "pmt": "1 V"}}}
+    return rig_from_dict(data, "loopback-rig.toml")
+
+
+# The known "flame": gain 0.6, a 37-sample delay and a first-order low-pass (Butterworth, 1.5 kHz).
+GAIN, DELAY_N = 0.6, 37
+B_LP, A_LP = signal.butter(1, 1500.0, fs=FS)
+
+
+def true_h(freq_hz: float) -> complex:
+    _, h = signal.freqz(B_LP, A_LP, worN=[freq_hz], fs=FS)
+    return complex(GAIN * h[0] * np.exp(-2j * np.pi * freq_hz * DELAY_N / FS))
+
+
+class LoopbackCard(SoundCard):
+    """Test-only: output 2 plays H applied to the drive; the rendered drive is kept for checks."""
+
+    def __init__(self, rig: Rig, **options: Any) -> None:
+        super().__init__(rig, **options)
+        self._zi = signal.lfilter_zi(B_LP, A_LP) * 0.0
+        self._line = np.zeros(DELAY_N, dtype=np.float64)
+        self.rendered: list[np.ndarray] = []
+        self.stall_once_s = 0.0
+
+    def extra_outputs(self, drive_digital: np.ndarray, frames: np.ndarray) -> None:
+        d = drive_digital.astype(np.float64)
+        self.rendered.append(d.copy())
+        delayed = np.concatenate([self._line, d])
+        self._line = delayed[-DELAY_N:]
+        y, self._zi = signal.lfilter(B_LP, A_LP, delayed[:d.size], zi=self._zi)
+        frames[:, 1] = GAIN * y
+        if self.stall_once_s:
+            stall, self.stall_once_s = self.stall_once_s, 0.0
+            time.sleep(stall)   # the renderer falls behind: the callback must count it
+
+
+@pytest.fixture
+def card() -> Any:
+    dev = LoopbackCard(make_rig())
+    dev.start()
+    try:
+        yield dev
+    finally:
+        dev.stop()
+
+
+def settle(dev: SoundCard, timeout_s: float = 5.0) -> list[SoundCardBlock]:
+    """Read blocks until the ramp has reached the inputs, then one more."""
+    blocks = []
+    deadline = time.monotonic() + timeout_s
+    while dev.drive_status().ramping:
+        assert time.monotonic() < deadline, "the drive never settled"
+        blocks.append(dev.read_block(timeout_s=5.0))
+    blocks.append(dev.read_block(timeout_s=5.0))
+    return blocks
+
+
+def record(dev: SoundCard, n_blocks: int) -> tuple[np.ndarray, list[SoundCardBlock]]:
+    blocks = [dev.read_block(timeout_s=5.0) for _ in range(n_blocks)]
+    for a, b in zip(blocks, blocks[1:]):
+        assert b.start_index == a.start_index + a.n_samples   # contiguous, no gap
+    return np.concatenate([b.data for b in blocks], axis=1), blocks
+
+
+def test_recovers_a_known_transfer_between_two_channels(card: LoopbackCard) -> None:
+    rig = card.rig
+    ch = card.channels
+    assert card.sample_rate_hz == FS
+    for freq_hz in (240.0, 600.0, 1200.0):     # whole periods in a 0.05 s block
+        card.set_drive(freq_hz, 0.5)
+        settle(card)
+        data, blocks = record(card, 10)          # 0.5 s
+        fit = fit_harmonics(data, FS, freq_hz)
+        ref = fit.amplitude[ch.index(rig.drive.reference_channel)]
+        flame = fit.amplitude[ch.index("p1")]
+        h_est = flame / ref
+        h = true_h(freq_hz)
+        # gain within 0.1 %, phase within 0.1 degree (16-bit path: errors ~ 1e-5 measured)
+        assert abs(h_est) == pytest.approx(abs(h), rel=1e-3), freq_hz
+        assert np.degrees(np.angle(h_est / h)) == pytest.approx(0.0, abs=0.1), freq_hz
+        # input calibration: 0.5 digital at 1 V output full scale, read at 1 V input full scale
+        assert abs(ref) == pytest.approx(0.5, abs=4 * LSB)
+        # p2 reads the same samples as p1 with a 50 Pa x 14.2 mV/Pa = 0.71 V full scale
+        assert fit.amplitude[ch.index("p2")] / flame == pytest.approx(0.71, rel=1e-9)
+        assert all(b.drive_freq_hz == freq_hz for b in blocks)
+        assert all(b.drive_amplitude_v == pytest.approx(0.5, abs=0.01) for b in blocks)
+    assert card.guard.clip_events == 0
+
+
+def test_delay_is_measured_on_every_block_and_aligns_the_reference(card: LoopbackCard) -> None:
+    card.set_drive(400.0, 0.5)
+    blocks = settle(card)
+    _, steady = record(card, 6)
+    measured = [b for b in blocks + steady if b.delay_measured]
+    assert steady and all(b.delay_measured for b in steady)
+    delays = {b.delay_samples for b in measured}
+    assert len(delays) == 1, f"delay changed between blocks: {sorted(delays)}"
+    d = delays.pop()
+    assert 0 < d < card.config.max_delay_s * FS
+    assert steady[0].delay_s == pytest.approx(d / FS)
+    assert card.delay_samples == d
+    # shifting the played drive by the delay reproduces the reference input sample by sample
+    played = np.concatenate(card.rendered)
+    for b in steady:
+        start = b.start_index - d
+        expected = played[start:start + b.n_samples]
+        assert np.max(np.abs(b.channel("drv_ref") - expected)) <= 2 * LSB
+
+
+def test_ceiling_refusal_halt_and_ramped_resume(card: LoopbackCard) -> None:
+    # the ceiling is the smaller of the rig's 0.8 V and the 1 V output full scale
+    with pytest.raises(CeilingExceeded):
+        card.set_drive(500.0, 0.81)
+    card.set_drive(500.0, 0.5)
+    settle(card)
+    card.halt()
+    assert card.drive_status().amplitude_v == 0.0
+    quiet = [card.read_block(timeout_s=5.0) for _ in range(int(0.3 * FS / card.config.block_n))]
+    # silent from (halt + output lead + delay) on: the last blocks are exactly zero
+    assert np.max(np.abs(quiet[-1].channel("drv_ref"))) == 0.0
+    card.set_drive(500.0, 0.5)
+    first_on: SoundCardBlock | None = None
+    deadline = time.monotonic() + 5.0
+    while first_on is None and time.monotonic() < deadline:
+        b = card.read_block(timeout_s=5.0)
+        if np.any(b.channel("drv_ref")):
+            first_on = b
+    assert first_on is not None
+    # resumed with the guard's ramp (0.8 V per 0.1 s), not a jump back to 0.5 V
+    x = first_on.channel("drv_ref")
+    onset = int(np.flatnonzero(x)[0])
+    head = np.abs(x[onset:onset + 240])
+    assert head.max() <= 0.8 / 0.1 * (240 / FS) + 2 * LSB
+
+
+def test_starved_output_is_counted_in_the_blocks(card: LoopbackCard) -> None:
+    card.set_drive(300.0, 0.2)
+    settle(card)
+    _, clean = record(card, 4)
+    card.stall_once_s = 0.6                        # longer than the 0.2 s output lead
+    _, stalled = record(card, 20)
+    assert sum(b.overflows for b in stalled) >= 1
+    assert all(isinstance(b.overflows, int) and b.overflows >= 0 for b in clean + stalled)
+
+
+def test_stop_is_idempotent_and_restart_works() -> None:
+    dev = LoopbackCard(make_rig())
+    dev.start()
+    dev.set_drive(440.0, 0.3)
+    settle(dev)
+    dev.stop()
+    dev.stop()
+    assert dev.drive_status().amplitude_v == 0.0
+    with pytest.raises(DriverError):
+        dev.read_block()
+    with pytest.raises(DriverError):
+        dev.set_drive(440.0, 0.3)
+    dev.start()
+    try:
+        b = dev.read_block(timeout_s=5.0)
+        assert b.start_index == 0 and b.data.shape == (len(dev.channels), dev.config.block_n)
+        assert dev.identity()["model"] == "pulse"
+    finally:
+        dev.stop()
