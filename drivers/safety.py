@@ -140,16 +140,17 @@ def _handler(signum: int, frame: FrameType | None) -> None:
     raise KeyboardInterrupt
 
 
-def install_signal_handlers() -> None:
-    """Zero all outputs on SIGINT and SIGTERM. Main thread only; idempotent.
+def install_signal_handlers(signals: tuple[int, ...] = HANDLED_SIGNALS) -> None:
+    """Zero all outputs on ``signals`` (default SIGINT and SIGTERM). Main thread only; idempotent.
 
     The previous handler is kept and called after zeroing. A signal that was being ignored
-    (SIG_IGN, e.g. under ``nohup``) stays ignored.
+    (SIG_IGN, e.g. under ``nohup``) stays ignored. A command that turns Ctrl-C into a ramped
+    abort of its own installs SIGTERM only.
     """
     if threading.current_thread() is not threading.main_thread():
         raise RuntimeError("safety.install_signal_handlers() must be called from the main thread")
     with _lock:
-        for signum in HANDLED_SIGNALS:
+        for signum in signals:
             current = signal.getsignal(signum)
             if current is _handler or current == signal.SIG_IGN:
                 continue

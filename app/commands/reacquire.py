@@ -34,12 +34,11 @@ def run(args: argparse.Namespace) -> int:
     wanted = r.flagged_points() if args.flagged else parse_points(args.points) or []
     unknown = sorted(set(wanted) - set(planned))
     if unknown:
-        raise FlamebodeError(f"--points: {', '.join(map(str, unknown))} not in this run's plan "
-                             f"(0-{len(planned) - 1})")
+        raise FlamebodeError(f"--points: {', '.join(str(i + 1) for i in unknown)} not in this run's plan "
+                             f"(points 1-{len(planned)})")
     if not wanted:
         print(f"{r.run_dir}: no point to reacquire")
         return 0
-    print(f"reacquiring point(s) {', '.join(map(str, wanted))} of {r.run_dir}")
+    print(f"reacquiring point(s) {', '.join(str(i + 1) for i in wanted)} of {r.run_dir}")
     reason = continue_run(r.run_dir, [i for i in planned if i in set(wanted)], fast=args.fast)
-    print(f"sweep {reason}")
     return 0 if reason == "complete" else 1

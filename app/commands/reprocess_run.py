@@ -18,7 +18,8 @@ from ..errors import FlamebodeError
 
 
 def parse_points(text: str | None) -> list[int] | None:
-    """'3,7,10-12' -> [3, 7, 10, 11, 12]; None -> None (all points)."""
+    """Point numbers as users see them (from 1) to plan indices (from 0):
+    '3,7,10-12' -> [2, 6, 9, 10, 11]; None -> None (all points)."""
     if not text:
         return None
     out: list[int] = []
@@ -32,7 +33,9 @@ def parse_points(text: str | None) -> list[int] | None:
                 out.append(int(part))
     except ValueError:
         raise FlamebodeError(f"--points: '{text}' is not a list of point numbers such as 3,7 or 10-12") from None
-    return out
+    if any(n < 1 for n in out):
+        raise FlamebodeError(f"--points: point numbers start at 1, got '{text}'")
+    return [n - 1 for n in out]
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:

@@ -10,9 +10,6 @@ Must not import Qt.
 from __future__ import annotations
 
 import argparse
-import inspect
-import signal
-import threading
 import time
 from pathlib import Path
 from typing import Any
@@ -24,9 +21,6 @@ class ResumeError(FlamebodeError):
     """The run cannot be continued (unknown back-end, damaged snapshots...)."""
 
 
-SIMULATED_NAMES = ("simulated", "sim", "simulator", "simulated-burner")
-
-
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("run_dir", help="run folder to continue")
     p.add_argument("--fast", action="store_true", default=None,
@@ -35,29 +29,25 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def open_backend(info: dict[str, str], rig: Any, run_dir: Path, fast: bool | None) -> tuple[Any, str]:
     """The back-end the run used, reopened from its snapshots: (device, name)."""
+    from .running import open_device
+
     name = info.get("backend", "simulated") or "simulated"
-    if name.lower() in SIMULATED_NAMES or name.lower().startswith("simulated"):
-        from drivers.simulated.burner import SimulatedBurner
-
-        scenarios = sorted(run_dir.glob("scenario.*"))
-        real_time = not (fast if fast is not None else info.get("fast", "0") in ("1", "true", "True"))
-        return SimulatedBurner(rig, scenarios[0] if scenarios else None, real_time=real_time), name
-    try:
-        from .. import backends  # type: ignore[attr-defined]
-    except ImportError:
-        raise ResumeError(f"{run_dir}: the run used back-end '{name}', which this installation cannot open "
-                          f"from the command line; continue it from the window") from None
-    return backends.open_backend(name, rig), name
+    scenarios = sorted(run_dir.glob("scenario.*"))
+    fast_now = fast if fast is not None else info.get("fast", "0") in ("1", "true", "True")
+    return open_device(name, rig, scenarios[0] if scenarios else None, fast=bool(fast_now)), name
 
 
-def continue_run(run_dir: str | Path, point_indices: list[int], fast: bool | None = None) -> str:
+def continue_run(run_dir: str | Path, point_indices: list[int], fast: bool | None = None,
+                 show_progress: bool = True) -> str:
     """Measure ``point_indices`` of the run again, storing new attempts; returns the finish reason."""
     from ..engine.events import EventBus
+    from ..engine.progress import ProgressDisplay
     from ..engine.sweep import SweepEngine
     from ..plan import load_plan
     from ..rig import load_rig
     from ..storage.reader import open_run
     from ..storage.writer import writer_for_existing_run
+    from .running import run_engine
 
     run = open_run(run_dir, verify=False)
     rig = load_rig(run.rig_path)
@@ -69,47 +59,20 @@ def continue_run(run_dir: str | Path, point_indices: list[int], fast: bool | Non
         writer.note({"fast": "1" if fast else "0"})
     writer.start()
     bus.subscribe(writer)
-    kwargs: dict[str, Any] = {"backend_name": name, "run_label": f"r{time.strftime('%H%M%S')}",
-                              "wait_for_store": True}
-    params = inspect.signature(SweepEngine).parameters
-    if "points" in params:
-        kwargs["points"] = list(point_indices)
-    engine = SweepEngine(plan, rig, device, bus, **kwargs)
-    if "points" not in params:   # an engine without a points argument: narrow its list in place
-        wanted = set(point_indices)
-        engine.points = _PointsByIndex(p for p in engine.points if p.index in wanted)
-    stop_on_signal(engine)
-    try:
-        reason = engine.run()
-    finally:
-        writer.close()
-        stop = getattr(device, "stop", None)
-        if callable(stop):
-            stop()
+    closers: tuple = (writer.close,)
+    if show_progress:
+        display = ProgressDisplay()
+        bus.subscribe(display)
+        display.start()
+        closers = (display.close, writer.close)
+    engine = SweepEngine(plan, rig, device, bus, backend_name=name, run_label=f"r{time.strftime('%H%M%S')}",
+                         wait_for_store=True, points=list(point_indices))
+    reason = run_engine(engine, device, closers)
     if writer.fault:
         print(writer.fault)
     if engine.error is not None:
         raise ResumeError(f"{run.run_dir}: the sweep ended with an error: {engine.error}")
     return reason
-
-
-class _PointsByIndex(list):
-    """A subset of plan points that the engine may still look up by plan index (``points[i]``)."""
-
-    def __getitem__(self, key: Any) -> Any:
-        if isinstance(key, int):
-            for p in self:
-                if p.index == key:
-                    return p
-        return super().__getitem__(key)
-
-
-def stop_on_signal(engine: Any) -> None:
-    """SIGINT/SIGTERM: abort the sweep (drive ramped down, stored points kept)."""
-    if threading.current_thread() is not threading.main_thread():
-        return
-    for sig in (signal.SIGINT, signal.SIGTERM):
-        signal.signal(sig, lambda *_: engine.abort())
 
 
 def run(args: argparse.Namespace) -> int:
@@ -126,8 +89,8 @@ def run(args: argparse.Namespace) -> int:
     if not pending:
         print(f"{r.run_dir}: every point has an accepted attempt; nothing to resume")
         return 0
-    print(f"resuming {r.run_dir} at point {pending[0]}: {len(pending)} point(s) to measure")
+    print(f"resuming {r.run_dir} at point {pending[0] + 1}: {len(pending)} point(s) to measure")
     reason = continue_run(r.run_dir, pending, fast=args.fast)
     left = open_run(r.run_dir, verify=False).pending_points()
-    print(f"sweep {reason}; {len(left)} point(s) still without an accepted attempt")
+    print(f"{len(left)} point(s) still without an accepted attempt" if left else "every point has an accepted attempt")
     return 0 if reason == "complete" and not left else 1

@@ -32,13 +32,13 @@ def run(args: argparse.Namespace) -> int:
     for p in r.problems:
         print(f"problem: {p}")
     for f in r.faults:
-        print(f"fault at point {f['point_index']}: {f['name']}: {f['message']} ({f['action']})")
+        print(f"fault at point {_num(f['point_index'])}: {f['name']}: {f['message']} ({f['action']})")
     head = (f"{'pt':>4} {'freq_hz':>9} {'target':>7} {'achieved':>8} {'gain':>7} {'±95%':>6} "
             f"{'phase_rad':>9} {'±95%':>6} {'att':>3}  accepted      flags")
     print(head)
     print("-" * len(head))
     for row in point_rows(r):
-        print(f"{row['point_index']:>4} {row['frequency_hz']:>9.2f} {row['amplitude_ratio_target']:>7.4f} "
+        print(f"{row['point_index'] + 1:>4} {row['frequency_hz']:>9.2f} {row['amplitude_ratio_target']:>7.4f} "
               f"{_fmt(row['amplitude_ratio_achieved'], '8.4f')} {_fmt(row['gain'], '7.4f')} "
               f"{_fmt(row['gain_ci95'], '6.4f')} {_fmt(row['phase_rad'], '+9.4f')} "
               f"{_fmt(row['phase_ci95_rad'], '6.4f')} {row['n_attempts']:>3}  "
@@ -50,6 +50,11 @@ def run(args: argparse.Namespace) -> int:
                       f"{reason}, record {a['record_status']}, flags {', '.join(a['flags']) or 'none'}")
     pending = r.pending_points()
     if pending:
-        print(f"{len(pending)} point(s) without an accepted attempt: {', '.join(map(str, pending))} "
+        print(f"{len(pending)} point(s) without an accepted attempt: {', '.join(str(i + 1) for i in pending)} "
               f"(continue with 'flamebode resume {r.run_dir}')")
     return 0
+
+
+def _num(index: object) -> str:
+    """A stored point index as the number users see (from 1)."""
+    return str(int(index) + 1) if isinstance(index, int) else "-"

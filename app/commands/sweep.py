@@ -6,7 +6,7 @@ a plan may name its default rig and scenario relative to itself), storing the ru
 ``--out RUN_DIR`` through the run writer. Ctrl-C aborts safely: the drive is ramped to
 zero (a second Ctrl-C halts at once) and the stored points are kept.
 
-Imports: the engine, plan/rig, storage writer and the driver registry (lazily). Never Qt.
+Imports: the engine, plan/rig, storage writer and (through .running) the driver registry, lazily. Never Qt.
 """
 
 from __future__ import annotations
@@ -65,23 +65,6 @@ def dry_run(plan: Any, rig: Any, out: Any = None) -> None:
         print(f"  - {line}", file=out)
 
 
-def open_device(name: str, rig: Any, scenario: Path | None, fast: bool, seed: int | None) -> Any:
-    try:
-        from drivers.registry import open_backend  # type: ignore[import-not-found]
-    except ImportError:
-        open_backend = None
-    options: dict[str, Any] = {}
-    if name == "simulated":
-        options = {"scenario": str(scenario) if scenario else None, "real_time": not fast, "seed": seed}
-    if open_backend is not None:
-        return open_backend(name, rig, **options)
-    if name != "simulated":
-        raise SweepCommandError(f"back-end '{name}' cannot be opened: the driver registry is not installed")
-    from drivers.simulated.burner import SimulatedBurner
-
-    return SimulatedBurner(rig, **options)
-
-
 def run(args: argparse.Namespace) -> int:
     from ..plan import load_plan
     from ..rig import load_rig
@@ -100,13 +83,13 @@ def run(args: argparse.Namespace) -> int:
 
 def _run_sweep(args: argparse.Namespace, plan: Any, rig: Any, plan_path: Path, rig_path: Path,
                scenario: Path | None) -> int:
-    from drivers import safety
-
     from ..engine.events import EventBus
     from ..engine.progress import ProgressDisplay
     from ..engine.sweep import SweepEngine
+    from .running import open_device, run_engine
 
     bus = EventBus()
+    device = open_device(args.backend, rig, scenario, args.fast, args.seed)
     writer = None
     if args.out:
         from ..storage.writer import RunWriter
@@ -117,53 +100,20 @@ def _run_sweep(args: argparse.Namespace, plan: Any, rig: Any, plan_path: Path, r
         bus.subscribe(writer)
     else:
         print("no --out RUN_DIR given: nothing will be stored", file=sys.stderr)
-    device = open_device(args.backend, rig, scenario, args.fast, args.seed)
     display = ProgressDisplay(estimated_s=plan.estimated_duration_s(ramp_time_s=rig.drive.ramp_time))
     bus.subscribe(display)
     engine = SweepEngine(plan, rig, device, bus, backend_name=args.backend,
                          run_label=time.strftime("s%Y%m%d-%H%M%S"), wait_for_store=writer is not None)
     display.start()
-    safety.register(device)
-    try:
-        engine.start()
-        _wait(engine)
-    finally:
-        if not engine.join(30.0):
-            engine.halt()
-        display.close()
-        if writer is not None:
-            writer.close()
-        stop = getattr(device, "stop", None)
-        if callable(stop):
-            stop()
-        safety.unregister(device)
+    run_engine(engine, device, (display.close,) + ((writer.close,) if writer is not None else ()))
     return _report(engine, writer, args.out)
-
-
-def _wait(engine: Any) -> None:
-    """Wait for the sweep; Ctrl-C aborts (ramped), a second Ctrl-C halts at once."""
-    interrupts = 0
-    while True:
-        try:
-            if engine.join(None):
-                return
-        except KeyboardInterrupt:
-            interrupts += 1
-            if interrupts == 1:
-                print("\ninterrupted: ramping the drive to zero; press Ctrl-C again to halt at once",
-                      file=sys.stderr)
-                engine.abort()
-            else:
-                engine.halt()
 
 
 def _report(engine: Any, writer: Any, out: str | None) -> int:
     if engine.error is not None:
         raise SweepCommandError(f"the sweep ended with an internal error: {engine.error!r}; the drive was "
                                 f"brought to zero")
-    kept = engine.stats.settled
-    where = f" in {out}" if out else " (not stored: no --out)"
-    print(f"sweep {engine.finish_reason}: {kept} of {len(engine.points)} points kept{where}")
+    print(f"run folder: {out}" if out else "nothing stored (no --out RUN_DIR)")
     if writer is not None and writer.fault:
         print(f"storage fault: {writer.fault}", file=sys.stderr)
         return 1

@@ -112,7 +112,7 @@ class ProgressDisplay:
         _, index, freq, target, achieved, gain, gain_ci, phase, phase_ci, drive_v, flags = item
         self.status["settled"] += 1
         n = self.status["n"] or "?"
-        text = (f"  {index + 1:>3}/{n}  {freq:8.1f} Hz  a {achieved:.4f} ({(achieved / target - 1) * 100:+5.1f} %)  "
+        text = (f"  {self.status['settled']:>3}/{n}  point {index + 1:<4}{freq:8.1f} Hz  a {achieved:.4f} ({(achieved / target - 1) * 100:+5.1f} %)  "
                 f"gain {gain:.3f} ± {gain_ci:.3f}  phase {math.degrees(phase):+7.1f}° ± {math.degrees(phase_ci):.1f}°  "
                 f"drive {drive_v:.3f} V")
         if flags:
@@ -122,8 +122,8 @@ class ProgressDisplay:
     def _status_text(self) -> Text:
         s = self.status
         n = s["n"] or 0
-        point = "-" if s["point"] is None else f"{s['point'] + 1}/{n}"
         done = s["settled"]
+        point = "-" if s["point"] is None else f"{s['point'] + 1} ({done}/{n} done)"
         elapsed = time.monotonic() - self._t0
         eta = "?"
         if done and n:

@@ -119,5 +119,5 @@ def test_headless_sweep_stores_points(tmp_path, capsys) -> None:
     out_dir = tmp_path / "run"
     assert main(["sweep", str(p), "--fast", "--seed", "3", "--out", str(out_dir)]) == 0
     out = capsys.readouterr().out
-    assert "2 of 2 points kept" in out and "400.0 Hz" in out
+    assert "2 of 2 points settled and kept" in out and f"run folder: {out_dir}" in out and "400.0 Hz" in out
     assert len(list((out_dir / "records").glob("*.h5"))) == 2
