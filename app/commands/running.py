@@ -50,7 +50,8 @@ def run_engine(engine: Any, device: Any, closers: tuple[Callable[[], None], ...]
     ``closers`` (the progress display, the run writer) are closed after the engine has ended
     and before the device is released, whatever happened.
     """
-    if threading.current_thread() is threading.main_thread():
+    own_handlers = threading.current_thread() is threading.main_thread() and not safety.signal_handlers_installed()
+    if own_handlers:
         safety.install_signal_handlers((signal.SIGTERM,))
     try:
         engine.start()
@@ -61,4 +62,6 @@ def run_engine(engine: Any, device: Any, closers: tuple[Callable[[], None], ...]
         for close in closers:
             close()
         close_backend(device)
+        if own_handlers:
+            safety.uninstall_signal_handlers()
     return engine.finish_reason or "fault"
