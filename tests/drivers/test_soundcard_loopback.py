@@ -232,3 +232,83 @@ def test_stop_is_idempotent_and_restart_works() -> None:
         assert dev.identity()["model"] == "pulse"
     finally:
         dev.stop()
+
+
+# ---------------------------------------------------------------- a short sweep by the engine
+LIGHT_DC_V = 0.3      # the "light" input's mean level; the fluctuation is H applied to the drive
+NOISE_V = 1e-3        # white noise on the flame output, so no sensor reads flat with the drive off
+
+
+class FlameCard(LoopbackCard):
+    """Output 2 = LIGHT_DC + H·drive + noise: a steady "flame" whose response to the drive is H."""
+
+    def __init__(self, rig: Rig, **options: Any) -> None:
+        super().__init__(rig, **options)
+        self._rng = np.random.default_rng(11)
+
+    def extra_outputs(self, drive_digital: np.ndarray, frames: np.ndarray) -> None:
+        super().extra_outputs(drive_digital, frames)
+        frames[:, 1] += LIGHT_DC_V + NOISE_V * self._rng.standard_normal(frames.shape[0])
+
+
+def _phasors(data: np.ndarray, channels: tuple[str, ...], fs: float, freq_hz: float) -> tuple[Any, complex]:
+    fit = fit_harmonics(data[[channels.index("drv_ref"), channels.index("p1")]], fs, freq_hz)
+    return fit, complex(fit.amplitude[1] / fit.amplitude[0])
+
+
+def loop_measure(data: np.ndarray, channels: tuple[str, ...], fs: float, freq_hz: float, rig: Rig) -> Any:
+    """Stand-in for the velocity estimate: the flame channel's relative fluctuation |p̂1|/LIGHT_DC."""
+    from types import SimpleNamespace
+
+    fit, _ = _phasors(data, channels, fs, freq_hz)
+    p1 = abs(fit.amplitude[1])
+    return SimpleNamespace(amplitude_ratio=p1 / LIGHT_DC_V, sigma_ratio=float(fit.sigma_abs[1]) / LIGHT_DC_V,
+                           pressure_peak_pa=p1 / rig.sensor("p1").sensitivity)
+
+
+def loop_evaluate(data: np.ndarray, channels: tuple[str, ...], fs: float, freq_hz: float, rig: Rig) -> Any:
+    from types import SimpleNamespace
+
+    _, h = _phasors(data, channels, fs, freq_hz)
+    return SimpleNamespace(velocity=loop_measure(data, channels, fs, freq_hz, rig), transfer=h, quality={})
+
+
+@pytest.mark.slow
+def test_headless_sweep_by_the_engine_recovers_the_transfer() -> None:
+    from app.engine.events import EventBus, PointSettled, SweepFinished
+    from app.engine.sweep import SweepEngine
+    from app.plan import plan_from_dict
+
+    plan = plan_from_dict({
+        "name": "sound-card loopback",
+        "frequencies": {"values": [300.0, 900.0]},
+        "amplitude": {"values": [0.1], "basis": "peak"},
+        "timing": {"record": 0.5, "settle": 0.1, "tuning_window": 0.2, "tuning_discard": 0.05},
+        "tuning": {"tolerance": 0.05, "max_steps": 8},
+    }, "<loopback plan>")
+    rig = make_rig()
+    events: list[Any] = []
+    bus = EventBus()
+    bus.subscribe(events.append)
+    dev = FlameCard(rig)
+    engine = SweepEngine(plan, rig, dev, bus, backend_name="soundcard", measure=loop_measure,
+                         evaluate=loop_evaluate)
+    try:
+        reason = engine.run()
+    finally:
+        dev.stop()
+    faults = [e for e in events if type(e).__name__ == "FaultRaised"]
+    assert reason == "complete", faults
+    settled = [e for e in events if isinstance(e, PointSettled)]
+    assert [p.freq_hz for p in settled] == [300.0, 900.0]
+    for p in settled:
+        h = true_h(p.freq_hz)
+        # gain within 1 %, phase within 0.5 degree (noise 1e-3 V against a ~0.03 V line)
+        assert abs(p.result.transfer) == pytest.approx(abs(h), rel=1e-2)
+        assert np.degrees(np.angle(p.result.transfer / h)) == pytest.approx(0.0, abs=0.5)
+        # the engine tuned the drive so the flame moves by 10 % of its mean (plan tolerance 5 %)
+        assert p.result.velocity.amplitude_ratio == pytest.approx(0.1, rel=0.05)
+        assert p.drive_v == pytest.approx(0.1 * LIGHT_DC_V / abs(h), rel=0.06)
+        assert p.identity["model"] == "pulse"
+    assert isinstance(events[-1], SweepFinished) and events[-1].reason == "complete"
+    assert dev.drive_status().amplitude_v == 0.0 and dev.guard.clip_events == 0
