@@ -32,7 +32,7 @@ def wait_for(engine: Any) -> None:
     interrupts = 0
     while True:
         try:
-            if engine.join(None):
+            if engine.join(0.25):
                 return
         except KeyboardInterrupt:
             interrupts += 1

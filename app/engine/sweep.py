@@ -152,6 +152,7 @@ class SweepEngine:
         self.tuning_history: dict[int, tuple[tuple[float, float, float], ...]] = {}
         self._cmd = _Commands()
         self._thread: threading.Thread | None = None
+        self._ended = threading.Event()
         self._pending: np.ndarray | None = None
         self._channels: tuple[str, ...] = ()
         self._fs = 1.0
@@ -196,22 +197,32 @@ class SweepEngine:
             self._cmd.cond.notify_all()
 
     def start(self) -> threading.Thread:
+        self._ended.clear()
         self._thread = threading.Thread(target=self._run_quietly, name="sweep-engine", daemon=True)
         self._thread.start()
         return self._thread
 
     def join(self, timeout_s: float | None = None) -> bool:
-        """Wait for a started sweep; True when it has ended."""
+        """Wait for a started sweep; True when it has ended.
+
+        Waits on an event set by the worker as its very last step, not on Thread.join: a
+        Ctrl-C that interrupts Thread.join can leave the thread looking finished while it
+        still runs (CPython 3.11), and then the caller would close the writer under it.
+        """
         if self._thread is None:
             return True
-        self._thread.join(timeout_s)
-        return not self._thread.is_alive()
+        if not self._ended.wait(timeout_s):
+            return False
+        self._thread.join(1.0)
+        return True
 
     def _run_quietly(self) -> None:
         try:
             self.run()
         except BaseException as exc:  # kept for the caller; never raised on the worker thread
             self.error = exc
+        finally:
+            self._ended.set()
 
     # ================================================================== the run
     def run(self) -> str:

@@ -1,8 +1,8 @@
 """kill -9 at random moments, then reopen and resume: no acknowledged point is lost.
 
-A real headless sweep (the simulated burner through the sweep engine, started as
-``python -m app.cli resume RUN --fast`` on a freshly created run folder) is killed with
-SIGKILL at seeded random moments. Because the writer commits an attempt's index row
+A real headless sweep (``python -m app.cli sweep PLAN --out RUN --fast``: the simulated
+burner through the sweep engine and the run writer; later rounds continue it with
+``python -m app.cli resume RUN --fast``) is killed with SIGKILL at seeded random moments. Because the writer commits an attempt's index row
 only after its record file is complete, and acknowledges only after the commit, every
 attempt seen in the index before a kill must reopen intact: size and sha256 (FIPS 180-4)
 as indexed, and every sample readable through HDF5's fletcher32 filter. Finally the run
@@ -22,9 +22,7 @@ from pathlib import Path
 
 import pytest
 
-from app.engine.events import EventBus
 from app.storage.reader import open_run
-from app.storage.writer import RunWriter
 
 ROOT = Path(__file__).resolve().parents[2]
 PLAN = """name = "crash test"
@@ -52,8 +50,13 @@ def committed_attempts(run_dir: Path) -> set[str]:
         return set()
 
 
-def start_sweep(run_dir: Path) -> subprocess.Popen:
-    return subprocess.Popen([sys.executable, "-m", "app.cli", "resume", str(run_dir), "--fast"], cwd=ROOT,
+def start_sweep(run_dir: Path, plan: Path) -> subprocess.Popen:
+    if (run_dir / "index.sqlite").exists():
+        cmd = ["resume", str(run_dir), "--fast"]
+    else:
+        cmd = ["sweep", str(plan), "--rig", str(ROOT / "configs" / "demo-rig.toml"),
+               "--scenario", str(ROOT / "configs" / "demo-scenario.toml"), "--out", str(run_dir), "--fast"]
+    return subprocess.Popen([sys.executable, "-m", "app.cli", *cmd], cwd=ROOT,
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
 
 
@@ -63,13 +66,11 @@ def test_sigkill_loses_no_acknowledged_point_and_resume_completes(tmp_path: Path
     plan = tmp_path / "plan.toml"
     plan.write_text(PLAN)
     run_dir = tmp_path / "run"
-    RunWriter(run_dir, ROOT / "configs" / "demo-rig.toml", plan, EventBus(),
-              scenario_path=ROOT / "configs" / "demo-scenario.toml", options={"backend": "simulated", "fast": "1"})
     rng = random.Random(20240607)            # fixed seed: the kill moments are reproducible
     seen: set[str] = set()
     kills = 0
     for _ in range(4):
-        proc = start_sweep(run_dir)
+        proc = start_sweep(run_dir, plan)
         # a random moment: after 0 or 1 more stored points, then 0-300 ms into the next one
         target = len(committed_attempts(run_dir)) + rng.randint(0, 1)
         while len(committed_attempts(run_dir)) < target and proc.poll() is None:
