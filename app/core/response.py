@@ -220,6 +220,8 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
         "light_max_v": float(np.max(arr[prep.light_row])),
         "relative_uncertainty": sigma_rel,
     }
+    # SNR of every channel at the forcing frequency, by channel name.
+    figures.update({f"snr_db_ch_{name}": float(db) for name, db in zip(channels, fit.snr_db)})
     figures.update(quality.drift_figures(fit, arr, lambda f: _velocity_estimate(f, prep, rig, mean), prep.light_row))
     if not vel.any_pair_in_band:
         warnings.append(f"at {freq_hz:g} Hz no sensor pair lies in its usable band (0.1π < ks < 0.8π)")

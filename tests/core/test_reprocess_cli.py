@@ -71,3 +71,26 @@ def test_bad_csv_gets_a_named_error(tmp_path, capsys, record, mutate, expected):
 def test_missing_file_is_a_plain_error(tmp_path, capsys):
     assert main(["reprocess", str(tmp_path / "none.csv"), "--rig", str(RIG)]) == 2
     assert "file not found" in capsys.readouterr().err
+
+
+def test_hdf5_record_from_a_run_reprocesses_to_its_stored_point(tmp_path, capsys):
+    # A record written by the run writer during a real (simulated, fast) sweep: reprocessing
+    # the raw file with the same rig reproduces the point the sweep stored.
+    import pandas as pd
+
+    plan = tmp_path / "plan.toml"
+    plan.write_text('name = "one point"\n[frequencies]\nvalues = ["330 Hz"]\n[amplitude]\nvalues = [0.05]\n'
+                    'basis = "peak"\n[timing]\nrecord = "1 s"\nsettle = "0.2 s"\ntuning_window = "0.2 s"\n')
+    run_dir = tmp_path / "run"
+    assert main(["sweep", str(plan), "--rig", str(RIG), "--out", str(run_dir), "--fast", "--seed", "2"]) == 0
+    records = sorted((run_dir / "records").glob("*.h5"))
+    assert len(records) == 1
+    assert main(["export", str(run_dir), "--out", str(tmp_path / "export")]) == 0
+    stored = pd.read_csv(tmp_path / "export" / "points.csv").iloc[0]
+    capsys.readouterr()
+    assert main(["reprocess", str(records[0]), "--rig", str(RIG), "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["frequency_source"] == "from the record"
+    assert out["frequency_hz"] == pytest.approx(330.0)
+    assert out["gain"] == pytest.approx(stored["gain"], rel=1e-9)
+    assert out["phase_rad"] == pytest.approx(stored["phase_rad"], rel=1e-9)
