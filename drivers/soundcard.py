@@ -27,6 +27,13 @@ estimate. Blocks are *not* shifted: input samples stay contiguous and every bloc
 the delay (:class:`SoundCardBlock`), and its drive frequency/amplitude are those of the drive
 that reached the inputs in that block (the played drive ``delay`` samples earlier).
 
+Counts (``Block.overflows``): the stream's status flags (input/output overflow and
+underflow), callbacks that found the output ring short, a capture ring overrun, and a
+glitch seen on the reference (the delay moved by more than two samples, or the reference no
+longer matches the drive at the known delay: a gap the server or driver did not flag). The
+first callbacks of a duplex stream are flagged while its input starts, so the acquisition
+starts at the first clean callback (:attr:`SoundCard.first_frame`).
+
 Rig file, ``[hardware.soundcard]`` (channel numbers count from 1, as printed on cards)::
 
     device = "pulse"               # PortAudio device name (substring) or index; default: system default
@@ -74,6 +81,8 @@ CAPTURE_S = 10.0          # capture ring length: the owner may fall this far beh
 OUT_RING_S = 1.0          # output ring length (the lead is a fraction of it)
 RENDER_CHUNK = 256        # frames rendered per step of the renderer thread
 MIN_CORRELATION = 0.9     # below this the reference does not follow the drive: delay not measured
+GLITCH_CORRELATION = 0.98 # a clean electrical loopback stays above this; lower means a gap in the chain
+MIN_DRIVE_RMS = 1e-3      # digital rms of the played drive below which no delay is measured
 
 
 # ============================================================================ configuration
@@ -338,6 +347,7 @@ class SoundCard:
         self._settle_mark = 0             # capture index by which the last ramp has been played
         self._delay: int | None = None
         self._lost = 0
+        self._origin = -1                 # capture index of start_index 0 (set by the callback)
 
     # ------------------------------------------------------------------ identity
     def identity(self) -> dict[str, str]:
@@ -395,9 +405,11 @@ class SoundCard:
         self._cap[:frames - first, n_in] = outdata[first:, drive_col]
         self._cap_flags[p:p + first] = 0
         self._cap_flags[:frames - first] = 0
-        self._cap_flags[p] = (int(status.input_overflow) + int(status.input_underflow)
-                              + int(status.output_underflow) + int(status.output_overflow)
-                              + int(not halted and avail < frames))
+        flags = (int(status.input_overflow) + int(status.input_underflow) + int(status.output_underflow)
+                 + int(status.output_overflow) + int(not halted and avail < frames))
+        self._cap_flags[p] = flags
+        if self._origin < 0 and flags == 0:
+            self._origin = w                    # the first clean callback: acquisition starts here
         self._cap_w = w + frames
 
     # ------------------------------------------------------------------ renderer thread
@@ -462,6 +474,19 @@ class SoundCard:
         while self._out_w < self._lead_n and time.monotonic() < deadline:
             time.sleep(0.002)             # output lead ready before the first callback
         self._stream.start()
+        # Duplex streams flag the first callbacks (PortAudio zero-fills the input while the
+        # input side starts); the acquisition starts at the first clean callback.
+        deadline = time.monotonic() + 1.0
+        while self._origin < 0 and time.monotonic() < deadline:
+            time.sleep(0.005)
+        if self._origin < 0:
+            self._origin = 0              # never clean: start at once and let the counts show it
+        self._read = self._origin
+
+    @property
+    def first_frame(self) -> int:
+        """Stream frame (counted from the stream start, output and input alike) of start_index 0."""
+        return max(self._origin, 0)
 
     def read_block(self, timeout_s: float = 2.0) -> SoundCardBlock:
         """The next block of the rig's block duration, in volts; BackendTimeout if none comes in time."""
@@ -483,10 +508,10 @@ class SoundCard:
         self._read = start + n
         data = raw[:, self._in_cols].T.astype(np.float64) * self._scale
         drive_played = raw[:, -1]
-        delay, rho = self._measure_delay(data, start, n)
+        delay, rho, glitch = self._measure_delay(data, start, n)
         freq_hz, amp_v = self._drive_at(start + n, drive_played)
         return SoundCardBlock(data=np.ascontiguousarray(data), channels=self._channels, sample_rate_hz=self._fs,
-                              start_index=start, overflows=flags, drive_freq_hz=freq_hz,
+                              start_index=start - self._origin, overflows=flags + int(glitch), drive_freq_hz=freq_hz,
                               drive_amplitude_v=amp_v, delay_samples=-1 if self._delay is None else self._delay,
                               delay_measured=delay is not None, correlation=rho)
 
@@ -503,20 +528,30 @@ class SoundCard:
         idx = (start + np.arange(n)) % ring.shape[0]
         return ring[idx]
 
-    def _measure_delay(self, data: np.ndarray, start: int, n: int) -> tuple[int | None, float]:
+    def _measure_delay(self, data: np.ndarray, start: int, n: int) -> tuple[int | None, float, bool]:
+        """(delay found on this block or None, its ρ, glitch): a glitch counts as one overflow.
+
+        A glitch (a gap somewhere in the output→input chain) shows as the tracked delay moving by
+        more than two samples, or the reference no longer matching the drive at the known delay.
+        """
         if self._ref_row is None or start < self._max_lag:
-            return None, math.nan
+            return None, math.nan, False
         history = self._ring_rows(self._cap[:, -1], start - self._max_lag, n + self._max_lag).astype(np.float64)
         x = data[self._ref_row]
-        if not np.any(history) or not np.any(x):
-            return None, math.nan
+        d = self._delay if self._delay is not None else 0
+        aligned = history[self._max_lag - d:self._max_lag - d + n]
+        if float(np.sqrt(np.mean(aligned ** 2))) < MIN_DRIVE_RMS or not np.any(x):
+            return None, math.nan, False
         rho = normalised_xcorr(x, history, self._max_lag)
         freq = self.guard.status().freq_hz
         period = self._fs / freq if freq > 0 else math.nan
-        delay = pick_delay(rho, self._delay, period)
+        previous = self._delay
+        delay = pick_delay(rho, previous, period)
+        peak = float(rho[delay]) if delay is not None else float(rho.max())
         if delay is not None:
             self._delay = delay
-        return delay, float(rho.max())
+        glitch = previous is not None and (delay is None or abs(delay - previous) > 2 or peak < GLITCH_CORRELATION)
+        return delay, peak, glitch
 
     def _drive_at(self, end: int, drive_played: np.ndarray) -> tuple[float, float]:
         """Frequency and peak amplitude of the drive that reached the inputs by frame ``end``."""
@@ -564,6 +599,8 @@ class SoundCard:
             while self._stream.active and self._out_r < rendered and time.monotonic() < deadline:
                 time.sleep(0.01)          # the callback has taken the end of the ramp
             time.sleep(min(0.5, float(self._stream.latency[1])))   # and the device has played it
+        except self._sd.PortAudioError:
+            pass   # PortAudio already shut down (interpreter exit): nothing plays any more
         finally:
             self._close()
 

@@ -125,10 +125,15 @@ def settle(dev: SoundCard, timeout_s: float = 5.0) -> list[SoundCardBlock]:
     return blocks
 
 
-def record(dev: SoundCard, n_blocks: int) -> tuple[np.ndarray, list[SoundCardBlock]]:
-    blocks = [dev.read_block(timeout_s=5.0) for _ in range(n_blocks)]
-    for a, b in zip(blocks, blocks[1:]):
-        assert b.start_index == a.start_index + a.n_samples   # contiguous, no gap
+def record(dev: SoundCard, n_blocks: int, attempts: int = 4) -> tuple[np.ndarray, list[SoundCardBlock]]:
+    """``n_blocks`` contiguous blocks; taken again (as an operator would) when the back-end counted
+    an overflow or glitch in them, which a loaded machine can cause."""
+    for _ in range(attempts):
+        blocks = [dev.read_block(timeout_s=5.0) for _ in range(n_blocks)]
+        for a, b in zip(blocks, blocks[1:]):
+            assert b.start_index == a.start_index + a.n_samples   # contiguous, no gap
+        if attempts == 1 or not any(b.overflows for b in blocks):
+            break
     return np.concatenate([b.data for b in blocks], axis=1), blocks
 
 
@@ -172,7 +177,7 @@ def test_delay_is_measured_on_every_block_and_aligns_the_reference(card: Loopbac
     # shifting the played drive by the delay reproduces the reference input sample by sample
     played = np.concatenate(card.rendered)
     for b in steady:
-        start = b.start_index - d
+        start = card.first_frame + b.start_index - d
         expected = played[start:start + b.n_samples]
         assert np.max(np.abs(b.channel("drv_ref") - expected)) <= 2 * LSB
 
@@ -208,7 +213,7 @@ def test_starved_output_is_counted_in_the_blocks(card: LoopbackCard) -> None:
     settle(card)
     _, clean = record(card, 4)
     card.stall_once_s = 0.6                        # longer than the 0.2 s output lead
-    _, stalled = record(card, 20)
+    _, stalled = record(card, 20, attempts=1)
     assert sum(b.overflows for b in stalled) >= 1
     assert all(isinstance(b.overflows, int) and b.overflows >= 0 for b in clean + stalled)
 
@@ -273,20 +278,10 @@ def loop_evaluate(data: np.ndarray, channels: tuple[str, ...], fs: float, freq_h
     return SimpleNamespace(velocity=loop_measure(data, channels, fs, freq_hz, rig), transfer=h, quality={})
 
 
-@pytest.mark.slow
-def test_headless_sweep_by_the_engine_recovers_the_transfer() -> None:
-    from app.engine.events import EventBus, PointSettled, SweepFinished
+def _sweep_once(plan: Any, rig: Rig) -> tuple[str, list[Any], FlameCard]:
+    from app.engine.events import EventBus
     from app.engine.sweep import SweepEngine
-    from app.plan import plan_from_dict
 
-    plan = plan_from_dict({
-        "name": "sound-card loopback",
-        "frequencies": {"values": [300.0, 900.0]},
-        "amplitude": {"values": [0.1], "basis": "peak"},
-        "timing": {"record": 0.5, "settle": 0.1, "tuning_window": 0.2, "tuning_discard": 0.05},
-        "tuning": {"tolerance": 0.05, "max_steps": 8},
-    }, "<loopback plan>")
-    rig = make_rig()
     events: list[Any] = []
     bus = EventBus()
     bus.subscribe(events.append)
@@ -297,9 +292,29 @@ def test_headless_sweep_by_the_engine_recovers_the_transfer() -> None:
         reason = engine.run()
     finally:
         dev.stop()
+    return reason, events, dev
+
+
+@pytest.mark.slow
+def test_headless_sweep_by_the_engine_recovers_the_transfer() -> None:
+    from app.engine.events import PointSettled, SweepFinished
+    from app.plan import plan_from_dict
+
+    plan = plan_from_dict({
+        "name": "sound-card loopback",
+        "frequencies": {"values": [300.0, 900.0]},
+        "amplitude": {"values": [0.1], "basis": "peak"},
+        "timing": {"record": 0.5, "settle": 0.1, "tuning_window": 0.2, "tuning_discard": 0.05},
+        "tuning": {"tolerance": 0.05, "max_steps": 8},
+    }, "<loopback plan>")
+    rig = make_rig()
+    for _ in range(3):   # a sweep whose points counted overflows/glitches is run again (loaded machine)
+        reason, events, dev = _sweep_once(plan, rig)
+        settled = [e for e in events if isinstance(e, PointSettled)]
+        if not any(p.overflows for p in settled):
+            break
     faults = [e for e in events if type(e).__name__ == "FaultRaised"]
     assert reason == "complete", faults
-    settled = [e for e in events if isinstance(e, PointSettled)]
     assert [p.freq_hz for p in settled] == [300.0, 900.0]
     for p in settled:
         h = true_h(p.freq_hz)
@@ -312,3 +327,30 @@ def test_headless_sweep_by_the_engine_recovers_the_transfer() -> None:
         assert p.identity["model"] == "pulse"
     assert isinstance(events[-1], SweepFinished) and events[-1].reason == "complete"
     assert dev.drive_status().amplitude_v == 0.0 and dev.guard.clip_events == 0
+
+
+def test_a_gap_the_server_does_not_flag_is_counted_as_a_glitch(card: LoopbackCard) -> None:
+    """Suspending the null sink for 0.3 s breaks the loop inside the server; PortAudio sees no
+    flag, but the reference stops matching the drive at the known delay."""
+    card.set_drive(400.0, 0.5)
+    settle(card)
+    _, before = record(card, 4)
+    assert all(b.delay_measured for b in before)
+
+    def suspend() -> None:
+        try:
+            subprocess.run(["pactl", "suspend-sink", "rig", "1"], capture_output=True, timeout=10)
+            time.sleep(0.3)
+        finally:
+            subprocess.run(["pactl", "suspend-sink", "rig", "0"], capture_output=True, timeout=10)
+
+    import threading
+
+    gap = threading.Thread(target=suspend)
+    gap.start()
+    try:
+        after = [card.read_block(timeout_s=10.0) for _ in range(16)]   # 0.8 s
+    finally:
+        gap.join(15.0)
+    assert sum(b.overflows for b in after) >= 1
+    assert any(not b.delay_measured or b.delay_samples != before[0].delay_samples for b in after)
