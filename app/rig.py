@@ -81,6 +81,7 @@ class PressureSensor(_Strict):
     position: Length
     sensitivity: Sensitivity
     weight: float = Field(default=1.0, gt=0.0)
+    position_uncertainty: Annotated[float, _q("length"), Field(ge=0.0)] = 0.0
     calibration: tuple[CalibrationPoint, ...] = ()
 
     def correction(self, freq_hz: float) -> complex:
@@ -151,6 +152,7 @@ class Flow(_Strict):
 
 class Gas(_Strict):
     temperature: Temperature
+    temperature_uncertainty: Annotated[float, _q("temperature_difference"), Field(ge=0.0)] = 0.0
     pressure: Pressure = 101325.0
     temperature_at_reference: Temperature | None = None
     composition: Composition | None = None

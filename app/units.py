@@ -14,6 +14,7 @@ _UNITS: dict[str, dict[str, tuple[float, float]]] = {
     "length": {"m": (1.0, 0.0), "cm": (1e-2, 0.0), "mm": (1e-3, 0.0), "in": (0.0254, 0.0)},
     "temperature": {"K": (1.0, 0.0), "degC": (1.0, 273.15), "°C": (1.0, 273.15), "C": (1.0, 273.15),
                     "degF": (5.0 / 9.0, 273.15 - 32.0 * 5.0 / 9.0)},
+    "temperature_difference": {"K": (1.0, 0.0), "degC": (1.0, 0.0), "°C": (1.0, 0.0), "C": (1.0, 0.0)},
     "pressure": {"Pa": (1.0, 0.0), "hPa": (100.0, 0.0), "kPa": (1e3, 0.0), "MPa": (1e6, 0.0),
                  "mbar": (100.0, 0.0), "bar": (1e5, 0.0), "atm": (101325.0, 0.0), "psi": (6894.757293168, 0.0)},
     "voltage": {"V": (1.0, 0.0), "mV": (1e-3, 0.0)},
@@ -25,7 +26,7 @@ _UNITS: dict[str, dict[str, tuple[float, float]]] = {
     "angle": {"rad": (1.0, 0.0), "deg": (3.141592653589793 / 180.0, 0.0)},
 }
 
-SI_UNIT = {"length": "m", "temperature": "K", "pressure": "Pa", "voltage": "V", "sensitivity": "V/Pa",
+SI_UNIT = {"length": "m", "temperature": "K", "temperature_difference": "K", "pressure": "Pa", "voltage": "V", "sensitivity": "V/Pa",
            "frequency": "Hz", "time": "s", "volume_flow": "m3/s", "angle": "rad"}
 
 _QUANTITY = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(\S.*?)?\s*$")

@@ -14,7 +14,7 @@ Must not import Qt, pyqtgraph, matplotlib, h5py, drivers, the engine or storage.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Mapping, Sequence
 
 import numpy as np
@@ -149,6 +149,35 @@ def _velocity_from_fit(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.Me
     return complex(u_ref), float(var_u), wf
 
 
+def _systematic_variance(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow,
+                         vel_ratio: complex) -> float:
+    """E|δ(û/ū)|² from the rig file's stated standard uncertainties of the gas temperature and
+    of each sensor's position (GUM type B), by finite differences through the same fit.
+
+    A wrong temperature shifts the speed of sound, the density and the metered mean velocity;
+    a wrong position shifts the plane-wave fit. The errors are small, so each contribution is
+    linear in its error and they add as independent variances.
+    """
+    total = 0.0
+    d_t = rig.gas.temperature_uncertainty
+    if d_t > 0:
+        g = rig.gas
+        t_ref = None if g.temperature_at_reference is None else g.temperature_at_reference + d_t
+        warm = rig.model_copy(update={"gas": g.model_copy(update={"temperature": g.temperature + d_t,
+                                                                    "temperature_at_reference": t_ref})})
+        mean_w = gas.mean_flow(warm)
+        u_w, _, _ = _velocity_from_fit(fit, prep, warm, mean_w, medium_from(mean_w))
+        total += abs(u_w / mean_w.velocity_reference_m_s - vel_ratio) ** 2
+    medium = medium_from(mean)
+    for i, sensor in enumerate(rig.pressure_sensors):
+        if sensor.position_uncertainty > 0:
+            moved = prep.positions_m.copy()
+            moved[i] += sensor.position_uncertainty
+            u_m, _, _ = _velocity_from_fit(fit, replace(prep, positions_m=moved), rig, mean, medium)
+            total += abs(u_m / mean.velocity_reference_m_s - vel_ratio) ** 2
+    return float(total)
+
+
 def _mean_flow(rig: Rig, mean_flow: gas.MeanFlow | None) -> gas.MeanFlow:
     return mean_flow if mean_flow is not None else gas.mean_flow(rig)
 
@@ -201,9 +230,13 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     if vel_ratio == 0:
         raise RecordError("velocity amplitude at the reference plane is zero: no forcing in this record")
     ftf = light_ratio / vel_ratio
-    # First-order propagation of independent complex errors: δF/F = δL/L − δU/U.
-    rel_var = var_light_ratio / max(abs(light_ratio) ** 2, 1e-300) + var_vel_ratio / abs(vel_ratio) ** 2
-    sigma_rel = float(np.sqrt(rel_var / 2.0))
+    sys_var = _systematic_variance(fit, prep, rig, mean, vel_ratio)
+    # First-order propagation of independent complex errors: δF/F = δL/L − δU/U; the random
+    # part from each channel's noise near f, the systematic part from the rig file's stated
+    # temperature and position uncertainties.
+    rel_var_random = var_light_ratio / max(abs(light_ratio) ** 2, 1e-300) + var_vel_ratio / abs(vel_ratio) ** 2
+    rel_var_sys = sys_var / abs(vel_ratio) ** 2
+    sigma_rel = float(np.sqrt((rel_var_random + rel_var_sys) / 2.0))
     gain = abs(ftf)
 
     u2, _, _ = _velocity_from_fit(fit, prep, rig, mean, medium, harmonic=2)
@@ -219,6 +252,8 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
         "light_mean_v": float(fit.offset[prep.light_row]),
         "light_max_v": float(np.max(arr[prep.light_row])),
         "relative_uncertainty": sigma_rel,
+        "relative_uncertainty_random": float(np.sqrt(rel_var_random / 2.0)),
+        "relative_uncertainty_systematic": float(np.sqrt(rel_var_sys / 2.0)),
     }
     # SNR of every channel at the forcing frequency, by channel name.
     figures.update({f"snr_db_ch_{name}": float(db) for name, db in zip(channels, fit.snr_db)})

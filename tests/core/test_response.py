@@ -21,7 +21,10 @@ from synth import gaussian_delay, make_record, n_tau
 
 @pytest.fixture(scope="module")
 def rig():
-    return load_rig(Path(__file__).resolve().parents[2] / "configs" / "demo-rig.toml")
+    """The demo rig without its stated systematic uncertainties: the synthetic records here
+    are made with exact positions and temperature, so only random errors are present."""
+    return _with(load_rig(Path(__file__).resolve().parents[2] / "configs" / "demo-rig.toml"),
+                 temperature_uncertainty=0.0, position_uncertainty=0.0)
 
 
 @pytest.fixture(scope="module")
@@ -133,3 +136,46 @@ def test_no_flame_light_is_reported(rig, mean):
     rec = make_record(rig, 200.0, n_tau(1.0, 2e-3), light_mean_v=0.0, light_noise_v=1e-4)
     with pytest.raises(RecordError, match="dark offset"):
         evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, 200.0, rig, mean)
+
+
+def _with(rig, **gas_or_sensor):
+    data = rig.model_dump()
+    data.pop("source_path")
+    if "temperature_uncertainty" in gas_or_sensor:
+        data["gas"]["temperature_uncertainty"] = gas_or_sensor["temperature_uncertainty"]
+    if "temperature" in gas_or_sensor:
+        data["gas"]["temperature"] = gas_or_sensor["temperature"]
+    if "position_uncertainty" in gas_or_sensor:
+        for s in data["pressure_sensors"]:
+            s["position_uncertainty"] = gas_or_sensor["position_uncertainty"]
+    from app.rig import rig_from_dict
+
+    return rig_from_dict(data, "variant")
+
+
+def test_systematic_budget_matches_an_actual_temperature_error(rig):
+    # A record made in gas 1 K warmer than the rig file says is analysed with the nominal rig:
+    # the shift of |û/ū| it causes must match the budget's 1σ systematic term for a stated
+    # 1 K uncertainty (linearity of small errors; GUM type B propagation). Domain fact (from
+    # memory): 1 K or 1 mm shifts |û| by about a percent at 800 Hz.
+    f = 800.0
+    warm = _with(rig, temperature=rig.gas.temperature + 1.0)
+    rec = make_record(warm, f, n_tau(1.0, 2e-3), noise_pa=1e-4, light_noise_v=1e-6, white=True)
+    nominal = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, f, rig)
+    budget = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, f, _with(rig, temperature_uncertainty=1.0))
+    shift = abs(nominal.velocity.amplitude_ratio / rec.true_ratio - 1.0)
+    sys_rel = budget.quality["relative_uncertainty_systematic"] * np.sqrt(2.0)   # |δU|/|U| for 1σ
+    assert 1e-3 < sys_rel < 0.05
+    assert shift <= sys_rel * 1.05           # the modulus shift is at most the complex shift
+    assert shift >= 0.3 * sys_rel
+    assert budget.gain_ci95 > nominal.gain_ci95
+    assert nominal.quality["relative_uncertainty_systematic"] == 0.0
+
+
+def test_position_uncertainty_widens_the_interval(rig):
+    f = 800.0
+    rec = make_record(rig, f, n_tau(1.0, 2e-3), noise_pa=1e-3, light_noise_v=1e-5, white=True)
+    plain = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, f, rig)
+    mm = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, f, _with(rig, position_uncertainty="1 mm"))
+    assert 1e-3 < mm.quality["relative_uncertainty_systematic"] < 0.05
+    assert mm.phase_ci95_rad > plain.phase_ci95_rad
