@@ -1,0 +1,507 @@
+"""SCPI function generators through pyvisa: a sine drive set by standard commands only.
+
+:class:`ScpiGenerator` implements SineDrive, Identified, Stoppable and EmergencyHalt with the
+IEEE 488.2 common commands and the standard SCPI source subsystem, no vendor dialect:
+
+* on opening: ``*RST``, ``*CLS``, ``*IDN?`` (kept), ``SOUR:FUNC SIN``, ``SOUR:VOLT:UNIT``
+  (VPP, VRMS or DBM, converted from our peak volts: Vpp = 2 Vp, Vrms = Vp/√2, dBm into the
+  configured load), ``SOUR:VOLT:OFFS 0``, ``OUTP OFF``; then ``SYST:ERR?`` is drained until
+  it answers ``0,...`` and ``*OPC?`` is asked with a generous timeout;
+* a drive request goes through :class:`drivers.guard.CeilingGuard` and is carried out as a
+  ramp of discrete ``SOUR:VOLT`` steps from ``CeilingGuard.amplitude_schedule``; amplitudes
+  at zero (or below ``min_amplitude``) switch the output off, a frequency change happens at
+  zero; the error queue is drained after every batch and an entry becomes
+  :class:`InstrumentError` carrying the instrument's own text;
+* timeouts become :class:`drivers.errors.BackendTimeout`; after one the session is reopened,
+  so a late answer can never be read as the answer to the next query (the stale-answer
+  trap); a closed connection becomes :class:`InstrumentConnectionLost`;
+* raw-socket sessions get explicit termination and ``TCP_NODELAY`` on the pyvisa-py
+  session's socket (pyvisa-py leaves Nagle's algorithm on);
+* output off on ``stop()`` (ramped first), ``halt()`` (at once) and at exit
+  (:func:`drivers.safety.register`).
+
+:meth:`ScpiGenerator.actual_settings` reads back what the instrument really outputs
+(``SOUR:FREQ?``, ``SOUR:VOLT?``, ``OUTP?``). A generator only drives; pair it with a recorder
+(``drivers.scpi_recorder``) to run a sweep. Configuration: the rig file's ``[hardware.scpi]``
+table (docs/hardware.md).
+
+Imports: standard library, numpy (through the guard), ``app.rig``/``app.units``/
+``app.errors``, ``drivers.errors``/``guard``/``protocols``/``safety``, and pyvisa (lazily).
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import select
+import socket
+import threading
+import time
+from dataclasses import dataclass
+from importlib import metadata
+from typing import Any
+
+from app.errors import ConfigError
+from app.rig import Rig
+from app.units import parse_quantity
+from drivers import safety
+from drivers.errors import BackendTimeout, DriverError
+from drivers.guard import CeilingGuard
+from drivers.protocols import Availability, DriveStatus
+
+log = logging.getLogger(__name__)
+
+UNITS = ("VPP", "VRMS", "DBM")
+# The guard's notional clock for an instrument set by commands: only its Nyquist limit and
+# the quantisation of ramp steps depend on it, neither matters at 1 MHz.
+GUARD_RATE_HZ = 1e6
+_rm_lock = threading.Lock()
+_resource_managers: dict[str, Any] = {}
+
+
+class InstrumentError(DriverError):
+    """The instrument's error queue held an entry; the message carries its own text."""
+
+
+class InstrumentConnectionLost(DriverError):
+    """The connection to the instrument was closed or could not be made again."""
+
+
+# =========================================================================== units
+def peak_to_unit(peak_v: float, unit: str, load_ohm: float = 50.0) -> float:
+    """A sine's peak volts in the instrument's amplitude unit (VPP, VRMS or DBM into ``load_ohm``)."""
+    if unit == "VPP":
+        return 2.0 * peak_v
+    if unit == "VRMS":
+        return peak_v / math.sqrt(2.0)
+    if unit == "DBM":
+        if peak_v <= 0.0:
+            raise DriverError("SCPI generator: 0 V cannot be expressed in dBm (the output is switched off instead)")
+        return 10.0 * math.log10(peak_v * peak_v / 2.0 / load_ohm / 1e-3)
+    raise DriverError(f"SCPI generator: unknown amplitude unit {unit!r}; use one of {', '.join(UNITS)}")
+
+
+def unit_to_peak(value: float, unit: str, load_ohm: float = 50.0) -> float:
+    """Inverse of :func:`peak_to_unit`."""
+    if unit == "VPP":
+        return value / 2.0
+    if unit == "VRMS":
+        return value * math.sqrt(2.0)
+    if unit == "DBM":
+        return math.sqrt(2.0 * load_ohm * 1e-3 * 10.0 ** (value / 10.0))
+    raise DriverError(f"SCPI generator: unknown amplitude unit {unit!r}; use one of {', '.join(UNITS)}")
+
+
+# =========================================================================== configuration
+@dataclass(frozen=True)
+class ScpiConfig:
+    """The ``[hardware.scpi]`` table. SI units; ``min_amplitude_v`` is peak volts."""
+
+    resource: str
+    visa_library: str = "@py"
+    timeout_s: float = 5.0
+    opc_timeout_s: float = 30.0
+    read_termination: str = "\n"
+    write_termination: str = "\n"
+    amplitude_unit: str = "VPP"
+    load_ohm: float = 50.0
+    step_s: float = 0.05
+    min_amplitude_v: float = 0.0
+    reset: bool = True
+
+    KEYS = ("resource", "visa_library", "timeout", "opc_timeout", "read_termination", "write_termination",
+            "amplitude_unit", "load", "ramp_step", "min_amplitude", "reset")
+
+    @classmethod
+    def from_rig(cls, rig: Rig, **overrides: Any) -> "ScpiConfig":
+        table = {**rig.hardware.get("scpi", {}), **overrides}
+        problems = [f"hardware.scpi.{k}: unknown key (known: {', '.join(cls.KEYS)})" for k in table
+                    if k not in cls.KEYS]
+        resource = table.get("resource")
+        if not isinstance(resource, str) or not resource.strip():
+            problems.append("hardware.scpi.resource: the instrument's VISA address is missing "
+                            "(e.g. \"TCPIP0::192.168.0.20::5025::SOCKET\")")
+        unit = str(table.get("amplitude_unit", "VPP")).upper()
+        if unit not in UNITS:
+            problems.append(f"hardware.scpi.amplitude_unit: {unit!r} is not one of {', '.join(UNITS)}")
+        load = table.get("load", 50.0)
+        if isinstance(load, str):
+            load = load.lower().removesuffix("ohm").strip()
+        try:
+            load_ohm = float(load)
+            assert load_ohm > 0
+        except (TypeError, ValueError, AssertionError):
+            problems.append(f"hardware.scpi.load: expected a resistance in ohms > 0, got {table.get('load')!r}")
+            load_ohm = 50.0
+        q = {name: _quantity(table, key, kind, default, problems) for name, key, kind, default in (
+            ("timeout_s", "timeout", "time", 5.0), ("opc_timeout_s", "opc_timeout", "time", 30.0),
+            ("step_s", "ramp_step", "time", 0.05), ("min_amplitude_v", "min_amplitude", "voltage", 0.0))}
+        if q["step_s"] <= 0 or q["timeout_s"] <= 0:
+            problems.append("hardware.scpi.timeout and ramp_step must be > 0")
+        if problems:
+            raise ConfigError(rig.source_path or "<rig>", problems)
+        return cls(resource=str(resource).strip(), visa_library=str(table.get("visa_library", "@py")),
+                   read_termination=str(table.get("read_termination", "\n")),
+                   write_termination=str(table.get("write_termination", "\n")),
+                   amplitude_unit=unit, load_ohm=load_ohm, reset=bool(table.get("reset", True)), **q)
+
+
+def _quantity(table: dict, key: str, kind: str, default: float, problems: list[str]) -> float:
+    try:
+        return float(parse_quantity(table[key], kind)) if key in table else float(default)
+    except ValueError as exc:
+        problems.append(f"hardware.scpi.{key}: {exc}")
+        return float(default)
+
+
+def resource_manager(visa_library: str = "@py") -> Any:
+    """One pyvisa ResourceManager per VISA library per process."""
+    import pyvisa
+
+    with _rm_lock:
+        if visa_library not in _resource_managers:
+            _resource_managers[visa_library] = pyvisa.ResourceManager(visa_library)
+        return _resource_managers[visa_library]
+
+
+@dataclass(frozen=True)
+class GeneratorSettings:
+    """What the instrument reports it outputs (read back, converted to peak volts)."""
+
+    freq_hz: float
+    amplitude_v: float
+    output_on: bool
+    unit: str
+
+
+# =========================================================================== the back-end
+class ScpiGenerator:
+    """SCPI function generator (pyvisa). Standard SCPI sine drive; the output never exceeds the ceiling."""
+
+    title = "SCPI function generator (pyvisa)"
+
+    def __init__(self, rig: Rig, **options: Any) -> None:
+        self.rig = rig
+        self.config = ScpiConfig.from_rig(rig, **options)
+        self.guard = CeilingGuard(rig.drive.ceiling, GUARD_RATE_HZ, rig.drive.ramp_time)
+        self._io = threading.Lock()            # one owner of the session at a time
+        self._halt_event = threading.Event()
+        self._inst: Any = None
+        self._idn = ""
+        self._nodelay = "not applicable"
+        self._sent_freq_hz = 0.0
+        self._sent_amp_v = 0.0
+        self._output_on = False
+        self._ramping = False
+        self._closed = False
+        with self._io:
+            self._open()
+            try:
+                self._initialise()
+            except BaseException:
+                self._close_session()
+                raise
+        safety.register(self)
+
+    # ------------------------------------------------------------------ availability
+    @classmethod
+    def probe(cls) -> Availability:
+        """pyvisa and a VISA library (pyvisa-py) importable; the address comes from the rig file."""
+        try:
+            import pyvisa  # noqa: F401
+        except ImportError as exc:
+            return Availability(False, f"pyvisa not installed ({exc}); pip install pyvisa pyvisa-py")
+        try:
+            import pyvisa_py  # noqa: F401
+            backend = f"pyvisa-py {metadata.version('pyvisa-py')}"
+        except ImportError:
+            backend = "no pyvisa-py; needs a vendor VISA library"
+        return Availability(True, f"pyvisa {metadata.version('pyvisa')} ({backend}); instrument address "
+                            f"from [hardware.scpi].resource", {"pyvisa": metadata.version("pyvisa")})
+
+    # ------------------------------------------------------------------ session
+    def _open(self) -> None:
+        import pyvisa
+
+        cfg = self.config
+        try:
+            self._inst = resource_manager(cfg.visa_library).open_resource(
+                cfg.resource, read_termination=cfg.read_termination, write_termination=cfg.write_termination,
+                timeout=round(cfg.timeout_s * 1000), open_timeout=round(cfg.timeout_s * 1000))
+        except pyvisa.errors.VisaIOError as exc:
+            raise InstrumentConnectionLost(f"SCPI generator {cfg.resource}: cannot open: {exc.description}") from None
+        except Exception as exc:   # pyvisa-py raises a plain Exception when the TCP connect fails
+            raise InstrumentConnectionLost(f"SCPI generator {cfg.resource}: cannot open: {exc}") from None
+        self._nodelay = self._set_nodelay()
+
+    def _socket(self) -> socket.socket | None:
+        """The pyvisa-py session's socket, or None for other VISA libraries and interfaces."""
+        try:
+            sock = self._inst.visalib.sessions[self._inst.session].interface
+        except Exception:   # noqa: BLE001 - any other library layout: no socket to tune
+            return None
+        return sock if isinstance(sock, socket.socket) else None
+
+    def _set_nodelay(self) -> str:
+        sock = self._socket()
+        if sock is None:
+            return "not applicable"
+        sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        return "on" if sock.getsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY) else "off"
+
+    def _peer_closed(self) -> bool:
+        sock = self._socket()
+        if sock is None:
+            return False
+        try:
+            readable, _, _ = select.select([sock], [], [], 0)
+            return bool(readable) and sock.recv(1, socket.MSG_PEEK) == b""
+        except OSError:
+            return True
+
+    def _close_session(self) -> None:
+        inst, self._inst = self._inst, None
+        if inst is not None:
+            try:
+                inst.close()
+            except Exception as exc:   # noqa: BLE001 - closing a broken session must not mask the fault
+                log.debug("closing the SCPI session failed: %r", exc)
+
+    def _reopen(self) -> None:
+        self._close_session()
+        self._open()
+
+    def _lost(self, doing: str) -> InstrumentConnectionLost:
+        return InstrumentConnectionLost(f"SCPI generator {self.config.resource}: the connection was lost while "
+                                        f"{doing}; check the cable/network and the instrument")
+
+    # ------------------------------------------------------------------ I/O (caller holds self._io)
+    def _write(self, command: str) -> None:
+        import pyvisa
+
+        if self._inst is None:
+            self._reopen()
+        if self._peer_closed():
+            raise self._lost(f"sending {command!r}")
+        try:
+            self._inst.write(command)
+        except (OSError, pyvisa.errors.VisaIOError):
+            raise self._lost(f"sending {command!r}") from None
+
+    def _query(self, command: str, timeout_s: float | None = None) -> str:
+        import pyvisa
+
+        if self._inst is None:
+            self._reopen()
+        if self._peer_closed():
+            raise self._lost(f"asking {command!r}")
+        wait_s = timeout_s or self.config.timeout_s
+        self._inst.timeout = round(wait_s * 1000)
+        try:
+            return str(self._inst.query(command)).strip()
+        except pyvisa.errors.VisaIOError as exc:
+            if exc.error_code != pyvisa.constants.StatusCode.error_timeout:
+                raise DriverError(f"SCPI generator {self.config.resource}: {command!r} failed: "
+                                  f"{exc.description}") from None
+            lost = self._peer_closed()
+            self._reopen()   # a late answer must never be read as the next one: new session
+            if lost:
+                raise self._lost(f"waiting for the answer to {command!r}") from None
+            raise BackendTimeout(f"SCPI generator {self.config.resource}: no answer to {command!r} within "
+                                 f"{wait_s:g} s (session reopened so a late answer cannot be misread)") from None
+        except OSError:
+            raise self._lost(f"asking {command!r}") from None
+        finally:
+            if self._inst is not None:
+                self._inst.timeout = round(self.config.timeout_s * 1000)
+
+    def _drain_errors(self, after: str) -> None:
+        """Read ``SYST:ERR?`` until it reports no error; raise with every entry found."""
+        found = []
+        for _ in range(64):
+            answer = self._query("SYST:ERR?")
+            code = answer.split(",", 1)[0].strip()
+            try:
+                if int(float(code)) == 0:
+                    break
+            except ValueError:
+                raise DriverError(f"SCPI generator {self.config.resource}: unreadable SYST:ERR? answer "
+                                  f"{answer!r}") from None
+            found.append(answer)
+        else:
+            found.append("(error queue did not empty after 64 reads)")
+        if found:
+            raise InstrumentError(f"SCPI generator {self.config.resource} reported {'; '.join(found)} after: {after}")
+
+    def _batch(self, commands: list[str], opc: bool = False) -> None:
+        for command in commands:
+            self._write(command)
+        self._drain_errors("; ".join(commands))
+        if opc:
+            answer = self._query("*OPC?", timeout_s=self.config.opc_timeout_s)
+            if answer.strip() not in ("1", "+1"):
+                raise DriverError(f"SCPI generator {self.config.resource}: *OPC? answered {answer!r}, not 1")
+
+    def _initialise(self) -> None:
+        cfg = self.config
+        if cfg.reset:
+            self._write("*RST")
+        self._write("*CLS")
+        self._idn = self._query("*IDN?")
+        self._batch(["SOUR:FUNC SIN", f"SOUR:VOLT:UNIT {cfg.amplitude_unit}", "SOUR:VOLT:OFFS 0", "OUTP OFF"],
+                    opc=True)
+        self._output_on = False
+        self._sent_freq_hz = self.actual_frequency_hz()
+
+    # ------------------------------------------------------------------ identity and read-back
+    def identity(self) -> dict[str, str]:
+        fields = [f.strip() for f in self._idn.split(",")] + ["", "", "", ""]
+        return {"maker": fields[0], "model": fields[1], "serial": fields[2], "firmware": fields[3],
+                "idn": self._idn, "resource": self.config.resource, "amplitude_unit": self.config.amplitude_unit,
+                "tcp_nodelay": self._nodelay, "pyvisa": metadata.version("pyvisa")}
+
+    def actual_frequency_hz(self) -> float:
+        return _float(self._query("SOUR:FREQ?"), "SOUR:FREQ?")
+
+    def actual_settings(self) -> GeneratorSettings:
+        """Frequency, peak amplitude and output state as the instrument reports them."""
+        with self._io:
+            freq = self.actual_frequency_hz()
+            unit = self._query("SOUR:VOLT:UNIT?").upper()
+            value = _float(self._query("SOUR:VOLT?"), "SOUR:VOLT?")
+            on = self._query("OUTP?").strip() in ("1", "ON", "+1")
+        return GeneratorSettings(freq_hz=freq, amplitude_v=unit_to_peak(value, unit, self.config.load_ohm),
+                                 output_on=on, unit=unit)
+
+    # ------------------------------------------------------------------ drive
+    def set_drive(self, freq_hz: float, amplitude_v: float) -> None:
+        """Ramp to ``amplitude_v`` peak volts at ``freq_hz`` in discrete steps; returns when done."""
+        with self._io:
+            if self._closed or self._halt_event.is_set():
+                raise DriverError("SCPI generator: halted or stopped; open the back-end again to drive")
+            self.guard.request(freq_hz, amplitude_v)      # refuses above the ceiling, changes nothing
+            self._ramping = True
+            try:
+                self._play(float(freq_hz))
+            finally:
+                self._ramping = False
+
+    def _play(self, freq_hz: float) -> None:
+        sent: list[str] = []
+        if freq_hz != self._sent_freq_hz and self._sent_amp_v == 0.0:
+            sent += self._send_frequency(freq_hz)
+        schedule = self._schedule()
+        for i, amp_v in enumerate(schedule):
+            if self._halt_event.is_set():
+                self._output_off_now()
+                return
+            sent += self._send_amplitude(float(amp_v))
+            if amp_v == 0.0 and freq_hz != self._sent_freq_hz:
+                sent += self._send_frequency(freq_hz)     # the guard switches frequency at an exact zero
+            if i < len(schedule) - 1 and self._halt_event.wait(self.config.step_s):
+                self._output_off_now()
+                return
+        self._drain_errors("; ".join(sent) or "drive request")
+
+    def _schedule(self) -> list[float]:
+        """Every amplitude step until the guard has settled (a ramp through zero for a frequency
+        change can need one step more than its duration suggests, as each leg is whole steps)."""
+        steps: list[float] = []
+        for _ in range(100):
+            duration_s = self.guard.time_to_settle_s()
+            if self.guard.settled() or duration_s <= 0.0:
+                return steps
+            steps += [float(a) for a in self.guard.amplitude_schedule(max(duration_s, self.config.step_s),
+                                                                       self.config.step_s)]
+        raise DriverError("SCPI generator: the ramp did not settle (a bug in the step schedule)")
+
+    def _send_frequency(self, freq_hz: float) -> list[str]:
+        command = f"SOUR:FREQ {freq_hz:.10g}"
+        self._write(command)
+        self._sent_freq_hz = freq_hz
+        return [command]
+
+    def _send_amplitude(self, amp_v: float) -> list[str]:
+        cfg, sent = self.config, []
+        if amp_v <= cfg.min_amplitude_v or amp_v == 0.0:
+            if self._output_on:
+                self._write("OUTP OFF")
+                sent.append("OUTP OFF")
+                self._output_on = False
+            self._sent_amp_v = 0.0
+            return sent
+        value = peak_to_unit(amp_v, cfg.amplitude_unit, cfg.load_ohm)
+        command = f"SOUR:VOLT {value:.10g}"
+        self._write(command)                    # amplitude first, so the output never shows an old one
+        sent.append(command)
+        if not self._output_on:
+            self._write("OUTP ON")
+            sent.append("OUTP ON")
+            self._output_on = True
+        self._sent_amp_v = amp_v
+        return sent
+
+    def _output_off_now(self) -> None:
+        self._write("OUTP OFF")
+        self._output_on = False
+        self._sent_amp_v = 0.0
+
+    def drive_status(self) -> DriveStatus:
+        g = self.guard.status()
+        return DriveStatus(freq_hz=self._sent_freq_hz, amplitude_v=self._sent_amp_v,
+                           target_amplitude_v=g.target_amplitude_v, ceiling_v=g.ceiling_v,
+                           ramping=self._ramping or g.ramping)
+
+    # ------------------------------------------------------------------ stopping
+    def halt(self) -> None:
+        """Output off at once. Never waits: if another thread is talking to the instrument, that
+        thread switches the output off at its next step (within one ramp step or one timeout)."""
+        self.guard.halt()
+        self._halt_event.set()
+        if self._io.acquire(blocking=False):
+            try:
+                if self._inst is not None:
+                    self._output_off_now()
+            except DriverError as exc:
+                log.error("SCPI generator: output off on halt failed: %s", exc)
+            finally:
+                self._io.release()
+
+    def stop(self) -> None:
+        """Ramp to zero, output off, close the session. Idempotent; errors are logged, then raised."""
+        if self._closed:
+            return
+        error: DriverError | None = None
+        try:
+            if not self._halt_event.is_set() and self._sent_amp_v > 0.0:
+                self.set_drive(self._sent_freq_hz, 0.0)
+        except DriverError as exc:
+            error = exc
+        with self._io:
+            self._closed = True
+            try:
+                self._output_off_after(error)
+            except DriverError as exc:
+                error = error or exc
+                log.error("SCPI generator: could not switch the output off: %s", exc)
+            finally:
+                self._close_session()
+        safety.unregister(self)
+        if error is not None:
+            raise error
+
+    def _output_off_after(self, error: DriverError | None) -> None:
+        if isinstance(error, (InstrumentConnectionLost, BackendTimeout)) or self._inst is None:
+            self._reopen()       # one fresh attempt to reach the instrument
+        self._output_off_now()
+
+
+def _float(answer: str, what: str) -> float:
+    try:
+        return float(answer.split(",")[0])
+    except ValueError:
+        raise DriverError(f"SCPI generator: unreadable answer {answer!r} to {what}") from None
+
+
+__all__ = ["GeneratorSettings", "InstrumentConnectionLost", "InstrumentError", "ScpiConfig", "ScpiGenerator",
+           "peak_to_unit", "resource_manager", "unit_to_peak"]

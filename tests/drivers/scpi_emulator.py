@@ -1,0 +1,276 @@
+"""A small SCPI function generator served on 127.0.0.1 over TCP, for testing the real protocol path.
+
+:class:`ScpiEmulator` listens on an ephemeral loopback port in a thread (one more thread per
+connection), reads newline-terminated messages and answers queries with a newline, like a
+raw-socket instrument (``TCPIP0::127.0.0.1::PORT::SOCKET``). It understands the IEEE 488.2
+common commands and the standard SCPI sine-generator subset, long and short mnemonics,
+case-insensitive, with the optional ``SOURce`` root:
+
+``*IDN?  *RST  *CLS  *OPC?  SYST:ERR?  SOUR:FUNC SIN|?  SOUR:FREQ x|?  SOUR:VOLT x|?
+SOUR:VOLT:UNIT VPP|VRMS|DBM|?  SOUR:VOLT:OFFS x|?  OUTP ON|OFF|1|0|?``
+
+Errors go to a queue read by ``SYST:ERR?`` (IEEE 488.2 / SCPI-1999 codes: -113 "Undefined
+header", -104 "Data type error", -222 "Data out of range"; ``0,"No error"`` when empty).
+Amplitudes are held as peak volts and shown in the selected unit (VPP = 2 Vp; VRMS = Vp/√2
+for a sine; dBm = 10 log10(Vrms² / 50 Ω / 1 mW), the usual definitions into a 50 Ω load).
+
+Faults for tests: ``reply_delay_s`` (every answer late) and :meth:`delay_next_reply` (one
+late answer, the stale-answer trap), :meth:`drop_connections` (peer closes the socket),
+``drop_on`` (close the connection when a message starting with this text arrives).
+
+Imports: standard library only.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import socket
+import threading
+import time
+from collections import deque
+from dataclasses import dataclass
+
+IDN = "flamebode,SCPI test generator,EMU-0001,1.0"
+LOAD_OHM = 50.0
+
+# long form -> short form (the short form is the upper-case part of the mnemonic)
+MNEMONICS = {"SOURCE": "SOUR", "FUNCTION": "FUNC", "FREQUENCY": "FREQ", "VOLTAGE": "VOLT", "UNIT": "UNIT",
+             "OFFSET": "OFFS", "OUTPUT": "OUTP", "STATE": "STAT", "SYSTEM": "SYST", "ERROR": "ERR",
+             "SHAPE": "SHAP", "AMPLITUDE": "AMPL", "IMMEDIATE": "IMM", "NEXT": "NEXT"}
+SHORTS = set(MNEMONICS.values())
+
+
+def peak_to_unit(peak_v: float, unit: str) -> float:
+    if unit == "VPP":
+        return 2.0 * peak_v
+    if unit == "VRMS":
+        return peak_v / math.sqrt(2.0)
+    return 10.0 * math.log10((peak_v / math.sqrt(2.0)) ** 2 / LOAD_OHM / 1e-3)
+
+
+def unit_to_peak(value: float, unit: str) -> float:
+    if unit == "VPP":
+        return value / 2.0
+    if unit == "VRMS":
+        return value * math.sqrt(2.0)
+    return math.sqrt(1e-3 * 10.0 ** (value / 10.0) * LOAD_OHM) * math.sqrt(2.0)
+
+
+@dataclass
+class GeneratorState:
+    function: str = "SIN"
+    freq_hz: float = 1000.0
+    peak_v: float = 0.05
+    unit: str = "VPP"
+    offset_v: float = 0.0
+    output: bool = False
+
+
+class _ScpiError(Exception):
+    def __init__(self, code: int, text: str):
+        super().__init__(f'{code},"{text}"')
+
+
+def _canonical(header: str) -> str:
+    """'source:voltage:unit' -> 'SOUR:VOLT:UNIT'; raises -113 for an unknown mnemonic."""
+    nodes = []
+    for token in header.strip().lstrip(":").upper().split(":"):
+        token = re.sub(r"(?<=[A-Z])1$", "", token)          # SOUR1 / OUTP1: channel 1
+        node = MNEMONICS.get(token, token)
+        if node not in SHORTS:
+            raise _ScpiError(-113, "Undefined header")
+        nodes.append(node)
+    path = ":".join(nodes)
+    if path.split(":")[0] in ("FUNC", "FREQ", "VOLT"):      # [SOURce:] is the default root
+        path = "SOUR:" + path
+    return {"SOUR:VOLT:AMPL": "SOUR:VOLT", "SOUR:VOLT:IMM": "SOUR:VOLT", "SOUR:VOLT:IMM:AMPL": "SOUR:VOLT",
+            "OUTP:STAT": "OUTP", "SOUR:FUNC:SHAP": "SOUR:FUNC", "SYST:ERR:NEXT": "SYST:ERR"}.get(path, path)
+
+
+def _number(arg: str) -> float:
+    try:
+        value = float(arg)
+    except ValueError:
+        raise _ScpiError(-104, "Data type error") from None
+    if not math.isfinite(value):
+        raise _ScpiError(-104, "Data type error")
+    return value
+
+
+class ScpiEmulator:
+    """The instrument; use as a context manager. ``resource`` is the VISA address to open."""
+
+    def __init__(self, idn: str = IDN, reply_delay_s: float = 0.0, max_peak_v: float = 5.0) -> None:
+        self.idn = idn
+        self.reply_delay_s = reply_delay_s
+        self.max_peak_v = max_peak_v
+        self.state = GeneratorState()
+        self.errors: deque[str] = deque(maxlen=20)
+        self.received: list[str] = []
+        self.drop_on: str | None = None
+        self._next_delay_s: float | None = None
+        self._lock = threading.Lock()
+        self._conns: list[socket.socket] = []
+        self._server = socket.create_server(("127.0.0.1", 0))
+        self.port = self._server.getsockname()[1]
+        self._closing = False
+        self._thread = threading.Thread(target=self._accept_loop, name="scpi-emulator", daemon=True)
+
+    @property
+    def resource(self) -> str:
+        return f"TCPIP0::127.0.0.1::{self.port}::SOCKET"
+
+    def __enter__(self) -> "ScpiEmulator":
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def close(self) -> None:
+        self._closing = True
+        self._server.close()
+        self.drop_connections()
+        self._thread.join(timeout=5.0)
+
+    # ---------------------------------------------------------------- faults
+    def delay_next_reply(self, seconds: float) -> None:
+        with self._lock:
+            self._next_delay_s = seconds
+
+    def drop_connections(self) -> None:
+        """The instrument closes every open connection (it keeps listening for new ones)."""
+        with self._lock:
+            conns, self._conns = self._conns, []
+        for conn in conns:
+            try:
+                conn.shutdown(socket.SHUT_RDWR)
+            except OSError:
+                pass
+            conn.close()
+
+    def commands(self, prefix: str = "") -> list[str]:
+        """Messages received so far (upper-cased) that start with ``prefix``."""
+        with self._lock:
+            return [m for m in self.received if m.upper().startswith(prefix.upper())]
+
+    # ---------------------------------------------------------------- serving
+    def _accept_loop(self) -> None:
+        while not self._closing:
+            try:
+                conn, _ = self._server.accept()
+            except OSError:
+                return
+            with self._lock:
+                self._conns.append(conn)
+            threading.Thread(target=self._serve, args=(conn,), name="scpi-emulator-conn", daemon=True).start()
+
+    def _serve(self, conn: socket.socket) -> None:
+        buffer = b""
+        try:
+            while True:
+                chunk = conn.recv(4096)
+                if not chunk:
+                    return
+                buffer += chunk
+                while b"\n" in buffer:
+                    line, buffer = buffer.split(b"\n", 1)
+                    if not self._handle(conn, line.decode("ascii", "replace").strip()):
+                        return
+        except OSError:
+            return
+        finally:
+            conn.close()
+
+    def _handle(self, conn: socket.socket, message: str) -> bool:
+        if not message:
+            return True
+        with self._lock:
+            self.received.append(message)
+            if self.drop_on and message.upper().startswith(self.drop_on.upper()):
+                self._conns = [c for c in self._conns if c is not conn]
+                conn.shutdown(socket.SHUT_RDWR)
+                return False
+            replies = [r for part in message.split(";") if (r := self._execute(part.strip())) is not None]
+            delay = self._next_delay_s if (replies and self._next_delay_s is not None) else self.reply_delay_s
+            if replies and self._next_delay_s is not None:
+                self._next_delay_s = None
+        if replies:
+            if delay > 0:
+                time.sleep(delay)
+            conn.sendall((";".join(replies) + "\n").encode("ascii"))
+        return True
+
+    # ---------------------------------------------------------------- the instrument
+    def _execute(self, command: str) -> str | None:
+        """Run one command (lock held); the reply for a query, None otherwise."""
+        if not command:
+            return None
+        header, _, arg = command.partition(" ")
+        arg = arg.strip()
+        query = header.endswith("?")
+        try:
+            if header.startswith("*"):
+                return self._common(header.upper(), query)
+            return self._subsystem(_canonical(header.rstrip("?")), arg, query)
+        except _ScpiError as err:
+            self.errors.append(str(err))
+            return None
+
+    def _common(self, header: str, query: bool) -> str | None:
+        if header == "*IDN?":
+            return self.idn
+        if header == "*OPC?":
+            return "1"
+        if header == "*RST":
+            self.state = GeneratorState()
+            return None
+        if header == "*CLS":
+            self.errors.clear()
+            return None
+        raise _ScpiError(-113, "Undefined header")
+
+    def _subsystem(self, path: str, arg: str, query: bool) -> str | None:
+        s = self.state
+        if path == "SYST:ERR" and query:
+            return self.errors.popleft() if self.errors else '0,"No error"'
+        if path == "SOUR:FUNC":
+            if query:
+                return s.function
+            if arg.upper() not in ("SIN", "SINUSOID"):
+                raise _ScpiError(-224, "Illegal parameter value")
+            s.function = "SIN"
+        elif path == "SOUR:FREQ":
+            if query:
+                return f"{s.freq_hz:+.9E}"
+            value = _number(arg)
+            if not 1e-6 <= value <= 20e6:
+                raise _ScpiError(-222, "Data out of range")
+            s.freq_hz = value
+        elif path == "SOUR:VOLT":
+            if query:
+                return f"{peak_to_unit(s.peak_v, s.unit):+.9E}"
+            peak = unit_to_peak(_number(arg), s.unit)
+            if not 0.0 < peak <= self.max_peak_v:
+                raise _ScpiError(-222, "Data out of range")
+            s.peak_v = peak
+        elif path == "SOUR:VOLT:UNIT":
+            if query:
+                return s.unit
+            if arg.upper() not in ("VPP", "VRMS", "DBM"):
+                raise _ScpiError(-224, "Illegal parameter value")
+            s.unit = arg.upper()
+        elif path == "SOUR:VOLT:OFFS":
+            if query:
+                return f"{s.offset_v:+.9E}"
+            s.offset_v = _number(arg)
+        elif path == "OUTP":
+            if query:
+                return "1" if s.output else "0"
+            if arg.upper() not in ("ON", "OFF", "1", "0"):
+                raise _ScpiError(-224, "Illegal parameter value")
+            s.output = arg.upper() in ("ON", "1")
+        else:
+            raise _ScpiError(-113, "Undefined header")
+        return None
