@@ -5,9 +5,11 @@ about 2.5 MB per record) is stored by the RunWriter. Reports the resident memory
 (psutil RSS) from point 1 to point 200 (target: < 50 MB) and the store time per point
 (publish -> acknowledgement) as a fraction of the record time.
 
-The engine's PointSettled events are synthesised here (same size and content type as a
-real sweep: sines at the drive frequency plus noise), so the figures are the writer's
-alone. Run: ``python tests/bench/bench_storage.py [--points 200] [--seconds 2]``.
+Two runs side by side: (1) the real thing — the sweep engine on the simulated burner
+(fast) with the run writer subscribed, a 200-point plan 100–2000 Hz; (2) the writer alone,
+fed synthetic PointSettled events of the same size (sines plus noise), so the writer's
+share can be told from the engine's. Run:
+``python tests/bench/bench_storage.py [--points 200] [--seconds 2]``.
 """
 
 from __future__ import annotations
@@ -36,12 +38,61 @@ def record(freq_hz: float, fs: float, seconds: float, rng: np.random.Generator) 
     return x + 0.003 * rng.standard_normal(x.shape)
 
 
-def main() -> int:
-    ap = argparse.ArgumentParser()
-    ap.add_argument("--points", type=int, default=200)
-    ap.add_argument("--seconds", type=float, default=2.0)
-    ap.add_argument("--fs", type=float, default=25600.0)
-    args = ap.parse_args()
+class _TimedBus(EventBus):
+    """An EventBus that notes when each PointSettled was published and acknowledged."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.published: dict[str, float] = {}
+        self.store_s: list[float] = []
+        self.rss: list[int] = []
+        self._proc = psutil.Process()
+
+    def publish(self, event) -> None:
+        if isinstance(event, PointSettled):
+            self.published[event.attempt_id] = time.perf_counter()
+        super().publish(event)
+
+    def acknowledge(self, attempt_id: str, error: str | None = None) -> None:
+        if attempt_id in self.published:
+            self.store_s.append(time.perf_counter() - self.published.pop(attempt_id))
+            self.rss.append(self._proc.memory_info().rss)
+        super().acknowledge(attempt_id, error)
+
+
+def engine_run(args: argparse.Namespace) -> dict[str, object]:
+    """The real sweep: engine + simulated burner (fast) + run writer."""
+    from app.engine.sweep import SweepEngine
+    from app.plan import load_plan
+    from app.rig import load_rig
+    from drivers.simulated import SimulatedBurner
+
+    with tempfile.TemporaryDirectory() as tmp:
+        plan_file = Path(tmp) / "plan.toml"
+        plan_file.write_text(
+            f'name = "storage benchmark"\n[frequencies]\nlog = {{ start = "100 Hz", stop = "2000 Hz", '
+            f'count = {args.points} }}\n[amplitude]\nvalues = [0.05]\nbasis = "peak"\n'
+            f'[timing]\nrecord = "{args.seconds} s"\nsettle = "0.2 s"\ntuning_window = "0.2 s"\n')
+        rig = load_rig(ROOT / "configs" / "demo-rig.toml")
+        plan = load_plan(plan_file, rig)
+        bus = _TimedBus()
+        writer = RunWriter(Path(tmp) / "run", ROOT / "configs" / "demo-rig.toml", plan_file, bus,
+                           options={"backend": "simulated", "fast": "1"}).start()
+        bus.subscribe(writer)
+        sim = SimulatedBurner(rig, seed=5)
+        engine = SweepEngine(plan, rig, sim, bus, backend_name="simulated", wait_for_store=True)
+        t0 = time.perf_counter()
+        reason = engine.run()
+        wall = time.perf_counter() - t0
+        writer.close()
+        sim.stop()
+        size_mb = sum(f.stat().st_size for f in (Path(tmp) / "run" / "records").iterdir()) / 1e6
+        n_ch = len(sim.channels)
+    return {"source": f"sweep engine + simulated burner ({reason}, {wall:.0f} s wall)", "store_s": bus.store_s,
+            "rss": bus.rss, "size_mb": size_mb, "n_ch": n_ch, "fs": rig.acquisition.sample_rate}
+
+
+def synthetic_run(args: argparse.Namespace) -> dict[str, object]:
     proc = psutil.Process()
     rng = np.random.default_rng(1)
     freqs = list(np.linspace(100.0, 2000.0, args.points))
@@ -69,31 +120,41 @@ def main() -> int:
             store_s.append(time.perf_counter() - t0)
             del ev
             if not ok or err:
-                print(f"point {p.index}: not stored: {err}")
-                return 1
+                raise SystemExit(f"point {p.index}: not stored: {err}")
             rss.append(proc.memory_info().rss)
         bus.publish(SweepFinished(reason="complete", n_settled=args.points, n_points=args.points))
         writer.close()
         size_mb = sum(f.stat().st_size for f in (Path(tmp) / "run" / "records").iterdir()) / 1e6
-    st = np.array(store_s)
-    raw_mb = len(CHANNELS) * args.fs * args.seconds * 8 / 1e6
-    rows = [
-        ("source of events", "synthetic PointSettled (engine not used)"),
-        ("points x record", f"{args.points} x {args.seconds:g} s, {len(CHANNELS)} ch @ {args.fs:g} Hz "
-                            f"({raw_mb:.2f} MB raw float64)"),
-        ("RSS after point 1", f"{rss[0] / 1e6:.1f} MB"),
-        (f"RSS after point {args.points}", f"{rss[-1] / 1e6:.1f} MB"),
-        ("RSS growth 1 -> last", f"{(rss[-1] - rss[0]) / 1e6:+.1f} MB (limit 50 MB)"),
-        ("store time median / p95 / max", f"{np.median(st) * 1e3:.0f} / {np.percentile(st, 95) * 1e3:.0f} / "
-                                          f"{st.max() * 1e3:.0f} ms"),
-        ("store time / record time", f"{np.median(st) / args.seconds:.3f} median, "
-                                     f"{st.max() / args.seconds:.3f} max"),
-        ("on disk", f"{size_mb:.0f} MB ({size_mb / (raw_mb * args.points):.2f} of raw)"),
-    ]
-    width = max(len(k) for k, _ in rows)
-    for k, v in rows:
-        print(f"{k:<{width}}  {v}")
-    return 0 if rss[-1] - rss[0] < 50e6 else 1
+    return {"source": "writer alone, synthetic events", "store_s": store_s, "rss": rss, "size_mb": size_mb,
+            "n_ch": len(CHANNELS), "fs": args.fs}
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--points", type=int, default=200)
+    ap.add_argument("--seconds", type=float, default=2.0)
+    ap.add_argument("--fs", type=float, default=25600.0, help="sample rate of the synthetic run")
+    args = ap.parse_args()
+    runs = [engine_run(args), synthetic_run(args)]
+    print(f"{args.points} points x {args.seconds:g} s records; memory is the process RSS (psutil)")
+    for r in runs:
+        st, rss = np.array(r["store_s"]), np.array(r["rss"])
+        raw_mb = r["n_ch"] * r["fs"] * args.seconds * 8 / 1e6
+        print(f"\n{r['source']}: {r['n_ch']} ch @ {r['fs']:g} Hz ({raw_mb:.2f} MB raw float64 per record)")
+        rows = [
+            ("points stored", f"{len(st)}"),
+            ("RSS after first / last point", f"{rss[0] / 1e6:.1f} / {rss[-1] / 1e6:.1f} MB"),
+            ("RSS growth first -> last", f"{(rss[-1] - rss[0]) / 1e6:+.1f} MB (limit 50 MB)"),
+            ("store time median / p95 / max", f"{np.median(st) * 1e3:.0f} / {np.percentile(st, 95) * 1e3:.0f} / "
+                                              f"{st.max() * 1e3:.0f} ms"),
+            ("store time / record time", f"{np.median(st) / args.seconds:.3f} median, "
+                                         f"{st.max() / args.seconds:.3f} max"),
+            ("on disk", f"{r['size_mb']:.0f} MB ({r['size_mb'] / (raw_mb * len(st)):.2f} of raw)"),
+        ]
+        width = max(len(k) for k, _ in rows)
+        for k, v in rows:
+            print(f"  {k:<{width}}  {v}")
+    return 0 if all(np.array(r["rss"])[-1] - np.array(r["rss"])[0] < 50e6 for r in runs) else 1
 
 
 if __name__ == "__main__":
