@@ -352,7 +352,7 @@ class SoundCard:
     # ------------------------------------------------------------------ identity
     def identity(self) -> dict[str, str]:
         sd = self._sd
-        return {"maker": "PortAudio", "model": self._device_name, "serial": str(self._device_index),
+        return {"maker": "PortAudio", "model": self._device_name, "serial": f"device {self._device_index}",
                 "library": f"sounddevice {sd.__version__}, {sd.get_portaudio_version()[1]}",
                 "sample_rate_hz": f"{self._fs:g}", "output_channel": str(self.config.output_channel),
                 "inputs": ", ".join(f"{c}={self.config.inputs[c]}" for c in self._channels)}
@@ -473,7 +473,12 @@ class SoundCard:
         deadline = time.monotonic() + 2.0
         while self._out_w < self._lead_n and time.monotonic() < deadline:
             time.sleep(0.002)             # output lead ready before the first callback
-        self._stream.start()
+        try:
+            self._stream.start()
+        except self._sd.PortAudioError as exc:
+            self._stopped = True
+            self._close()
+            raise DriverError(f"sound card: cannot start the stream on {self._device_name!r}: {exc}") from None
         # Duplex streams flag the first callbacks (PortAudio zero-fills the input while the
         # input side starts); the acquisition starts at the first clean callback.
         deadline = time.monotonic() + 1.0

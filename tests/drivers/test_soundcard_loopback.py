@@ -354,3 +354,25 @@ def test_a_gap_the_server_does_not_flag_is_counted_as_a_glitch(card: LoopbackCar
         gap.join(15.0)
     assert sum(b.overflows for b in after) >= 1
     assert any(not b.delay_measured or b.delay_samples != before[0].delay_samples for b in after)
+
+
+def test_opened_by_name_through_the_registry() -> None:
+    from drivers import safety
+    from drivers.registry import open_backend
+
+    dev = open_backend("soundcard", make_rig())
+    try:
+        assert isinstance(dev, SoundCard) and any(o is dev for o in safety.registered())
+        dev.start()
+        b = dev.read_block(timeout_s=5.0)
+        assert b.channels == dev.channels and b.sample_rate_hz == FS
+    finally:
+        dev.stop()
+    assert not any(o is dev for o in safety.registered())
+
+
+def test_unknown_device_is_named() -> None:
+    from drivers.errors import BackendUnavailable
+
+    with pytest.raises(BackendUnavailable, match="device 'no-such-card' from \\[hardware.soundcard\\] not found"):
+        SoundCard(make_rig(), device="no-such-card")
