@@ -77,7 +77,7 @@ class SweepSession:
         self.bus.subscribe(self.writer)
         try:
             self.device = self._open_device()
-            safety.register(self.device)
+            safety.register(self.device)      # harmless when the registry did it already
             label = time.strftime("w%Y%m%d-%H%M%S")
             self.engine = SweepEngine(self.plan, self.rig, self.device, self.bus, backend_name=req.backend,
                                       run_label=label, wait_for_store=True, points=req.points)
@@ -88,16 +88,22 @@ class SweepSession:
         return self
 
     def _open_device(self) -> Any:
+        """The back-end through the registry (registered with the safety net there)."""
+        from drivers.registry import open_backend
+
         req = self.request
-        if req.existing_run:
-            from app.commands.resume import open_backend as reopen
+        name, scenario, fast = req.backend, req.scenario_path, req.fast
+        if req.existing_run:           # the run's own back-end and scenario snapshot, as `reacquire` does
             from app.storage.reader import open_run
 
-            device, _name = reopen(open_run(req.run_dir, verify=False).info, self.rig, Path(req.run_dir), req.fast)
-            return device
-        from app.commands.sweep import open_device
-
-        return open_device(req.backend, self.rig, req.scenario_path, req.fast, req.seed)
+            info = open_run(req.run_dir, verify=False).info
+            name = info.get("backend", "simulated") or "simulated"
+            snapshots = sorted(Path(req.run_dir).glob("scenario.*"))
+            scenario = snapshots[0] if snapshots else None
+        options: dict[str, Any] = {}
+        if name == "simulated":
+            options = {"scenario": str(scenario) if scenario else None, "real_time": not fast, "seed": req.seed}
+        return open_backend(name, self.rig, **options)
 
     def close(self, timeout_s: float = 30.0) -> str | None:
         """Join the engine (halting it if it does not end), flush the writer, stop the back-end."""
@@ -114,10 +120,12 @@ class SweepSession:
             if self.writer is not None:
                 self.writer.close()
             if self.device is not None:
-                stop = getattr(self.device, "stop", None)
-                if callable(stop):
-                    stop()
-                safety.unregister(self.device)
+                try:
+                    stop = getattr(self.device, "stop", None)
+                    if callable(stop):
+                        stop()
+                finally:
+                    safety.unregister(self.device)
         if self.engine is not None and self.engine.error is not None:
             raise SessionError(f"the sweep ended with an internal error: {self.engine.error!r}; "
                                f"the drive was brought to zero")

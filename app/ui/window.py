@@ -66,6 +66,7 @@ class MainWindow(QMainWindow):
         self.traces_buffer: TraceBuffer | None = None
         self.session: SweepSession | None = None
         self.last_run_dir: Path | None = None
+        self.sweeps_closed = 0            # sweeps whose engine, writer and back-end are closed
         self.roles: dict[str, str] = {}
         self._build_setup(rig_path, plan_path, runs_root, backend, fast, scenario_path, backends)
         self._build_sweep_tab()
@@ -384,7 +385,8 @@ class MainWindow(QMainWindow):
             self._say(f"Storage fault: {fault}")
         run_dir = Path(session.request.run_dir)
         self.last_run_dir = run_dir
-        self.open_review(run_dir)
+        self.sweeps_closed += 1
+        self.open_review(run_dir, show=False)   # the operator keeps the sweep (and any fault banner) in view
 
     def _frame(self) -> None:
         """~30 Hz: redraw traces from a copy; refresh the state line."""
@@ -452,13 +454,15 @@ class MainWindow(QMainWindow):
         if name:
             self.open_review(Path(name))
 
-    def open_review(self, run_dir: Path) -> None:
+    def open_review(self, run_dir: Path, show: bool = True) -> None:
+        """Load a run into the review tab (read on the worker); ``show`` switches to the tab."""
         from app.storage.reader import open_run
 
         def done(result: TaskResult) -> None:
             if result.error is None:
                 self.review.load(result.value)
-                self.tabs.setCurrentWidget(self.review)
+                if show:
+                    self.tabs.setCurrentWidget(self.review)
                 self._update_controls()
 
         self.tasks.submit("open run", lambda: open_run(run_dir), on_done=done)
@@ -506,7 +510,8 @@ class MainWindow(QMainWindow):
 
         verb = "accepted" if accept else "rejected"
         self.review.message.setText(f"point {att['point_index'] + 1}: attempt {att['seq']} {verb}")
-        self.tasks.submit("decide", write, on_done=lambda r: r.error is None and self.open_review(Path(run.run_dir)))
+        self.tasks.submit("decide", write,
+                          on_done=lambda r: self.open_review(Path(run.run_dir)) if r.error is None else None)
 
     def choose_reprocess_rig(self) -> None:
         run = self.review.run

@@ -1,0 +1,147 @@
+"""The window driven like an operator would: a complete fast sweep, pause/resume and abort,
+a fault injected in the simulator, and the review actions (reject, re-acquire, reprocess,
+export). Every wait is qtbot.waitUntil with a generous timeout; nothing sleeps.
+
+Safety expectations are common practice for forced-flame rigs: pause, abort and faults
+leave the drive at zero and keep every point already stored.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+from PySide6.QtCore import Qt
+from PySide6.QtWidgets import QToolBar
+
+from app.storage.reader import open_run
+from conftest import CONFIGS, write_plan, write_scenario
+
+LONG_MS = 60_000
+
+
+def _click(qtbot, win, action) -> None:
+    """Click the toolbar button of ``action`` (what an operator does)."""
+    bar = win.findChild(QToolBar)
+    button = bar.widgetForAction(action)
+    assert button is not None and button.isEnabled(), action.text()
+    qtbot.mouseClick(button, Qt.MouseButton.LeftButton)
+
+
+def _finished(win, n: int = 1) -> bool:
+    """The n-th sweep of this window has ended and its engine, writer and back-end are closed."""
+    return win.sweeps_closed >= n
+
+
+def test_fast_sweep_through_the_window(qtbot, make_window, tiny_plan) -> None:
+    win = make_window(tiny_plan)
+    assert "SIMULATED" in win.sim_label.text()
+    assert win.halt_button.isVisible() and win.halt_action.isEnabled()
+    _click(qtbot, win, win.start_action)
+    qtbot.waitUntil(lambda: _finished(win) and win.review.run is not None, timeout=LONG_MS)
+    assert win.status.finish_reason == "complete"
+    assert [r.status for r in win.points.rows] == ["kept", "kept", "kept"]
+    curves = win.points.curves()
+    assert len(curves) == 1 and list(next(iter(curves.values()))["freq_hz"]) == [200.0, 400.0, 600.0]
+    gain_item = win.response._items[0.05][0]
+    x, y = gain_item.getData()
+    assert len(x) == 3 and np.all(np.isfinite(y))
+    # no block dropped between the engine and the plots: every acquired sample reached the trace buffer
+    device = win.session.device
+    assert win.traces_buffer.total_samples == round(device.time_s * device.sample_rate_hz)
+    assert win.traces.frames >= 1
+    run = open_run(win.last_run_dir)
+    assert sorted(run.accepted()) == [0, 1, 2]
+    assert win.review.points.rows[2].status == "kept"
+
+
+@pytest.mark.slow
+def test_pause_resume_then_abort_mid_point(qtbot, make_window, tiny_plan) -> None:
+    win = make_window(tiny_plan, fast=False)                       # real time: commands land mid-point
+    win.start_sweep()
+    qtbot.waitUntil(lambda: win.status.state == "tuning", timeout=LONG_MS)
+    _click(qtbot, win, win.pause_action)
+    qtbot.waitUntil(lambda: win.status.state == "paused", timeout=LONG_MS)
+    assert win.session.device.drive_status().amplitude_v == 0.0     # paused means drive at zero
+    assert win.status.drive_v == 0.0
+    assert win.pause_action.text() == "Resume"
+    qtbot.keyClick(win, Qt.Key.Key_F6)                               # resume by shortcut
+    qtbot.waitUntil(lambda: win.points.row(1).status == "measuring", timeout=LONG_MS)
+    assert win.points.row(0).status == "kept"
+    qtbot.keyClick(win, Qt.Key.Key_F8)                               # abort by shortcut, mid-point 2
+    qtbot.waitUntil(lambda: _finished(win), timeout=LONG_MS)
+    assert win.status.finish_reason == "aborted"
+    status = win.session.device.drive_status()
+    assert status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0
+    run = open_run(win.last_run_dir)
+    assert sorted(run.accepted()) == [0]                             # the stored point is kept
+    assert win.points.row(1).status == "planned" and win.points.row(2).status == "planned"
+
+
+def test_injected_fault_shows_its_banner(qtbot, make_window, tmp_path: Path) -> None:
+    scenario = write_scenario(tmp_path / "faulty.toml", 'flame_out = { enabled = true, time = "4 s" }')
+    win = make_window(write_plan(tmp_path / "plan.toml", scenario))
+    win.start_sweep()
+    qtbot.waitUntil(lambda: _finished(win), timeout=LONG_MS)
+    assert win.status.finish_reason == "fault"
+    assert win.banner.isVisible()
+    assert "flame-out" in win.banner.title.text()
+    assert "zero" in win.banner.action.text()                        # what the tool did
+    assert win.banner.advice.text().startswith("What you can do:")
+    hit = win.banner.last.point_index
+    assert hit is not None and win.points.row(hit).status == "fault"
+    assert all(win.points.row(i).status == "kept" for i in range(hit))
+    assert win.session.device.drive_status().amplitude_v == 0.0
+
+
+def test_review_reject_reacquire_reprocess_export(qtbot, make_window, tiny_plan, tmp_path: Path) -> None:
+    from app.cli import main
+
+    run_dir = tmp_path / "stored"
+    assert main(["sweep", str(tiny_plan), "--fast", "--out", str(run_dir)]) == 0   # made headless
+    win = make_window(tiny_plan)
+    win.open_review(run_dir)
+    qtbot.waitUntil(lambda: win.review.run is not None and win.review.accept_button.isEnabled(), timeout=LONG_MS)
+    review = win.review
+    assert len(review.points.rows) == 3
+    review.point_list.select_points([1])
+    qtbot.waitUntil(lambda: "p1" in review.record.curves and review.record.curves["p1"].getData()[0] is not None,
+                    timeout=LONG_MS)
+    old = review.run
+    qtbot.mouseClick(review.reject_button, Qt.MouseButton.LeftButton)
+    qtbot.waitUntil(lambda: review.run is not old, timeout=LONG_MS)
+    assert review.points.row(1).status == "rejected"
+    assert 1 not in open_run(run_dir).accepted()
+
+    review.point_list.select_points([1])
+    qtbot.mouseClick(review.reacquire_button, Qt.MouseButton.LeftButton)
+    qtbot.waitUntil(lambda: _finished(win) and review.run is not None and review.points.row(1).attempts == 2,
+                    timeout=LONG_MS)
+    run = open_run(run_dir)
+    assert sorted(run.accepted()) == [0, 1, 2] and len(run.attempts_of(1)) == 2
+    assert review.points.row(1).status == "kept"
+
+    rig_text = (CONFIGS / "demo-rig.toml").read_text(encoding="utf-8").replace('"14.2 mV/Pa"', '"14.9 mV/Pa"')
+    new_rig = tmp_path / "edited-rig.toml"
+    new_rig.write_text(rig_text, encoding="utf-8")
+    before = review.run
+    win.reprocess(new_rig)
+    qtbot.waitUntil(lambda: review.run is not before, timeout=LONG_MS)
+    assert all(a["analysis"].get("rig_sha256") for a in review.run.attempts if a["record_status"] == "ok")
+
+    qtbot.mouseClick(review.export_button, Qt.MouseButton.LeftButton)
+    qtbot.waitUntil(lambda: (run_dir / "export" / "points.csv").exists() and "Exported" in review.message.text(),
+                    timeout=LONG_MS)
+    assert len((run_dir / "export" / "points.csv").read_text().splitlines()) == 4
+
+
+def test_setup_lists_config_problems_with_file_and_key(qtbot, make_window, tiny_plan) -> None:
+    win = make_window(tiny_plan)
+    ed = win.setup.rig_editor
+    ed.editor.setPlainText(ed.text().replace('ceiling = "2.0 V"', 'ceiling = "two volts"'))
+    assert not ed.check()
+    lines = [ed.problems.item(i).text() for i in range(ed.problems.count())]
+    assert any("demo-rig.toml" in t and "drive.ceiling" in t for t in lines), lines
+    assert not win.start_sweep()                                     # unsaved and invalid: refused
+    assert win.session is None
