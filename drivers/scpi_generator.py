@@ -33,6 +33,7 @@ from __future__ import annotations
 
 import logging
 import math
+import os
 import select
 import socket
 import threading
@@ -232,7 +233,23 @@ class ScpiGenerator:
             raise InstrumentConnectionLost(f"SCPI generator {cfg.resource}: cannot open: {exc.description}") from None
         except Exception as exc:   # pyvisa-py raises a plain Exception when the TCP connect fails
             raise InstrumentConnectionLost(f"SCPI generator {cfg.resource}: cannot open: {exc}") from None
+        self._check_connected()
         self._nodelay = self._set_nodelay()
+
+    def _check_connected(self) -> None:
+        """pyvisa-py reports success for a refused TCP connect; ask the socket itself."""
+        sock = self._socket()
+        if sock is None:
+            return
+        code = sock.getsockopt(socket.SOL_SOCKET, socket.SO_ERROR)
+        try:
+            sock.getpeername()
+        except OSError as exc:
+            code = code or exc.errno or 0
+        if code:
+            self._close_session()
+            raise InstrumentConnectionLost(f"SCPI generator {self.config.resource}: cannot open: "
+                                           f"{os.strerror(code)} (is the instrument on and the address right?)")
 
     def _socket(self) -> socket.socket | None:
         """The pyvisa-py session's socket, or None for other VISA libraries and interfaces."""
@@ -383,6 +400,10 @@ class ScpiGenerator:
             self._ramping = True
             try:
                 self._play(float(freq_hz))
+            except InstrumentError as exc:   # the output is no longer what the guard thinks: off
+                self.guard.halt()
+                self._output_off_now()
+                raise InstrumentError(f"{exc}; the output was switched off") from None
             finally:
                 self._ramping = False
 
@@ -442,9 +463,14 @@ class ScpiGenerator:
         return sent
 
     def _output_off_now(self) -> None:
+        """``OUTP OFF``, confirmed by ``OUTP?`` (so it has been carried out when this returns)."""
         self._write("OUTP OFF")
         self._output_on = False
         self._sent_amp_v = 0.0
+        answer = self._query("OUTP?")
+        if answer.upper() not in ("0", "OFF", "+0"):
+            raise DriverError(f"SCPI generator {self.config.resource}: output still on after OUTP OFF "
+                              f"(OUTP? answered {answer!r})")
 
     def drive_status(self) -> DriveStatus:
         g = self.guard.status()

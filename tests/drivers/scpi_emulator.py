@@ -157,11 +157,15 @@ class ScpiEmulator:
 
     # ---------------------------------------------------------------- serving
     def _accept_loop(self) -> None:
+        self._server.settimeout(0.05)          # so close() is noticed promptly
         while not self._closing:
             try:
                 conn, _ = self._server.accept()
+            except TimeoutError:
+                continue
             except OSError:
                 return
+            conn.settimeout(None)
             with self._lock:
                 self._conns.append(conn)
             threading.Thread(target=self._serve, args=(conn,), name="scpi-emulator-conn", daemon=True).start()
