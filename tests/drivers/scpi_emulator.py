@@ -16,7 +16,8 @@ for a sine; dBm = 10 log10(Vrms² / 50 Ω / 1 mW), the usual definitions into a 
 
 Faults for tests: ``reply_delay_s`` (every answer late) and :meth:`delay_next_reply` (one
 late answer, the stale-answer trap), :meth:`drop_connections` (peer closes the socket),
-``drop_on`` (close the connection when a message starting with this text arrives).
+``drop_on`` (close the connection when a message starting with this text arrives), and
+``resolution_vpp`` (the amplitude is set to the nearest multiple, as a coarse instrument would).
 
 Imports: standard library only.
 """
@@ -101,10 +102,12 @@ def _number(arg: str) -> float:
 class ScpiEmulator:
     """The instrument; use as a context manager. ``resource`` is the VISA address to open."""
 
-    def __init__(self, idn: str = IDN, reply_delay_s: float = 0.0, max_peak_v: float = 5.0) -> None:
+    def __init__(self, idn: str = IDN, reply_delay_s: float = 0.0, max_peak_v: float = 5.0,
+                 resolution_vpp: float = 0.0) -> None:
         self.idn = idn
         self.reply_delay_s = reply_delay_s
         self.max_peak_v = max_peak_v
+        self.resolution_vpp = resolution_vpp      # amplitude setting resolution (0: exact)
         self.state = GeneratorState()
         self.errors: deque[str] = deque(maxlen=20)
         self.received: list[str] = []
@@ -258,6 +261,8 @@ class ScpiEmulator:
             peak = unit_to_peak(_number(arg), s.unit)
             if not 0.0 < peak <= self.max_peak_v:
                 raise _ScpiError(-222, "Data out of range")
+            if self.resolution_vpp > 0:
+                peak = round(2.0 * peak / self.resolution_vpp) * self.resolution_vpp / 2.0
             s.peak_v = peak
         elif path == "SOUR:VOLT:UNIT":
             if query:
