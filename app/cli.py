@@ -25,6 +25,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "resume": ("resume", "continue an interrupted sweep from its first point without an accepted attempt"),
     "reacquire": ("reacquire", "measure chosen or flagged points of a run again (new attempts, old ones kept)"),
     "backends": ("backends", "list hardware back-ends and whether they can be used here"),
+    "window": ("window", "open the desktop window (the simulated burner unless told otherwise)"),
 }
 
 
@@ -44,6 +45,9 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
+    argv = sys.argv[1:] if argv is None else argv
+    if not argv:   # a newcomer's first command: the window on the simulator, or a headless demo
+        argv = ["window", "--first-run"]
     args = parser.parse_args(argv)
     if getattr(args, "_run", None) is None:
         parser.print_help()

@@ -1,25 +1,19 @@
 """Entry point of the window: build the QApplication, the main window, and run it.
 
-``have_display()`` tells the CLI whether a window can be opened at all (Qt aborts the
-whole process when no platform is usable).
+The CLI checks for a display first (``app.commands.window.have_display``): Qt aborts the
+whole process when no platform is usable.
 
 Imports: PySide6 and ``app.ui.window``; the standard library otherwise.
 """
 
 from __future__ import annotations
 
-import os
 import sys
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO_RIG = ROOT / "configs" / "demo-rig.toml"
 DEMO_PLAN = ROOT / "configs" / "demo-ftf-plan.toml"
-
-
-def have_display() -> bool:
-    """A window can be shown: an X or Wayland display, or an explicit Qt platform."""
-    return any(os.environ.get(k) for k in ("DISPLAY", "WAYLAND_DISPLAY", "QT_QPA_PLATFORM"))
 
 
 def run_window(rig_path: str | Path | None = None, plan_path: str | Path | None = None,
@@ -36,4 +30,16 @@ def run_window(rig_path: str | Path | None = None, plan_path: str | Path | None 
     if run_dir is not None:
         win.open_review(Path(run_dir))
     win.show()
-    return int(app.exec())
+    code = int(app.exec())
+    _dispose(win)
+    return code
+
+
+def _dispose(win: "object") -> None:
+    """Delete the window through Qt's own deferred deletion (pyqtgraph's view registry and queued
+    events learn of it), not by dropping the last Python reference."""
+    from PySide6.QtCore import QCoreApplication, QEvent
+
+    win.deleteLater()  # type: ignore[attr-defined]
+    QCoreApplication.sendPostedEvents(None, QEvent.Type.DeferredDelete)
+    QCoreApplication.processEvents()

@@ -38,9 +38,12 @@ def no_threads_left(request: pytest.FixtureRequest):
 
     app = QApplication.instance()
     if app is not None:
+        from PySide6.QtCore import QEvent
+
         for w in app.topLevelWidgets():
             w.close()
             w.deleteLater()
+        app.sendPostedEvents(None, QEvent.Type.DeferredDelete)
         app.processEvents()
     for t in _live_threads() - before:
         t.join(10.0)
