@@ -210,6 +210,14 @@ def test_daqmx_errors_become_named_faults(card, daq, code, kind, words):
     assert all(t.closed for t in card.tasks)
 
 
+def test_shared_sample_clock_option(card):
+    dev = DaqmxCard(make_rig(share_sample_clock=True))
+    dev.stop()
+    ao = next(t for t in card.tasks if t.name == "flamebode-drive")
+    assert ao.timing["source"] == f"/{DEVICE}/ai/SampleClock" and ao.rate_hz == 25600.0
+    card.assert_clean()
+
+
 def test_input_only_mode_has_no_drive(card):
     dev = DaqmxCard(make_rig(input_only=True))
     try:

@@ -18,9 +18,11 @@ from drivers import protocols, safety
 from drivers.errors import BackendTimeout, CeilingExceeded, DriverError
 from drivers.scpi_generator import (InstrumentConnectionLost, InstrumentError, ScpiGenerator, peak_to_unit,
                                     resource_manager, unit_to_peak)
+from pathlib import Path
+
 from scpi_emulator import ScpiEmulator
 
-from test_daqmx_backend import DEMO
+DEMO = Path(__file__).resolve().parents[2] / "configs" / "demo-rig.toml"
 
 
 def make_rig(emu: ScpiEmulator | None, ramp_time: str = "0.3 s", **table):
@@ -215,3 +217,27 @@ def test_configuration_errors_name_the_key():
     for key in ("hardware.scpi.resource", "hardware.scpi.amplitude_unit", "hardware.scpi.load",
                 "hardware.scpi.ramp_stp: unknown key"):
         assert key in text
+
+
+def _best_drive_cycle_s(g: ScpiGenerator, repeats: int = 5) -> float:
+    best = math.inf
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        g.set_drive(200.0, 0.01)       # one step: SOUR:VOLT, OUTP ON, then SYST:ERR?
+        g.set_drive(200.0, 0.0)        # OUTP OFF, then SYST:ERR?
+        best = min(best, time.perf_counter() - t0)
+    return best
+
+
+def test_tcp_nodelay_removes_the_write_then_query_stall(emu, monkeypatch):
+    """With Nagle's algorithm on, a small write followed by another waits for the delayed ACK of
+    the first (RFC 896 with RFC 1122 delayed ACKs; about 40 ms on Linux, from memory)."""
+    fast = ScpiGenerator(make_rig(emu))
+    fast_s = _best_drive_cycle_s(fast)
+    fast.stop()
+    monkeypatch.setattr(ScpiGenerator, "_set_nodelay", lambda self: "off (test)")
+    slow = ScpiGenerator(make_rig(emu))
+    slow_s = _best_drive_cycle_s(slow, repeats=3)
+    slow.stop()
+    assert slow_s > 0.03                  # the stall is real on this path
+    assert fast_s < slow_s / 5
