@@ -160,7 +160,7 @@ def load_config(rig: Rig, **options: Any) -> SoundCardConfig:
         problems.append(f"{TABLE}.device: expected a device name or index, got {device!r}")
     fs = _quantity(raw.get("sample_rate", rig.acquisition.sample_rate), "frequency",
                    f"{TABLE}.sample_rate", problems, 48000.0)
-    block_n = max(1, int(round(rig.acquisition.block_duration * fs)))
+    block_n = max(1, round(rig.acquisition.block_duration * fs))
     if "output_channel" not in raw:
         problems.append(f"{TABLE}.output_channel: required key is missing (the output wired to the amplifier)")
     out_ch = _int_channel(raw.get("output_channel", 1), f"{TABLE}.output_channel", problems)
@@ -206,7 +206,7 @@ def normalised_xcorr(x: np.ndarray, history: np.ndarray, max_lag: int) -> np.nda
     its last: x[n] is compared with history[max_lag + n - L]. ρ = Σ x·d_L / sqrt(Σx² Σd_L²).
     """
     n = x.size
-    nfft = 1 << int(math.ceil(math.log2(n + history.size)))
+    nfft = 1 << math.ceil(math.log2(n + history.size))
     spec = np.fft.rfft(history, nfft) * np.conj(np.fft.rfft(x, nfft))
     full = np.fft.irfft(spec, nfft)           # full[k] = Σ_n x[n] history[n + k]
     k = max_lag - np.arange(max_lag + 1)      # lag L uses offset k = max_lag - L
@@ -336,7 +336,7 @@ class SoundCard:
         self._cap = np.zeros((self._cap_size, cfg.n_inputs + 1), dtype=np.float32)  # + the played drive
         self._cap_flags = np.zeros(self._cap_size, dtype=np.int32)
         self._chunk = np.zeros((RENDER_CHUNK, cfg.n_outputs), dtype=np.float32)
-        self._max_lag = int(round(cfg.max_delay_s * fs))
+        self._max_lag = round(cfg.max_delay_s * fs)
         self._reset_counters()
 
     def _reset_counters(self) -> None:
@@ -564,7 +564,7 @@ class SoundCard:
         if status.freq_hz <= 0:
             return 0.0, 0.0
         d = self._delay or 0
-        period = int(math.ceil(self._fs / status.freq_hz)) + 1
+        period = math.ceil(self._fs / status.freq_hz) + 1
         stop = end - d
         lo = max(0, stop - period, self._cap_w - self._cap_size)
         if stop <= lo:
