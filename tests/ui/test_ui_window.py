@@ -11,7 +11,6 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
-import pytest
 from PySide6.QtCore import Qt
 from PySide6.QtWidgets import QToolBar
 
@@ -56,7 +55,6 @@ def test_fast_sweep_through_the_window(qtbot, make_window, tiny_plan) -> None:
     assert win.review.points.rows[2].status == "kept"
 
 
-@pytest.mark.slow
 def test_pause_resume_then_abort_mid_point(qtbot, make_window, tiny_plan) -> None:
     win = make_window(tiny_plan, fast=False)                       # real time: commands land mid-point
     win.start_sweep()
@@ -145,3 +143,53 @@ def test_setup_lists_config_problems_with_file_and_key(qtbot, make_window, tiny_
     assert any("demo-rig.toml" in t and "drive.ceiling" in t for t in lines), lines
     assert not win.start_sweep()                                     # unsaved and invalid: refused
     assert win.session is None
+
+
+def test_emergency_halt_by_shortcut_zeroes_at_once(qtbot, make_window, tiny_plan) -> None:
+    win = make_window(tiny_plan, fast=False)
+    win.start_sweep()
+    qtbot.waitUntil(lambda: win.status.state == "tuning" and win.status.drive_v > 0, timeout=LONG_MS)
+    qtbot.keyClick(win, Qt.Key.Key_Escape)
+    qtbot.waitUntil(lambda: _finished(win), timeout=LONG_MS)
+    assert win.status.finish_reason == "halted"
+    status = win.session.device.drive_status()
+    assert status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0
+    assert "HALTED" in win.state_label.text()
+
+
+def test_fdf_plan_draws_one_curve_per_amplitude(qtbot, make_window, tmp_path: Path) -> None:
+    plan = write_plan(tmp_path / "fdf.toml", write_scenario(tmp_path / "s.toml"), freqs=(250.0, 500.0),
+                      amps=(0.03, 0.08), record="0.3 s")
+    win = make_window(plan)
+    win.start_sweep()
+    qtbot.waitUntil(lambda: _finished(win), timeout=LONG_MS)
+    assert win.status.finish_reason == "complete"
+    assert sorted(win.response._items) == [0.03, 0.08]
+    for gain_item, *_ in win.response._items.values():
+        assert len(gain_item.getData()[0]) == 2
+    assert "FDF" in win.response.caption.text()
+
+
+def test_real_hardware_needs_the_checklist_and_unavailable_backends_are_greyed(qtbot, tiny_plan, tmp_path) -> None:
+    from drivers.protocols import Availability
+    from drivers.registry import BackendInfo
+
+    from app.ui.window import MainWindow
+
+    infos = [BackendInfo("bench-card", "a card", Availability(True, "found"), "x:Y"),
+             BackendInfo("simulated", "sim", Availability(True, "built-in simulator"), "x:Z"),
+             BackendInfo("scope", "a scope", Availability(False, "vendor runtime not installed"), "x:W")]
+    win = MainWindow(CONFIGS / "demo-rig.toml", tiny_plan, runs_root=tmp_path / "runs", backend="bench-card",
+                     backends=infos)
+    qtbot.addWidget(win)
+    item = win.setup.backend.model().item(2)
+    assert not item.isEnabled() and "vendor runtime" in win.setup.backend_reasons.text()
+    assert "REAL HARDWARE" in win.sim_label.text()
+    assert not win.start_action.isEnabled() and not win.start_sweep() and win.session is None
+    for box in win.setup.checks.values():
+        box.setChecked(True)
+    assert win.start_action.isEnabled()
+    win.setup.backend.setCurrentIndex(1)                    # back to the simulator: no checklist needed
+    for box in win.setup.checks.values():
+        box.setChecked(False)
+    assert win.start_action.isEnabled() and "SIMULATED" in win.sim_label.text()
