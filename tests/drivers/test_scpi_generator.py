@@ -241,3 +241,20 @@ def test_tcp_nodelay_removes_the_write_then_query_stall(emu, monkeypatch):
     slow.stop()
     assert slow_s > 0.03                  # the stall is real on this path
     assert fast_s < slow_s / 5
+
+
+REAL = __import__("os").environ.get("FLAMEBODE_SCPI_RESOURCE", "")
+
+
+@pytest.mark.hardware
+@pytest.mark.skipif(not REAL, reason="needs a real SCPI generator: set FLAMEBODE_SCPI_RESOURCE to its VISA address")
+def test_real_generator_round_trip():
+    """Bench run: a small drive and its read-back on a real instrument, output off at the end."""
+    g = ScpiGenerator(make_rig(None, resource=REAL, timeout="5 s"))
+    try:
+        g.set_drive(200.0, 0.05)
+        s = g.actual_settings()
+        assert s.freq_hz == pytest.approx(200.0, rel=1e-6) and s.output_on
+        assert s.amplitude_v == pytest.approx(0.05, rel=0.01)
+    finally:
+        g.stop()
