@@ -25,7 +25,7 @@ on one analog-output task (the drive) and one analog-input task (every rig chann
 Configuration comes from the rig file's ``[hardware.daqmx]`` table (see docs/hardware.md).
 
 Imports: numpy, ``app.rig``/``app.units``/``app.errors``, ``drivers.errors``/``guard``/
-``protocols`` and ``nidaqmx`` (lazily, inside methods). Never Qt, the engine or storage.
+``protocols``/``safety`` and ``nidaqmx`` (lazily, inside methods). Never Qt, the engine or storage.
 """
 
 from __future__ import annotations
@@ -45,6 +45,7 @@ import numpy as np
 from app.errors import ConfigError
 from app.rig import Rig
 from app.units import parse_quantity
+from drivers import safety
 from drivers.errors import BackendTimeout, DriverError
 from drivers.guard import CeilingGuard
 from drivers.protocols import Availability, Block, DriveStatus
@@ -274,6 +275,7 @@ class DaqmxCard:
         except BaseException:
             self._close_tasks()
             raise
+        safety.register(self)        # zeroed and closed at exit and on SIGINT/SIGTERM
 
     # ------------------------------------------------------------------ availability
     @classmethod
@@ -300,7 +302,10 @@ class DaqmxCard:
 
     # ------------------------------------------------------------------ set-up
     def _daq(self, what: str, fn: Any, *args: Any, **kwargs: Any) -> Any:
-        """Call into DAQmx: warnings recorded and logged, errors named."""
+        """Call into DAQmx: warnings recorded and logged, errors named.
+
+        ``catch_warnings`` swaps process-wide state; the lock keeps this back-end's own calls
+        from interleaving, and other warnings caught meanwhile are re-emitted unchanged."""
         import nidaqmx.errors as nerr
 
         with _WARN_LOCK, warnings.catch_warnings(record=True) as caught:
@@ -477,6 +482,7 @@ class DaqmxCard:
                     self._stop_tasks()
             finally:
                 self._close_tasks()
+                safety.unregister(self)
 
     # ------------------------------------------------------------------ internals
     def _pump_alive(self) -> bool:

@@ -279,3 +279,12 @@ def test_real_card_loopback(demo_rig_path):
         assert b.data.shape[0] == len(rig.input_channels) and math.isfinite(b.loopback_delay_s)
     finally:
         dev.stop()
+
+
+def test_registered_for_zeroing_at_exit_until_stopped(card):
+    from drivers import safety
+
+    dev = DaqmxCard(make_rig())
+    assert any(o is dev for o in safety.registered())
+    dev.stop()
+    assert not any(o is dev for o in safety.registered())
