@@ -119,7 +119,7 @@ class TuningHistory(Observable):
 
 # ====================================================================== points
 PLANNED, MEASURING, KEPT, FLAGGED, SKIPPED, FAILED, REJECTED = (
-    "planned", "measuring", "kept", "flagged", "skipped", "fault", "rejected")
+    "planned", "measuring", "kept", "flagged", "not kept", "fault", "rejected")
 
 
 @dataclass
@@ -190,7 +190,7 @@ class PointTable(Observable):
         r.faults.append(ev.name)
         if ev.fatal:
             r.status = FAILED
-        elif ev.name == "pressure-too-high" or "skipped" in ev.action:
+        elif ev.name == "pressure-too-high" or "skipped" in ev.action or "not stored" in ev.action:
             r.status = SKIPPED
         if ev.name not in r.flags:
             r.flags = r.flags + (ev.name,)

@@ -380,6 +380,12 @@ class MainWindow(QMainWindow):
         self._update_controls()
         if session is None:
             return
+        if result.error is not None:          # the engine ended on an internal error: say so as a fault
+            self.banner.show_fault(FaultRaised(
+                name="internal-error", message=str(result.error), point_index=self.status.point_index,
+                action="drive brought to zero; sweep ended; every stored point is kept",
+                advice="keep the run folder and report the message; continue with 'flamebode resume RUN_DIR' "
+                       "or re-acquire the missing points from the Review tab", fatal=True))
         fault = session.storage_fault
         if fault:
             self._say(f"Storage fault: {fault}")
@@ -428,7 +434,7 @@ class MainWindow(QMainWindow):
         self.statusBar().showMessage(text, 15000)
 
     def _task_failed(self, result: TaskResult) -> None:
-        if result.error is not None and result.name != "start":
+        if result.error is not None and result.name not in ("start", "close"):
             self._say(f"{result.name} failed: {result.error}")
             self.review.message.setText(f"{result.name} failed: {result.error}")
 
