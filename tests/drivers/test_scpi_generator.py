@@ -219,30 +219,6 @@ def test_configuration_errors_name_the_key():
         assert key in text
 
 
-def _best_drive_cycle_s(g: ScpiGenerator, repeats: int = 5) -> float:
-    best = math.inf
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        g.set_drive(200.0, 0.01)       # one step: SOUR:VOLT, OUTP ON, then SYST:ERR?
-        g.set_drive(200.0, 0.0)        # OUTP OFF, then SYST:ERR?
-        best = min(best, time.perf_counter() - t0)
-    return best
-
-
-def test_tcp_nodelay_removes_the_write_then_query_stall(emu, monkeypatch):
-    """With Nagle's algorithm on, a small write followed by another waits for the delayed ACK of
-    the first (RFC 896 with RFC 1122 delayed ACKs; about 40 ms on Linux, from memory)."""
-    fast = ScpiGenerator(make_rig(emu))
-    fast_s = _best_drive_cycle_s(fast)
-    fast.stop()
-    monkeypatch.setattr(ScpiGenerator, "_set_nodelay", lambda self: "off (test)")
-    slow = ScpiGenerator(make_rig(emu))
-    slow_s = _best_drive_cycle_s(slow, repeats=3)
-    slow.stop()
-    assert slow_s > 0.03                  # the stall is real on this path
-    assert fast_s < slow_s / 5
-
-
 REAL = __import__("os").environ.get("FLAMEBODE_SCPI_RESOURCE", "")
 
 
