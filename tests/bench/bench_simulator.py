@@ -60,6 +60,30 @@ def main() -> None:
         print(f"{label:<22}{seconds:>12.0f}{speed:>14.1f}")
     worst = min(r[2] for r in rows)
     print(f"worst case {worst:.1f}x real time: {'meets' if worst >= 20 else 'MISSES'} the 20x target")
+    guard_rows()
+
+
+def guard_rows() -> None:
+    """The ceiling guard's share: one 0.1 s block of drive samples, steady and while ramping."""
+    import time
+
+    from drivers.guard import CeilingGuard
+
+    print(f"\n{'ceiling guard, render(5120) at 51.2 kS/s':<42}{'median µs':>10}{'share of 0.1 s':>16}")
+    for label, amplitude in (("steady", None), ("ramping", 1.9)):
+        guard = CeilingGuard(2.0, 51200.0, 30.0 if amplitude else 0.3)
+        guard.request(120.0, 1.0)
+        if amplitude is None:
+            guard.render(51200)
+        else:
+            guard.request(120.0, amplitude)
+        times = []
+        for _ in range(300):
+            t0 = time.perf_counter()
+            guard.render(5120)
+            times.append(time.perf_counter() - t0)
+        med = sorted(times)[len(times) // 2]
+        print(f"  {label:<40}{med * 1e6:>10.1f}{med / 0.1 * 100:>15.3f}%")
 
 
 if __name__ == "__main__":

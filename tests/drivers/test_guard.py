@@ -359,14 +359,3 @@ def test_amplitude_schedule_advances_like_render():
     np.testing.assert_allclose(sched, np.arange(1, 11) * 0.005 * 1.0 / 0.2)
 
 
-# --------------------------------------------------------------------------- speed
-def test_render_of_5120_samples_is_cheap():
-    guard = CeilingGuard(2.0, 51200.0, 0.3)
-    guard.request(120.0, 1.0)
-    times = []
-    for _ in range(200):
-        t0 = time.perf_counter()
-        guard.render(5120)
-        times.append(time.perf_counter() - t0)
-    # tens of microseconds on an idle core; generous bound for a loaded CI machine
-    assert float(np.median(times)) < 1e-3
