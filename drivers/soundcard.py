@@ -258,9 +258,9 @@ def _no_device_reason() -> str:
     server = os.environ.get("PULSE_SERVER")
     if server:
         return (f"no duplex audio device: PortAudio lists no device with inputs and outputs, and no "
-                f"audio server answers at PULSE_SERVER={server} (start it with .ci/start-audio)")
+                f"audio server answers at PULSE_SERVER={server}")
     return ("no duplex audio device: PortAudio lists no device with both inputs and outputs (no sound "
-            "card, and no audio server running; .ci/start-audio starts a PulseAudio loopback)")
+            "card is connected, or the audio server is not running)")
 
 
 class SoundCard:
