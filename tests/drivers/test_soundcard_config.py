@@ -179,7 +179,7 @@ def test_probe_without_duplex_device_names_the_audio_server(monkeypatch: pytest.
         monkeypatch.setenv("PULSE_SERVER", server)
     av = SoundCard.probe()
     assert not av.available and "no duplex audio device" in av.reason
-    assert ("no audio server answers at PULSE_SERVER=" + server if server else "no audio server running") \
+    assert ("no audio server answers at PULSE_SERVER=" + server if server else "the audio server is not running") \
         in av.reason
 
 
