@@ -81,9 +81,9 @@ def main(argv: list[str] | None = None) -> int:
         # sweep: part-way through, the truth overlay on
         win.start_sweep()
         win.response.truth_box.setChecked(True)
-        _wait(app, lambda: win.points.n_done >= 9 and win.status.state == "tuning" and len(win.tuning_model.steps) >= 2)
-        _settle(app, 0.1)
-        win.grab().save(str(out / "sweep.png"))
+        _wait(app, lambda: win.points.n_done >= 9 and win.status.state == "tuning"
+              and len(win.tuning.amp_curve.getData()[0] if win.tuning.amp_curve.getData()[0] is not None else []) >= 2)
+        win.grab().save(str(out / "sweep.png"))       # at once: the views show that state now
         _wait(app, lambda: win.sweeps_closed >= 1 and win.review.run is not None)
         # review: one point selected, its record and figures shown
         win.tabs.setCurrentWidget(win.review)

@@ -13,6 +13,7 @@ Imports: PySide6 and the standard library only (this is the Qt side of the front
 from __future__ import annotations
 
 import threading
+from collections import deque
 from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any, Callable
 
@@ -20,24 +21,42 @@ from PySide6.QtCore import QObject, Qt, Signal, Slot
 
 
 class EventBridge(QObject):
-    """Engine thread -> GUI thread: re-emits every engine event as a queued signal."""
+    """Engine thread -> GUI thread: re-emits every engine event, in order, on the GUI thread.
+
+    The publishing thread only appends the event to a queue and, when the queue was empty,
+    emits one queued wake-up signal; the GUI thread then drains everything pending. No event
+    is dropped or merged, but a burst of blocks costs one cross-thread signal, not one each.
+    """
 
     event = Signal(object)
-    _relay = Signal(object)
+    _wake = Signal()
 
     def __init__(self, parent: QObject | None = None) -> None:
         super().__init__(parent)
         self.received = 0            # events delivered to the GUI thread (for tests and the benchmark)
-        self._relay.connect(self._deliver, Qt.ConnectionType.QueuedConnection)
+        self._pending: deque[Any] = deque()
+        self._lock = threading.Lock()
+        self._armed = False
+        self._wake.connect(self._drain, Qt.ConnectionType.QueuedConnection)
 
     def __call__(self, event: Any) -> None:
         """Bus subscriber: runs on the publishing thread; only enqueues."""
-        self._relay.emit(event)
+        with self._lock:
+            self._pending.append(event)
+            if self._armed:
+                return
+            self._armed = True
+        self._wake.emit()
 
-    @Slot(object)
-    def _deliver(self, event: Any) -> None:
-        self.received += 1
-        self.event.emit(event)
+    @Slot()
+    def _drain(self) -> None:
+        with self._lock:
+            batch = list(self._pending)
+            self._pending.clear()
+            self._armed = False
+        for ev in batch:
+            self.received += 1
+            self.event.emit(ev)
 
 
 class TaskResult:

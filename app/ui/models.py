@@ -38,23 +38,31 @@ class Observable:
 
 # ====================================================================== traces
 class TraceBuffer:
-    """The last ``seconds`` of every channel, in a ring; ``append`` never drops a sample.
+    """The last ``seconds`` of every channel (plus ``spare_seconds``), in a ring; ``append`` never
+    drops a sample.
 
-    ``total_samples`` counts every sample ever appended, so a test (or the benchmark) can
-    check that no block was lost between the engine and the plots.
+    ``snapshot`` shows a window of ``seconds`` that ends where the signal is due *now*: blocks
+    arrive a tenth of a second at a time, so the newest block is revealed at the sample rate
+    (paced by the wall clock) instead of all at once. The traces then scroll smoothly at the
+    redraw rate, one block behind the acquisition. ``total_samples`` counts every sample ever
+    appended, so a test (or the benchmark) can check that no block was lost on the way.
     """
 
-    def __init__(self, channels: tuple[str, ...], sample_rate_hz: float, seconds: float = 1.0) -> None:
+    def __init__(self, channels: tuple[str, ...], sample_rate_hz: float, seconds: float = 0.2,
+                 spare_seconds: float = 0.5) -> None:
         self.channels = tuple(channels)
         self.sample_rate_hz = float(sample_rate_hz)
-        self.capacity = max(2, int(round(seconds * sample_rate_hz)))
+        self.window = max(2, int(round(seconds * sample_rate_hz)))
+        self.capacity = self.window + max(1, int(round(spare_seconds * sample_rate_hz)))
         self._ring = np.zeros((len(self.channels), self.capacity), dtype=np.float64)
         self._head = 0               # next column to write
         self._filled = 0
         self.total_samples = 0
         self.version = 0
+        self._last_n = 0
+        self._last_arrival_s = 0.0
 
-    def append(self, data: np.ndarray) -> None:
+    def append(self, data: np.ndarray, now_s: float | None = None) -> None:
         """Append a (channels, n) block; a block longer than the ring keeps its newest part."""
         n = data.shape[1]
         if n >= self.capacity:
@@ -68,14 +76,24 @@ class TraceBuffer:
         self._filled = min(self.capacity, self._filled + n)
         self.total_samples += n
         self.version += 1
+        self._last_n = min(n, self.capacity - self.window)
+        self._last_arrival_s = time.monotonic() if now_s is None else now_s
 
-    def snapshot(self) -> tuple[np.ndarray, np.ndarray]:
-        """(time_s, data) of the buffered samples, oldest first; time ends at the newest sample (0 s)."""
-        if self._filled < self.capacity:
-            data = self._ring[:, :self._filled].copy()
-        else:
-            data = np.concatenate((self._ring[:, self._head:], self._ring[:, :self._head]), axis=1)
-        t = (np.arange(data.shape[1]) - data.shape[1]) / self.sample_rate_hz
+    def held_back(self, now_s: float | None = None) -> int:
+        """Samples of the newest block not yet due at ``now_s`` (revealed at the sample rate)."""
+        now = time.monotonic() if now_s is None else now_s
+        due = int((now - self._last_arrival_s) * self.sample_rate_hz)
+        return max(0, min(self._last_n - due, self._filled))
+
+    def snapshot(self, now_s: float | None = None, paced: bool = True) -> tuple[np.ndarray, np.ndarray]:
+        """(time_s, data): a copy of the window ending at the sample due now (or the newest one);
+        time runs to 0 s at the window's end."""
+        hold = self.held_back(now_s) if paced else 0
+        n = min(self.window, self._filled - hold)
+        end = (self._head - hold) % self.capacity
+        idx = (end - n + np.arange(n)) % self.capacity
+        data = self._ring[:, idx]                 # fancy indexing: always a copy
+        t = (np.arange(n) - n) / self.sample_rate_hz
         return t, data
 
 

@@ -40,8 +40,8 @@ from .views.style import HALT_STYLE, SIM_STYLE, configure_pyqtgraph
 from .views.traces import TracesView, channel_roles
 from .views.tuning import TuningView
 
-FRAME_MS = 33                     # ~30 frames/s
-TRACE_SECONDS = 0.5
+FRAME_MS = 30                     # ~33 frames/s
+TRACE_SECONDS = 0.2
 STATE_WORDS = {S.IDLE: "ready", S.PREPARING: "preparing the point", S.TUNING: "tuning the amplitude",
                S.SETTLING: "settling", S.RECORDING: "recording", S.EVALUATING: "computing gain and phase",
                S.STORING: "storing", S.PAUSED: "paused (drive at zero)", S.WINDING_DOWN: "ramping the drive down",
@@ -363,7 +363,7 @@ class MainWindow(QMainWindow):
         buf = self.traces_buffer
         if buf is None or buf.channels != ev.channels:
             buf = self.traces_buffer = TraceBuffer(ev.channels, ev.sample_rate_hz, TRACE_SECONDS)
-            self.traces.configure(ev.channels, self.roles or {})
+            self.traces.configure(ev.channels, self.roles or {}, window_s=TRACE_SECONDS)
         buf.append(ev.data)
 
     def _on_finished(self, ev: SweepFinished) -> None:

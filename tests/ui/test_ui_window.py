@@ -43,9 +43,10 @@ def test_fast_sweep_through_the_window(qtbot, make_window, tiny_plan) -> None:
     assert [r.status for r in win.points.rows] == ["kept", "kept", "kept"]
     curves = win.points.curves()
     assert len(curves) == 1 and list(next(iter(curves.values()))["freq_hz"]) == [200.0, 400.0, 600.0]
-    gain_item = win.response._items[0.05][0]
-    x, y = gain_item.getData()
-    assert len(x) == 3 and np.all(np.isfinite(y))
+    qtbot.waitUntil(lambda: 0.05 in win.response._items and len(win.response._items[0.05][0].getData()[0]) == 3,
+                    timeout=LONG_MS)
+    x, y = win.response._items[0.05][0].getData()
+    assert np.all(np.isfinite(y))
     # no block dropped between the engine and the plots: every acquired sample reached the trace buffer
     device = win.session.device
     assert win.traces_buffer.total_samples == round(device.time_s * device.sample_rate_hz)
@@ -164,10 +165,11 @@ def test_fdf_plan_draws_one_curve_per_amplitude(qtbot, make_window, tmp_path: Pa
     win.start_sweep()
     qtbot.waitUntil(lambda: _finished(win), timeout=LONG_MS)
     assert win.status.finish_reason == "complete"
+    qtbot.waitUntil(lambda: "FDF" in win.response.caption.text() and "4 of 4" in win.response.caption.text(),
+                    timeout=LONG_MS)
     assert sorted(win.response._items) == [0.03, 0.08]
     for gain_item, *_ in win.response._items.values():
         assert len(gain_item.getData()[0]) == 2
-    assert "FDF" in win.response.caption.text()
 
 
 def test_real_hardware_needs_the_checklist_and_unavailable_backends_are_greyed(qtbot, tiny_plan, tmp_path) -> None:

@@ -16,7 +16,7 @@ from PySide6.QtGui import QColor
 from PySide6.QtWidgets import QAbstractItemView, QHeaderView, QTableView, QVBoxLayout, QWidget
 
 from ..models import PointRow, PointTable
-from .style import STATUS_COLOURS
+from .style import STATUS_COLOURS, Coalesced
 
 COLUMNS = ("#", "Frequency (Hz)", "Target |u'|/ū", "Status", "Attempts", "Gain", "Phase (deg)", "Flags")
 Index = QModelIndex | QPersistentModelIndex
@@ -36,14 +36,20 @@ def cell_text(r: PointRow, col: int) -> str:
 
 
 class PointTableQt(QAbstractTableModel):
+    rows_changed = Signal()
+
     def __init__(self, table: PointTable, parent: Any = None) -> None:
         super().__init__(parent)
         self.table = table
-        table.subscribe(self._changed)
+        self._rows = len(table.rows)
+        table.subscribe(Coalesced(self._changed, parent=self))
 
     def _changed(self) -> None:
         self.beginResetModel()
         self.endResetModel()
+        if len(self.table.rows) != self._rows:
+            self._rows = len(self.table.rows)
+            self.rows_changed.emit()
 
     def rowCount(self, parent: Index = QModelIndex()) -> int:  # noqa: B008 (Qt's signature)
         return 0 if parent.isValid() else len(self.table.rows)
@@ -82,7 +88,7 @@ class PointListView(QWidget):
         self.view.verticalHeader().setVisible(False)
         self.view.verticalHeader().setDefaultSectionSize(20)
         header = self.view.horizontalHeader()
-        header.setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
+        header.setSectionResizeMode(QHeaderView.ResizeMode.Interactive)   # sized once per new row set, not per change
         header.setStretchLastSection(True)
         lay = QVBoxLayout(self)
         lay.setContentsMargins(0, 0, 0, 0)
@@ -91,6 +97,14 @@ class PointListView(QWidget):
         self.qt_model.modelAboutToBeReset.connect(self._remember)
         self.qt_model.modelReset.connect(self._restore)
         self.view.selectionModel().selectionChanged.connect(self._emit)
+        self.qt_model.rows_changed.connect(self._size_columns)
+
+    def _size_columns(self) -> None:
+        """Fit the columns once per new row set, leaving room for results still to come."""
+        self.view.resizeColumnsToContents()
+        fm = self.view.fontMetrics()
+        for col, sample in ((5, "0.000 ± 0.000"), (6, "+000.0"), (3, "measuring")):
+            self.view.setColumnWidth(col, max(self.view.columnWidth(col), fm.horizontalAdvance(sample) + 16))
 
     def selected(self) -> list[int]:
         rows = sorted({i.row() for i in self.view.selectionModel().selectedRows()})

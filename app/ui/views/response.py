@@ -18,7 +18,7 @@ from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import QCheckBox, QHBoxLayout, QLabel, QVBoxLayout, QWidget
 
 from ..models import PointTable
-from .style import CHANNEL_COLOURS, new_plot, pen
+from .style import CHANNEL_COLOURS, Coalesced, new_plot, pen
 
 TruthFn = Callable[[np.ndarray, float], np.ndarray]   # (freq_hz, amplitude_ratio) -> complex FTF
 
@@ -56,7 +56,7 @@ class ResponseView(QWidget):
         self.gain_plot.addItem(self._selected)
         self.phase_plot.addItem(self._selected_phase)
         self._drawn = -1
-        model.subscribe(self.refresh)
+        model.subscribe(Coalesced(self.refresh, parent=self))
 
     def set_truth(self, truth: TruthFn | None, freq_range_hz: tuple[float, float]) -> None:
         """Enable the overlay (rehearsal) or disable it (real hardware, stored run without scenario)."""

@@ -48,3 +48,23 @@ def new_plot(layout: pg.GraphicsLayoutWidget, title: str, y_label: str, x_label:
         p.setDownsampling(auto=True, mode="peak")
         p.setClipToView(True)
     return p
+
+
+class Coalesced:
+    """Calls ``fn`` once, ``interval_ms`` after the first of any number of requests (GUI thread).
+
+    Views subscribe this to their model: a burst of model changes (a fast sweep) costs one
+    redraw per frame, not one per change.
+    """
+
+    def __init__(self, fn: object, interval_ms: int = 33, parent: object = None) -> None:
+        from PySide6.QtCore import QTimer
+
+        self.timer = QTimer(parent)
+        self.timer.setSingleShot(True)
+        self.timer.setInterval(interval_ms)
+        self.timer.timeout.connect(fn)
+
+    def __call__(self) -> None:
+        if not self.timer.isActive():
+            self.timer.start()

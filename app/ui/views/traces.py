@@ -32,15 +32,17 @@ class TracesView(QWidget):
         self.curves: dict[str, pg.PlotDataItem] = {}
         self.plots: dict[str, pg.PlotItem] = {}
         self._channels: tuple[str, ...] = ()
-        self._drawn_version = -1
+        self._drawn_version: object = None
         self.frames = 0                  # redraws done (for the benchmark)
 
-    def configure(self, channels: tuple[str, ...], roles: dict[str, str], x_label: str = "time (s)") -> None:
+    def configure(self, channels: tuple[str, ...], roles: dict[str, str], x_label: str = "time (s)",
+                  window_s: float = 0.2) -> None:
         """Create the plots and one curve per channel (only when the channel set changes)."""
         if tuple(channels) == self._channels:
             return
         self.layout_widget.clear()
         self.curves, self.plots, self._channels = {}, {}, tuple(channels)
+        self.window_s = window_s
         order = [r for r in ("pressure", "light", "drive", "other") if any(roles.get(c, "other") == r
                                                                            for c in channels)]
         first = None
@@ -48,8 +50,12 @@ class TracesView(QWidget):
             title, unit = ROLE_TITLES[role]
             p = new_plot(self.layout_widget, title, unit, x_label if row == len(order) - 1 else "", row=row, col=0,
                          live=True)
+            p.showGrid(x=False, y=False)   # blended grid lines cost more to paint than the curves
+            p.enableAutoRange(x=False)          # the time axis is fixed: no range search per frame
+            p.setXRange(-self.window_s, 0.0, padding=0.0)
             if len([c for c in channels if roles.get(c, "other") == role]) > 1:
-                p.addLegend(offset=(-5, 5), labelTextSize="8pt", colCount=4)
+                p.addLegend(offset=(-5, 2), labelTextSize="8pt", colCount=8, brush=pg.mkBrush(255, 255, 255, 215),
+                            pen=pg.mkPen("#B0B0B0"))
             if first is None:
                 first = p
             else:
@@ -61,18 +67,21 @@ class TracesView(QWidget):
             curve.setDownsampling(auto=True, method="peak")
             curve.setClipToView(True)
             self.curves[ch] = curve
-        self._drawn_version = -1
+        self._drawn_version = None
 
     def refresh(self, buffer: TraceBuffer | None) -> bool:
-        """Redraw from ``buffer`` if it changed since the last frame; True when drawn."""
-        if buffer is None or buffer.version == self._drawn_version or not self.curves:
+        """Redraw from ``buffer`` when there is something new to show; True when drawn."""
+        if buffer is None or not self.curves:
+            return False
+        state = (buffer.version, buffer.held_back())
+        if state == self._drawn_version:
             return False
         t, data = buffer.snapshot()
         for ch, row in zip(buffer.channels, data):
             curve = self.curves.get(ch)
             if curve is not None:
                 curve.setData(t, row, skipFiniteCheck=True)
-        self._drawn_version = buffer.version
+        self._drawn_version = state
         self.frames += 1
         return True
 
@@ -84,7 +93,8 @@ class TracesView(QWidget):
         for ch, row in zip(channels, data):
             self.curves[ch].setData(t, np.array(row, copy=True), skipFiniteCheck=True)
         for p in self.plots.values():
-            p.enableAutoRange()
+            p.setXRange(0.0, data.shape[1] / sample_rate_hz, padding=0.0)
+            p.enableAutoRange(y=True)
 
 
 def channel_roles(rig: object) -> dict[str, str]:

@@ -16,7 +16,7 @@ from PySide6.QtCore import Qt
 from PySide6.QtWidgets import QLabel, QVBoxLayout, QWidget
 
 from ..models import TuningHistory
-from .style import new_plot, pen
+from .style import Coalesced, new_plot, pen
 
 
 class TuningView(QWidget):
@@ -45,7 +45,7 @@ class TuningView(QWidget):
         self.drive_curve = self.drive_plot.plot(pen=pen("#D55E00"), symbol="s", symbolSize=7,
                                                 symbolBrush="#D55E00", symbolPen=None)
         self._drawn = -1
-        model.subscribe(self.refresh)
+        model.subscribe(Coalesced(self.refresh, parent=self))
 
     def set_ceiling(self, ceiling_v: float) -> None:
         self.model.ceiling_v = ceiling_v
