@@ -56,6 +56,7 @@ class SweepSession:
         self.rig: Rig | None = None
         self.plan: Plan | None = None
         self.closed = False
+        self.final_drive_v: float | None = None
 
     # -------------------------------------------------------------- worker thread
     def open_and_start(self) -> "SweepSession":
@@ -121,6 +122,7 @@ class SweepSession:
                 self.writer.close()
             if self.device is not None:
                 try:
+                    self.final_drive_v = self._read_drive_v()
                     stop = getattr(self.device, "stop", None)
                     if callable(stop):
                         stop()
@@ -130,6 +132,15 @@ class SweepSession:
             raise SessionError(f"the sweep ended with an internal error: {self.engine.error!r}; "
                                f"the drive was brought to zero")
         return self.engine.finish_reason if self.engine else None
+
+    def _read_drive_v(self) -> float | None:
+        """What the output really does at the end (a halt publishes no drive event); None if unknown."""
+        from drivers.errors import DriverError
+
+        try:
+            return float(self.device.drive_status().amplitude_v)
+        except (DriverError, AttributeError):
+            return None
 
     @property
     def storage_fault(self) -> str | None:

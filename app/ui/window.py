@@ -380,6 +380,8 @@ class MainWindow(QMainWindow):
         self._update_controls()
         if session is None:
             return
+        if session.final_drive_v is not None:
+            self.status.drive_v = session.final_drive_v
         if result.error is not None:          # the engine ended on an internal error: say so as a fault
             self.banner.show_fault(FaultRaised(
                 name="internal-error", message=str(result.error), point_index=self.status.point_index,

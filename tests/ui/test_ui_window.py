@@ -155,7 +155,8 @@ def test_emergency_halt_by_shortcut_zeroes_at_once(qtbot, make_window, tiny_plan
     assert win.status.finish_reason == "halted"
     status = win.session.device.drive_status()
     assert status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0
-    assert "HALTED" in win.state_label.text()
+    qtbot.waitUntil(lambda: "HALTED" in win.state_label.text() and "drive 0.000 V" in win.state_label.text(),
+                    timeout=LONG_MS)
 
 
 def test_fdf_plan_draws_one_curve_per_amplitude(qtbot, make_window, tmp_path: Path) -> None:
@@ -195,3 +196,15 @@ def test_real_hardware_needs_the_checklist_and_unavailable_backends_are_greyed(q
     for box in win.setup.checks.values():
         box.setChecked(False)
     assert win.start_action.isEnabled() and "SIMULATED" in win.sim_label.text()
+
+
+def test_closing_the_window_mid_sweep_ramps_down_and_leaves_no_thread(qtbot, make_window, tiny_plan) -> None:
+    win = make_window(tiny_plan, fast=False)
+    win.start_sweep()
+    qtbot.waitUntil(lambda: win.status.state == "tuning" and win.status.drive_v > 0, timeout=LONG_MS)
+    session = win.session
+    win.close()                                    # waits for the ramped abort and the clean-up
+    assert session.closed and session.engine.finish_reason == "aborted"
+    status = session.device.drive_status()
+    assert status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0
+    # the autouse fixture then checks that no sweep, writer or worker thread is left
