@@ -177,6 +177,7 @@ class MainWindow(QMainWindow):
     def _wire_review(self) -> None:
         r = self.review
         r.point_list.selection_changed.connect(self._review_selected)
+        r.attempt_box.activated.connect(lambda _i: self._show_review_record())
         r.accept_button.clicked.connect(lambda: self.decide(True))
         r.reject_button.clicked.connect(lambda: self.decide(False))
         r.reacquire_button.clicked.connect(lambda: self.reacquire(r.point_list.selected()))
@@ -479,6 +480,9 @@ class MainWindow(QMainWindow):
         if not indices or self.review.run is None:
             return
         self.review.show_attempts(indices[0])
+        self._show_review_record()
+
+    def _show_review_record(self) -> None:
         att = self.review.current_attempt()
         if att is None or att["record_status"] != "ok":
             return

@@ -121,6 +121,15 @@ def test_review_reject_reacquire_reprocess_export(qtbot, make_window, tiny_plan,
     assert sorted(run.accepted()) == [0, 1, 2] and len(run.attempts_of(1)) == 2
     assert review.points.row(1).status == "kept"
 
+    review.point_list.select_points([1])                             # choose the first attempt again
+    qtbot.waitUntil(lambda: review.attempt_box.count() == 2, timeout=LONG_MS)
+    first = run.attempts_of(1)[0]["attempt_id"]
+    review.attempt_box.setCurrentIndex(review.attempt_box.findData(first))
+    old = review.run
+    qtbot.mouseClick(review.accept_button, Qt.MouseButton.LeftButton)
+    qtbot.waitUntil(lambda: review.run is not old, timeout=LONG_MS)
+    assert open_run(run_dir).accepted()[1]["attempt_id"] == first
+
     rig_text = (CONFIGS / "demo-rig.toml").read_text(encoding="utf-8").replace('"14.2 mV/Pa"', '"14.9 mV/Pa"')
     new_rig = tmp_path / "edited-rig.toml"
     new_rig.write_text(rig_text, encoding="utf-8")

@@ -11,8 +11,8 @@ import math
 from typing import Any
 
 from PySide6.QtCore import Qt
-from PySide6.QtWidgets import (QGridLayout, QGroupBox, QLabel, QPushButton, QSplitter, QTextBrowser, QVBoxLayout,
-                               QWidget)
+from PySide6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QLabel, QPushButton, QSplitter, QTextBrowser,
+                               QVBoxLayout, QWidget)
 
 from ..models import PointTable, TuningHistory
 from .points import PointListView
@@ -44,7 +44,11 @@ class ReviewView(QWidget):
         self.reject_button.setToolTip("Do not use this attempt (R)")
         self.reacquire_button.setToolTip("Measure the selected points again; old attempts are kept")
         self.export_button.setToolTip("Write CSV, JSON summary and gain/phase plots into RUN/export (Ctrl+E)")
+        self.attempt_box = QComboBox()
+        self.attempt_box.setToolTip("The attempt that Accept / Reject act on, and whose record is drawn")
         grid = QGridLayout()
+        grid.addWidget(QLabel("Attempt:"), 2, 0)
+        grid.addWidget(self.attempt_box, 2, 1, 1, 2)
         for k, b in enumerate((self.accept_button, self.reject_button, self.reacquire_button,
                                self.reacquire_flagged_button, self.reprocess_button, self.export_button)):
             grid.addWidget(b, k // 3, k % 3)
@@ -88,6 +92,10 @@ class ReviewView(QWidget):
         self.title.setText(f"<b>{kind} run</b> {run.run_dir} — {n_ok} of {len(run.points)} points with an "
                            f"accepted attempt, {len(run.flagged_points())} flagged{problems}")
         self.set_enabled(run.index_readable)
+        self.attempt_box.clear()
+        self.details.clear()
+        for i in self.point_list.selected()[:1]:     # the selection survives a reload: show it afresh
+            self.show_attempts(i)
 
     def show_attempts(self, point_index: int) -> None:
         """Figures and decisions of every attempt of one point."""
@@ -106,12 +114,26 @@ class ReviewView(QWidget):
                          f"({a.get('decision_reason', '')}); drive {a['drive_v']:.3f} V; {res}; flags: "
                          f"{', '.join(a['flags']) or 'none'}; record {a['record_status']}<br><small>{figs}</small>")
         self.details.setHtml("<br>".join(lines))
+        atts = self.run.attempts_of(point_index)
+        accepted = [k for k, a in enumerate(atts) if a["decision"] == "accepted"]
+        blocked = self.attempt_box.blockSignals(True)
+        self.attempt_box.clear()
+        for a in atts:
+            self.attempt_box.addItem(f"point {point_index + 1}, attempt {a['seq']} — {a['decision'] or 'not used'}",
+                                     a["attempt_id"])
+        if atts:
+            self.attempt_box.setCurrentIndex(accepted[-1] if accepted else len(atts) - 1)
+        self.attempt_box.blockSignals(blocked)
 
     def current_attempt(self) -> dict[str, Any] | None:
-        """The attempt shown for the first selected point: the accepted one, else the newest."""
+        """The attempt chosen for the first selected point (by default the accepted one, else the newest)."""
         sel = self.point_list.selected()
         if self.run is None or not sel:
             return None
         atts = self.run.attempts_of(sel[0])
+        chosen = self.attempt_box.currentData()
+        for a in atts:
+            if a["attempt_id"] == chosen:
+                return a
         accepted = [a for a in atts if a["decision"] == "accepted"]
         return (accepted or atts or [None])[-1]
