@@ -45,7 +45,8 @@ TRANSITIONS: dict[str, frozenset[str]] = {
     SETTLING: frozenset({RECORDING, PAUSED, WINDING_DOWN, HALTED}),
     # recording is never paused: the record finishes, is evaluated and stored first
     RECORDING: frozenset({EVALUATING, WINDING_DOWN, HALTED}),
-    EVALUATING: frozenset({STORING, WINDING_DOWN, HALTED}),
+    # evaluating -> preparing: the record could not be evaluated; the point is flagged, the sweep goes on
+    EVALUATING: frozenset({STORING, PREPARING, WINDING_DOWN, HALTED}),
     STORING: frozenset({PREPARING, PAUSED, WINDING_DOWN, HALTED}),
     # resume: back to tuning (re-tune the point) or to preparing (the next point)
     PAUSED: frozenset({TUNING, PREPARING, WINDING_DOWN, HALTED}),

@@ -495,6 +495,7 @@ class SweepEngine:
         except DriverError:
             pass
         self._drive_v = 0.0
+        self.bus.publish(DriveChanged(freq_hz=self._freq_hz, amplitude_v=0.0, ceiling_v=self.ceiling_v))
 
     def _ramp_to_zero(self, stage: str) -> None:
         status = self.drive.drive_status()

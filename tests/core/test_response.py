@@ -179,3 +179,13 @@ def test_position_uncertainty_widens_the_interval(rig):
     mm = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, f, _with(rig, position_uncertainty="1 mm"))
     assert 1e-3 < mm.quality["relative_uncertainty_systematic"] < 0.05
     assert mm.phase_ci95_rad > plain.phase_ci95_rad
+
+
+def test_flame_going_out_during_the_record_is_named(rig, mean):
+    rec = make_record(rig, 200.0, n_tau(1.0, 2e-3))
+    data = rec.data.copy()
+    light_row = rec.channels.index(rig.light.channel)
+    half = data.shape[1] // 2
+    data[light_row, half:] = rig.light.dark_offset + 1e-4 * np.random.default_rng(0).standard_normal(half)
+    with pytest.raises(RecordError, match="not steady"):
+        evaluate_point(data, rec.channels, rec.sample_rate_hz, 200.0, rig, mean)

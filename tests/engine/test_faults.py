@@ -109,3 +109,27 @@ def test_clipping_is_flagged(rig) -> None:
     engine, rec = make_engine(small, plan, sim)
     engine.run()
     assert "input-clipping" in [f.name for f in rec.of(FaultRaised)]
+
+
+def test_a_record_that_cannot_be_evaluated_flags_its_point_and_the_sweep_goes_on(rig) -> None:
+    # Regression: a failed evaluation used to leave the engine in 'evaluating', from which the
+    # next point's 'preparing' was refused and the whole sweep ended with an internal error.
+    from app.core.response import evaluate_point
+    from app.errors import RecordError
+
+    calls = {"n": 0}
+
+    def evaluate(*args, **kwargs):
+        calls["n"] += 1
+        if calls["n"] == 1:
+            raise RecordError("mean light is not above the dark offset")
+        return evaluate_point(*args, **kwargs)
+
+    sim = SimulatedBurner(rig, CONFIGS / "demo-scenario.toml", seed=4)
+    engine, rec = make_engine(rig, short_plan([300.0, 400.0], [0.05], record_s=0.5), sim)
+    engine._evaluate = evaluate
+    assert engine.run() == "complete"
+    assert [e.name for e in rec.of(FaultRaised)] == ["evaluation-failed"]
+    assert [e.point_index for e in rec.of(PointSettled)] == [1]
+    assert engine.error is None
+    assert sim.drive_status().amplitude_v == 0.0
