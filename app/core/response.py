@@ -220,13 +220,11 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     light_mean = float(fit.offset[prep.light_row]) - rig.light.dark_offset
     warnings: list[str] = []
     unsteady = float(fit.rms_residual[prep.light_row])
-    if light_mean <= unsteady:     # the mean is within the light's own scatter of the dark level
-        raise RecordError(f"mean light on '{rig.light.channel}' ({fit.offset[prep.light_row]:.4g} V) is not above "
-                          f"the dark offset ({rig.light.dark_offset:.4g} V): no flame, or a wrong dark offset")
     if light_mean <= 3.0 * unsteady:
-        raise RecordError(f"light on '{rig.light.channel}' is not steady enough to give Q'/Q: mean "
-                          f"{light_mean:.4g} V above the dark offset, but {unsteady:.4g} V rms that is not the "
-                          f"forcing (a flame going out or re-lighting during the record?)")
+        raise RecordError(f"light on '{rig.light.channel}' gives no usable Q'/Q: its mean is {light_mean:.4g} V above "
+                          f"the dark offset ({rig.light.dark_offset:.4g} V) with {unsteady:.4g} V rms that is not the "
+                          f"forcing: no flame, a flame going out or re-lighting during the record, or a wrong "
+                          f"dark offset")
     light_ratio = complex(fit.amplitude[prep.light_row]) / light_mean
     var_light_ratio = float(fit.var_amplitude[prep.light_row]) / light_mean**2
 
