@@ -19,10 +19,11 @@ from pathlib import Path
 from typing import Annotated, Any, Literal
 
 import numpy as np
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, model_validator
 
 from .errors import ConfigError
-from .rig import Rig, format_validation_error, read_toml
+from .configfile import load_model, model_from_dict
+from .rig import Rig
 from .units import parse_quantity
 
 
@@ -38,6 +39,9 @@ SmallVoltage = Annotated[float, _q("voltage"), Field(ge=0.0)]
 Pressure = Annotated[float, _q("pressure"), Field(gt=0.0)]
 
 RMS_TO_PEAK = math.sqrt(2.0)
+
+
+PLAN_DOC = "docs/plan-file.md"
 
 
 class _Strict(BaseModel):
@@ -262,20 +266,12 @@ class Plan(_Strict):
 
 
 def plan_from_dict(data: dict[str, Any], path: str = "<plan>") -> Plan:
-    try:
-        return Plan.model_validate({**data, "source_path": str(path)})
-    except ValidationError as err:
-        exc = format_validation_error(str(path), err)
-        raise ConfigError(str(path), [p.replace("docs/rig-file.md", "docs/plan-file.md")
-                                      for p in exc.problems]) from None
+    return model_from_dict(Plan, data, str(path), PLAN_DOC)
 
 
 def load_plan(path: str | Path, rig: Rig | None = None) -> Plan:
     """Load and validate a plan file; with ``rig``, also check it against that rig."""
-    data = read_toml(path)
-    if "source_path" in data:
-        raise ConfigError(str(path), ["source_path: unknown key (check spelling; see docs/plan-file.md)"])
-    plan = plan_from_dict(data, str(path))
+    plan = load_model(Plan, path, PLAN_DOC)
     if rig is not None:
         plan.check_against(rig)
     return plan

@@ -11,14 +11,12 @@ Imports: standard library, pydantic and ``app.units`` / ``app.errors`` only.
 from __future__ import annotations
 
 import math
-import tomllib
 from pathlib import Path
 from typing import Annotated, Any
 
-from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationError,
-                      field_validator, model_validator)
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator, model_validator
 
-from .errors import ConfigError
+from .configfile import format_validation_error, load_model, model_from_dict, read_toml  # noqa: F401 (re-exported)
 from .units import parse_quantity
 
 
@@ -35,6 +33,7 @@ Frequency = Annotated[float, _q("frequency"), Field(gt=0.0)]
 Duration = Annotated[float, _q("time"), Field(ge=0.0)]
 VolumeFlow = Annotated[float, _q("volume_flow"), Field(ge=0.0)]
 
+RIG_DOC = "docs/rig-file.md"
 KNOWN_SPECIES = ("N2", "O2", "AR", "CO2", "H2O", "CH4", "H2", "C3H8", "NH3")
 # Dry air by mole fraction (handbook composition, CO2 folded into Ar is not done: kept explicit)
 DRY_AIR = {"N2": 0.78084, "O2": 0.20946, "AR": 0.00934, "CO2": 0.00036}
@@ -224,45 +223,10 @@ class Rig(_Strict):
         raise KeyError(channel)
 
 
-def format_validation_error(path: str, err: ValidationError) -> ConfigError:
-    """Turn a pydantic error into a ConfigError whose lines read 'key.path: what is wrong'."""
-    problems = []
-    for e in err.errors():
-        loc = ".".join(str(p) if not isinstance(p, int) else f"[{p}]" for p in e["loc"]).replace(".[", "[")
-        msg = e["msg"].removeprefix("Value error, ")
-        if e["type"] == "extra_forbidden":
-            msg = "unknown key (check spelling; see docs/rig-file.md)"
-        elif e["type"] == "missing":
-            msg = "required key is missing"
-        problems.append(f"{loc or '(top level)'}: {msg}")
-    return ConfigError(path, problems)
-
-
-def read_toml(path: str | Path) -> dict[str, Any]:
-    """Read a TOML file or raise ConfigError naming the file and the line."""
-    p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ConfigError(str(p), ["file not found"]) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ConfigError(str(p), [f"cannot read file: {exc}"]) from None
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(str(p), [f"not valid TOML: {exc}"]) from None
-
-
 def rig_from_dict(data: dict[str, Any], path: str = "<rig>") -> Rig:
-    try:
-        return Rig.model_validate({**data, "source_path": str(path)})
-    except ValidationError as err:
-        raise format_validation_error(str(path), err) from None
+    return model_from_dict(Rig, data, str(path), RIG_DOC)
 
 
 def load_rig(path: str | Path) -> Rig:
     """Load and validate a rig file."""
-    data = read_toml(path)
-    if "source_path" in data:
-        raise ConfigError(str(path), ["source_path: unknown key (check spelling; see docs/rig-file.md)"])
-    return rig_from_dict(data, str(path))
+    return load_model(Rig, path, RIG_DOC)

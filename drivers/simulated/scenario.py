@@ -17,10 +17,11 @@ import math
 from pathlib import Path
 from typing import Annotated, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, model_validator
 
+from app.configfile import load_model, model_from_dict
 from app.errors import ConfigError
-from app.rig import Rig, format_validation_error, load_rig, read_toml
+from app.rig import Rig, load_rig
 from app.units import parse_quantity
 
 
@@ -217,16 +218,13 @@ class Scenario(_Strict):
             raise ConfigError(where, problems)
 
 
+SCENARIO_DOC = "docs/user-guide.md (scenario files)"
+
+
 def scenario_from_dict(data: dict, path: str = "<scenario>") -> Scenario:
-    try:
-        return Scenario.model_validate({**data, "source_path": str(path)})
-    except ValidationError as err:
-        raise format_validation_error(str(path), err) from None
+    return model_from_dict(Scenario, data, str(path), SCENARIO_DOC)
 
 
 def load_scenario(path: str | Path) -> Scenario:
     """Load and validate a scenario file (the rig it names is not loaded here)."""
-    data = read_toml(path)
-    if "source_path" in data:
-        raise ConfigError(str(path), ["source_path: unknown key"])
-    return scenario_from_dict(data, str(Path(path).resolve()))
+    return load_model(Scenario, path, SCENARIO_DOC, source_path=str(Path(path).resolve()))
