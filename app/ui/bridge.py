@@ -2,7 +2,8 @@
 
 ``EventBridge`` is subscribed to the engine's event bus. It is called on the engine's
 thread and does nothing but emit a queued Qt signal carrying the (frozen) event, so every
-slot runs on the GUI thread. ``TaskRunner`` runs blocking work (opening a back-end,
+slot runs on the GUI thread; bulk data (acquired blocks) may instead be handed to a
+thread-safe sink right there, so the GUI thread never handles blocks one by one. ``TaskRunner`` runs blocking work (opening a back-end,
 creating a run folder, accept/reject, reprocess, export, closing a sweep) on one worker
 thread and hands each result back through a queued signal; the GUI thread never waits
 for a driver or a file write.
@@ -21,26 +22,34 @@ from PySide6.QtCore import QObject, Qt, Signal, Slot
 
 
 class EventBridge(QObject):
-    """Engine thread -> GUI thread: re-emits every engine event, in order, on the GUI thread.
+    """Engine thread -> GUI thread: re-emits engine events, in order, on the GUI thread.
 
-    The publishing thread only appends the event to a queue and, when the queue was empty,
-    emits one queued wake-up signal; the GUI thread then drains everything pending. No event
-    is dropped or merged, but a burst of blocks costs one cross-thread signal, not one each.
+    ``sink`` (optional) sees every event first, on the publishing thread; when it returns True
+    it has taken the event (a block copied into a locked ring) and the event is not queued.
+    It must be quick and thread-safe. Every other event is appended to a queue and, when the
+    queue was empty, one queued wake-up signal is emitted; the GUI thread then drains
+    everything pending. No event is dropped or merged, but a burst costs one cross-thread
+    signal, not one each.
     """
 
     event = Signal(object)
     _wake = Signal()
 
-    def __init__(self, parent: QObject | None = None) -> None:
+    def __init__(self, parent: QObject | None = None, sink: Callable[[Any], bool] | None = None) -> None:
         super().__init__(parent)
         self.received = 0            # events delivered to the GUI thread (for tests and the benchmark)
+        self.sunk = 0                # events taken by the sink on the publishing thread
+        self._sink = sink
         self._pending: deque[Any] = deque()
         self._lock = threading.Lock()
         self._armed = False
         self._wake.connect(self._drain, Qt.ConnectionType.QueuedConnection)
 
     def __call__(self, event: Any) -> None:
-        """Bus subscriber: runs on the publishing thread; only enqueues."""
+        """Bus subscriber: runs on the publishing thread; hands to the sink or enqueues."""
+        if self._sink is not None and self._sink(event):
+            self.sunk += 1
+            return
         with self._lock:
             self._pending.append(event)
             if self._armed:

@@ -4,6 +4,8 @@ the response curve and the sweep status.
 Widgets are thin: they read these models (on a ~30 Hz timer or when notified) and draw.
 Models are fed on the GUI thread by the window from the bridge's queued signals, so they
 need no locks; every accessor returns copies, never an array a model still writes into.
+The one exception is ``LiveTraces``: the bridge feeds it on the engine's thread (a copy into
+a preallocated ring), so it holds a lock and the GUI thread only takes a snapshot per frame.
 
 Imports: standard library, numpy and the engine's event types only. Never Qt or pyqtgraph.
 """
@@ -11,13 +13,14 @@ Imports: standard library, numpy and the engine's event types only. Never Qt or 
 from __future__ import annotations
 
 import math
+import threading
 import time
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
 import numpy as np
 
-from app.engine.events import FaultRaised, PointSettled, StateChanged, TuningStep
+from app.engine.events import BlockAcquired, FaultRaised, PointSettled, StateChanged, TuningStep
 
 
 class Observable:
@@ -91,10 +94,74 @@ class TraceBuffer:
         hold = self.held_back(now_s) if paced else 0
         n = min(self.window, self._filled - hold)
         end = (self._head - hold) % self.capacity
-        idx = (end - n + np.arange(n)) % self.capacity
-        data = self._ring[:, idx]                 # fancy indexing: always a copy
+        start = end - n
+        if start >= 0:
+            data = self._ring[:, start:end].copy()
+        else:                                     # the window wraps round the end of the ring
+            data = np.concatenate((self._ring[:, start:], self._ring[:, :end]), axis=1)
         t = (np.arange(n) - n) / self.sample_rate_hz
         return t, data
+
+
+@dataclass(frozen=True)
+class TraceFrame:
+    """One frame of the live traces: copies, safe to hand to the plots."""
+
+    channels: tuple[str, ...]
+    time_s: np.ndarray
+    data: np.ndarray          # (channels, samples) volts
+    state: tuple[int, int, int]
+
+
+class LiveTraces:
+    """The live ``TraceBuffer``, fed on the engine's thread and read on the GUI thread.
+
+    ``offer`` is called by the bridge on the publishing thread for every event: it copies a
+    ``BlockAcquired`` into the ring (under a lock, vectorised) and says it took the event, so
+    the GUI thread never handles blocks one by one. ``frame`` (GUI thread, once per redraw)
+    returns a copy of the visible window, or None when nothing changed since the last one.
+    Every sample reaches the ring; only the display shows the newest window.
+    """
+
+    def __init__(self, seconds: float) -> None:
+        self.seconds = float(seconds)
+        self._lock = threading.Lock()
+        self._buffer: TraceBuffer | None = None
+        self._generation = 0           # bumped by every new buffer (a new sweep or channel set)
+
+    @property
+    def buffer(self) -> TraceBuffer | None:
+        return self._buffer
+
+    def offer(self, event: object) -> bool:
+        """Bus-side intake: True when ``event`` was a block and is now in the ring."""
+        if not isinstance(event, BlockAcquired):
+            return False
+        with self._lock:
+            buf = self._buffer
+            if buf is None or buf.channels != event.channels or buf.sample_rate_hz != event.sample_rate_hz:
+                buf = self._buffer = TraceBuffer(event.channels, event.sample_rate_hz, self.seconds)
+                self._generation += 1
+            buf.append(event.data)
+        return True
+
+    def reset(self) -> None:
+        with self._lock:
+            self._buffer = None
+            self._generation += 1
+
+    def frame(self, last_state: object = None) -> TraceFrame | None:
+        """The visible window now, or None when there is no buffer or nothing new since ``last_state``."""
+        with self._lock:
+            buf = self._buffer
+            if buf is None:
+                return None
+            now = time.monotonic()
+            state = (self._generation, buf.version, buf.held_back(now))
+            if state == last_state:
+                return None
+            t, data = buf.snapshot(now)
+            return TraceFrame(buf.channels, t, data, state)
 
 
 # ====================================================================== tuning

@@ -25,11 +25,11 @@ from PySide6.QtWidgets import (QFileDialog, QLabel, QMainWindow, QSizePolicy, QS
                                QToolButton, QVBoxLayout, QWidget)
 
 from app.engine import states as S
-from app.engine.events import (BlockAcquired, DriveChanged, FaultRaised, PointSettled, StateChanged, SweepFinished,
+from app.engine.events import (DriveChanged, FaultRaised, PointSettled, StateChanged, SweepFinished,
                                SweepStarted, TuningStep)
 
 from .bridge import EventBridge, TaskResult, TaskRunner
-from .models import PointTable, SweepStatus, TraceBuffer, TuningHistory, format_duration
+from .models import LiveTraces, PointTable, SweepStatus, TraceBuffer, TuningHistory, format_duration
 from .session import SweepRequest, SweepSession
 from .views.fault_banner import FaultBanner
 from .views.points import PointListView
@@ -56,14 +56,14 @@ class MainWindow(QMainWindow):
         super().__init__()
         configure_pyqtgraph()
         self.setWindowTitle("flamebode — flame response sweeps")
-        self.bridge = EventBridge(self)
+        self.live = LiveTraces(TRACE_SECONDS)          # fed on the engine's thread by the bridge
+        self.bridge = EventBridge(self, sink=self.live.offer)
         self.tasks = TaskRunner(self)
         self.bridge.event.connect(self._on_event)
         self.tasks.finished.connect(self._task_failed)
         self.status = SweepStatus()
         self.points = PointTable()
         self.tuning_model = TuningHistory()
-        self.traces_buffer: TraceBuffer | None = None
         self.session: SweepSession | None = None
         self.last_run_dir: Path | None = None
         self.sweeps_closed = 0            # sweeps whose engine, writer and back-end are closed
@@ -305,16 +305,14 @@ class MainWindow(QMainWindow):
 
     def reset_live_view(self) -> None:
         self.banner.reset()
-        self.traces_buffer = None
+        self.live.reset()
         self.tuning_model.steps, self.tuning_model.point_index = [], None
         self.tuning_model.notify()
         self.response.reset()
 
     # ================================================================== events (GUI thread)
     def _on_event(self, ev: Any) -> None:
-        if isinstance(ev, BlockAcquired):
-            self._on_block(ev)
-        elif isinstance(ev, StateChanged):
+        if isinstance(ev, StateChanged):
             self.status.state, self.status.point_index = ev.new, ev.point_index
             self.points.on_state(ev)
             self._update_controls()
@@ -360,13 +358,6 @@ class MainWindow(QMainWindow):
         to_peak = ev.plan.amplitude.to_peak
         return lambda f, amp: true_ftf(scenario, f, amp * to_peak)
 
-    def _on_block(self, ev: BlockAcquired) -> None:
-        buf = self.traces_buffer
-        if buf is None or buf.channels != ev.channels:
-            buf = self.traces_buffer = TraceBuffer(ev.channels, ev.sample_rate_hz, TRACE_SECONDS)
-            self.traces.configure(ev.channels, self.roles or {}, window_s=TRACE_SECONDS)
-        buf.append(ev.data)
-
     def _on_finished(self, ev: SweepFinished) -> None:
         self.status.finish_reason = ev.reason
         self.points.on_finished()
@@ -397,9 +388,17 @@ class MainWindow(QMainWindow):
         self.sweeps_closed += 1
         self.open_review(run_dir, show=False)   # the operator keeps the sweep (and any fault banner) in view
 
+    @property
+    def traces_buffer(self) -> TraceBuffer | None:
+        """The live ring buffer (None before the first block of a sweep); read-only use."""
+        return self.live.buffer
+
     def _frame(self) -> None:
-        """~30 Hz: redraw traces from a copy; refresh the state line."""
-        self.traces.refresh(self.traces_buffer)
+        """~30 Hz: redraw traces from a snapshot of the live ring; refresh the state line."""
+        frame = self.live.frame(self.traces.drawn_state)
+        if frame is not None:
+            self.traces.configure(frame.channels, self.roles or {}, window_s=TRACE_SECONDS)
+            self.traces.show_frame(frame)
         self._state_line()
 
     def _state_line(self) -> None:

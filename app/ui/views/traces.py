@@ -1,7 +1,8 @@
 """Live traces of every channel, grouped by role (pressures, light, drive reference).
 
-Curves are created once per channel set; ``refresh`` (called by the window's ~30 Hz
-timer) hands them copies of the ring buffer, never the buffer itself. ``show_record``
+Curves are created once per channel set; ``show_frame`` (called by the window's ~30 Hz
+timer) hands them a ``TraceFrame``: copies of the ring buffer's visible window, never the
+buffer itself. ``show_record``
 draws a stored record in review.
 
 Imports: PySide6, pyqtgraph, numpy, ``app.ui.models`` and ``.style`` only.
@@ -13,7 +14,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6.QtWidgets import QVBoxLayout, QWidget
 
-from ..models import TraceBuffer
+from ..models import TraceFrame
 from .style import CHANNEL_COLOURS, new_plot, pen
 
 ROLE_TITLES = {"pressure": ("Pressures", "V at the ADC"), "light": ("Heat-release light", "V"),
@@ -32,7 +33,7 @@ class TracesView(QWidget):
         self.curves: dict[str, pg.PlotDataItem] = {}
         self.plots: dict[str, pg.PlotItem] = {}
         self._channels: tuple[str, ...] = ()
-        self._drawn_version: object = None
+        self.drawn_state: object = None    # state of the last frame drawn
         self.frames = 0                  # redraws done (for the benchmark)
 
     def configure(self, channels: tuple[str, ...], roles: dict[str, str], x_label: str = "time (s)",
@@ -42,6 +43,8 @@ class TracesView(QWidget):
             return
         self.layout_widget.clear()
         self.curves, self.plots, self._channels = {}, {}, tuple(channels)
+        self._rows_of: dict[str, list[int]] = {}
+        self._y_range: dict[str, tuple[float, float]] = {}
         self.window_s = window_s
         order = [r for r in ("pressure", "light", "drive", "other") if any(roles.get(c, "other") == r
                                                                            for c in channels)]
@@ -51,7 +54,7 @@ class TracesView(QWidget):
             p = new_plot(self.layout_widget, title, unit, x_label if row == len(order) - 1 else "", row=row, col=0,
                          live=True)
             p.showGrid(x=False, y=False)   # blended grid lines cost more to paint than the curves
-            p.enableAutoRange(x=False)          # the time axis is fixed: no range search per frame
+            p.enableAutoRange(x=False, y=False)  # ranges set from each frame (below): no search per paint
             p.setXRange(-self.window_s, 0.0, padding=0.0)
             if len([c for c in channels if roles.get(c, "other") == role]) > 1:
                 p.addLegend(offset=(-5, 2), labelTextSize="8pt", colCount=8, brush=pg.mkBrush(255, 255, 255, 215),
@@ -61,29 +64,35 @@ class TracesView(QWidget):
             else:
                 p.setXLink(first)
             self.plots[role] = p
+            self._rows_of[role] = [i for i, c in enumerate(channels) if roles.get(c, "other") == role]
         for i, ch in enumerate(channels):
             p = self.plots[roles.get(ch, "other")]
             curve = p.plot(pen=pen(CHANNEL_COLOURS[i % len(CHANNEL_COLOURS)]), name=ch, skipFiniteCheck=True)
             curve.setDownsampling(auto=True, method="peak")
             curve.setClipToView(True)
             self.curves[ch] = curve
-        self._drawn_version = None
+        self.drawn_state = None
 
-    def refresh(self, buffer: TraceBuffer | None) -> bool:
-        """Redraw from ``buffer`` when there is something new to show; True when drawn."""
-        if buffer is None or not self.curves:
-            return False
-        state = (buffer.version, buffer.held_back())
-        if state == self._drawn_version:
-            return False
-        t, data = buffer.snapshot()
-        for ch, row in zip(buffer.channels, data):
+    def show_frame(self, frame: TraceFrame) -> None:
+        """Draw a live frame (copies, owned by the curves from now on)."""
+        for ch, row in zip(frame.channels, frame.data):
             curve = self.curves.get(ch)
             if curve is not None:
-                curve.setData(t, row, skipFiniteCheck=True)
-        self._drawn_version = state
+                curve.setData(frame.time_s, row, skipFiniteCheck=True)
+        if frame.channels == self._channels and frame.data.shape[1]:
+            self._follow_y(frame.data)
+        self.drawn_state = frame.state
         self.frames += 1
-        return True
+
+    def _follow_y(self, data: np.ndarray) -> None:
+        """Each plot's y range follows its curves with hysteresis: it changes (and the axis is
+        redrawn) only when a curve leaves the range or fills less than a third of it."""
+        for role, rows in self._rows_of.items():
+            lo, hi = float(data[rows].min()), float(data[rows].max())
+            new = stable_range(self._y_range.get(role), lo, hi)
+            if new != self._y_range.get(role):
+                self._y_range[role] = new
+                self.plots[role].setYRange(*new, padding=0.0)
 
     def show_record(self, data: np.ndarray, channels: tuple[str, ...], sample_rate_hz: float,
                     roles: dict[str, str]) -> None:
@@ -95,6 +104,18 @@ class TracesView(QWidget):
         for p in self.plots.values():
             p.setXRange(0.0, data.shape[1] / sample_rate_hz, padding=0.0)
             p.enableAutoRange(y=True)
+
+
+def stable_range(current: tuple[float, float] | None, lo: float, hi: float,
+                 margin: float = 0.15) -> tuple[float, float]:
+    """A display range holding [lo, hi]: ``current`` when it still fits well, else a new one
+    with ``margin`` of the span on each side (never empty)."""
+    span = max(hi - lo, 1e-6 * max(abs(lo), abs(hi)), 1e-9)
+    if current is not None:
+        c_lo, c_hi = current
+        if c_lo <= lo and hi <= c_hi and (hi - lo) >= (c_hi - c_lo) / 3.0:
+            return current
+    return (lo - margin * span, hi + margin * span)
 
 
 def channel_roles(rig: object) -> dict[str, str]:
