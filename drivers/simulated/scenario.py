@@ -218,7 +218,7 @@ class Scenario(_Strict):
             raise ConfigError(where, problems)
 
 
-SCENARIO_DOC = "docs/user-guide.md (scenario files)"
+SCENARIO_DOC = "docs/scenario-file.md"
 
 
 def scenario_from_dict(data: dict, path: str = "<scenario>") -> Scenario:
