@@ -37,7 +37,6 @@ import os
 import select
 import socket
 import threading
-import time
 from dataclasses import dataclass
 from importlib import metadata
 from typing import Any
