@@ -109,3 +109,21 @@ def test_y_range_holds_until_a_trace_leaves_it_or_shrinks_a_lot() -> None:
     assert shrunk[1] - shrunk[0] < (grown[1] - grown[0]) / 3.0
     flat = stable_range(None, 0.5, 0.5)                             # a constant trace still gets a range
     assert flat[0] < 0.5 < flat[1]
+
+
+def test_trace_plots_are_rebuilt_when_the_roles_arrive_after_the_first_frame(qtbot) -> None:
+    from app.ui.views.traces import TracesView
+
+    live = LiveTraces(seconds=0.2)
+    live.offer(_block(0, 300))
+    view = TracesView()
+    qtbot.addWidget(view)
+    frame = live.frame()
+    view.configure(frame.channels, {})                              # blocks drawn before the sweep's rig is known
+    view.show_frame(frame)
+    assert list(view.plots) == ["other"]
+    view.configure(frame.channels, {"p1": "pressure", "p2": "pressure", "light": "light"})
+    view.show_frame(frame)
+    assert list(view.plots) == ["pressure", "light"] and set(view.curves) == set(CHANNELS)
+    lo, hi = view.plots["light"].viewRange()[1]
+    assert lo <= frame.data[2].min() and frame.data[2].max() <= hi     # the y range holds the light trace

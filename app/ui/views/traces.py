@@ -33,18 +33,22 @@ class TracesView(QWidget):
         self.curves: dict[str, pg.PlotDataItem] = {}
         self.plots: dict[str, pg.PlotItem] = {}
         self._channels: tuple[str, ...] = ()
+        self._roles: dict[str, str] = {}
+        self._rows_of: dict[str, list[int]] = {}             # role -> rows of the frame it draws
+        self._y_range: dict[str, tuple[float, float]] = {}
         self.drawn_state: object = None    # state of the last frame drawn
         self.frames = 0                  # redraws done (for the benchmark)
 
     def configure(self, channels: tuple[str, ...], roles: dict[str, str], x_label: str = "time (s)",
                   window_s: float = 0.2) -> None:
-        """Create the plots and one curve per channel (only when the channel set changes)."""
-        if tuple(channels) == self._channels:
+        """Create the plots and one curve per channel (only when the channels or their roles change:
+        the first blocks may be drawn before the sweep's rig, and so the roles, are known)."""
+        roles = {c: roles.get(c, "other") for c in channels}
+        if tuple(channels) == self._channels and roles == self._roles:
             return
         self.layout_widget.clear()
-        self.curves, self.plots, self._channels = {}, {}, tuple(channels)
-        self._rows_of: dict[str, list[int]] = {}
-        self._y_range: dict[str, tuple[float, float]] = {}
+        self.curves, self.plots, self._channels, self._roles = {}, {}, tuple(channels), roles
+        self._rows_of, self._y_range = {}, {}
         self.window_s = window_s
         order = [r for r in ("pressure", "light", "drive", "other") if any(roles.get(c, "other") == r
                                                                            for c in channels)]
