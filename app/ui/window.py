@@ -1,8 +1,9 @@
 """The main window: set-up, the live sweep and review, with the run controls in one toolbar.
 
 The engine runs on its own thread; its events reach the window only through the one
-``EventBridge`` (queued signals) and feed the Qt-free models in ``app.ui.models``. A ~30 Hz
-timer redraws the live traces from copies. Everything that touches a driver or writes a
+``EventBridge`` (queued signals) and feed the Qt-free models in ``app.ui.models``. Acquired
+blocks are the exception: the bridge copies them into the locked ``LiveTraces`` ring on the
+engine's thread, and a ~30 Hz timer redraws the live traces from one snapshot per frame. Everything that touches a driver or writes a
 file (opening the back-end, the run folder, saving an editor, accept/reject, reprocess,
 export, closing a sweep) goes to the ``TaskRunner``'s worker thread; the emergency halt
 gets a thread of its own so it never waits behind other work.
