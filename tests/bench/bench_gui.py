@@ -1,13 +1,16 @@
 """Window benchmark: redraw rate and GUI event-loop latency while a sweep streams 8 channels
 at 51.2 kS/s from the simulated burner.
 
-Plain script (not collected by pytest): ``python tests/bench/bench_gui.py [--repeat N]``.
-Offscreen unless a Qt platform is set (``xvfb-run python tests/bench/bench_gui.py`` uses X).
-The machine is often shared: run with ``--repeat 3`` and read the spread, not one row.
+Plain script (not collected by pytest): ``python tests/bench/bench_gui.py [--repeat N]
+[--only fast|real]``. Offscreen unless a Qt platform is set; under X:
+``QT_QPA_PLATFORM=xcb xvfb-run -a python tests/bench/bench_gui.py``. The machine is often
+shared: run with ``--repeat 3`` and read the spread, not one row.
+
 Rows: the simulator faster than real time (the GUI flooded with blocks) and in real time
-(as at a rig). Measured: (target >= 30 frames/s) new frames handed to the trace curves per second, the paint events of their view, the lateness of a 10 ms probe timer on the GUI thread (p50, p99; target p99 <= 30 ms), and
-whether every acquired sample reached the plot buffer; "speed" is simulated seconds per wall
-second (how much the window slows a fast rehearsal).
+(as at a rig). Measured: new frames handed to the trace curves per second (target >= 30),
+the paint events of their view, the lateness of a 10 ms probe timer on the GUI thread (p50,
+p99; target p99 <= 30 ms), whether every acquired sample reached the plot buffer, and the
+"speed": simulated seconds per wall second (how much the window slows a fast rehearsal).
 
 Imports: PySide6, numpy and the app's window.
 """
@@ -129,16 +132,17 @@ def main() -> int:
     parser.add_argument("--repeat", type=int, default=1, help="run each case this many times")
     parser.add_argument("--fast-record-s", type=float, default=3.0,
                         help="record length of the fast case (longer: more probe samples)")
+    parser.add_argument("--only", choices=("fast", "real"), help="run one case only")
     args = parser.parse_args()
     app = QApplication.instance() or QApplication(sys.argv[:1])
     rows = []
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         rig = eight_channel_rig(folder)
-        for _ in range(args.repeat):
+        for _ in range(args.repeat if args.only != "real" else 0):
             rows.append(run_case(app, "fast simulator", rig, plan(folder, rig, args.fast_record_s), folder / "runs",
                                  True, 120.0))
-        for _ in range(args.repeat):
+        for _ in range(args.repeat if args.only != "fast" else 0):
             rows.append(run_case(app, "real time, 12 s", rig, plan(folder, rig, 1.0), folder / "runs", False, 12.0))
     print(f"window benchmark: 8 channels at 51.2 kS/s, platform {os.environ.get('QT_QPA_PLATFORM', 'default')}")
     print(f"{'case':<18}{'wall s':>8}{'sim s':>8}{'speed':>7}{'frames/s':>10}{'paints/s':>10}{'lat p50 ms':>12}"
