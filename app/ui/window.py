@@ -43,6 +43,7 @@ from .views.tuning import TuningView
 
 FRAME_MS = 27                     # ~37 frames/s nominal: >= 30 even when a tick comes late
 TRACE_SECONDS = 0.2
+FAST_YIELD_S = 0.001              # engine pause per block in a fast rehearsal (see session.GiveWay)
 STATE_WORDS = {S.IDLE: "ready", S.PREPARING: "preparing the point", S.TUNING: "tuning the amplitude",
                S.SETTLING: "settling", S.RECORDING: "recording", S.EVALUATING: "computing gain and phase",
                S.STORING: "storing", S.PAUSED: "paused (drive at zero)", S.WINDING_DOWN: "ramping the drive down",
@@ -293,9 +294,11 @@ class MainWindow(QMainWindow):
             from app.plan import load_plan
 
             scenario = load_plan(s.plan_editor.path).resolve("scenario")   # a read, never a write
+        fast = s.fast.isChecked() and s.is_simulated()
         return SweepRequest(rig_path=Path(s.rig_editor.path), plan_path=Path(s.plan_editor.path), run_dir=run_dir,
                             backend=s.backend_name(), scenario_path=scenario,
-                            fast=s.fast.isChecked() and s.is_simulated(), points=points, existing_run=existing)
+                            fast=fast, points=points, existing_run=existing,
+                            yield_per_block_s=FAST_YIELD_S if fast else 0.0)
 
     def _new_run_dir(self) -> Path:
         root = Path(self.setup.runs_root.text() or "runs")

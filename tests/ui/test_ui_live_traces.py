@@ -1,6 +1,7 @@
 """The live-trace path off the GUI thread: blocks copied into the locked ring on the publishing
 thread (nothing lost, no torn frame), the bridge queueing only the small events, and the
-trace plots' y range that changes only when it must.
+trace plots' y range that changes only when it must, and the engine's short pause per block
+in a fast rehearsal.
 
 Expectations are common practice for live plotting of streamed data: storage keeps every
 sample, the display shows a consistent copy of the newest window.
@@ -127,3 +128,15 @@ def test_trace_plots_are_rebuilt_when_the_roles_arrive_after_the_first_frame(qtb
     assert list(view.plots) == ["pressure", "light"] and set(view.curves) == set(CHANNELS)
     lo, hi = view.plots["light"].viewRange()[1]
     assert lo <= frame.data[2].min() and frame.data[2].max() <= hi     # the y range holds the light trace
+
+
+def test_give_way_pauses_the_engine_thread_after_blocks_only() -> None:
+    from app.ui.session import GiveWay
+
+    slept: list[float] = []
+    give_way = GiveWay(0.001, sleep=slept.append)
+    give_way(StateChanged(old="idle", new="tuning", point_index=0))
+    give_way(_block(0, 10))
+    give_way(DriveChanged(freq_hz=100.0, amplitude_v=0.1, ceiling_v=1.0))
+    give_way(_block(10, 10))
+    assert slept == [0.001, 0.001]
