@@ -182,13 +182,19 @@ def _mean_flow(rig: Rig, mean_flow: gas.MeanFlow | None) -> gas.MeanFlow:
     return mean_flow if mean_flow is not None else gas.mean_flow(rig)
 
 
+def _fit_record(data: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float, rig: Rig,
+                mean_flow: gas.MeanFlow | None, n_harmonics: int
+                ) -> tuple[np.ndarray, _Prepared, gas.MeanFlow, HarmonicFit]:
+    """Checked samples, the rig's channel selection, the mean flow and the harmonic fit of a record."""
+    arr = _check_record(data, channels, sample_rate_hz, freq_hz)
+    prep = _prepare(channels, rig)
+    return arr, prep, _mean_flow(rig, mean_flow), _fit(arr, channels, sample_rate_hz, freq_hz, n_harmonics)
+
+
 def measure_velocity(data: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float,
                      rig: Rig, mean_flow: gas.MeanFlow | None = None) -> VelocityEstimate:
     """Velocity amplitude at the reference plane from one window (used while tuning)."""
-    arr = _check_record(data, channels, sample_rate_hz, freq_hz)
-    prep = _prepare(channels, rig)
-    mean = _mean_flow(rig, mean_flow)
-    fit = _fit(arr, channels, sample_rate_hz, freq_hz, 1)
+    _, prep, mean, fit = _fit_record(data, channels, sample_rate_hz, freq_hz, rig, mean_flow, 1)
     return _velocity_estimate(fit, prep, rig, mean)
 
 
@@ -210,10 +216,7 @@ def _velocity_estimate(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.Me
 def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float,
                    rig: Rig, mean_flow: gas.MeanFlow | None = None) -> FtfPoint:
     """Evaluate one record into an FTF point with 95 % intervals and quality figures."""
-    arr = _check_record(data, channels, sample_rate_hz, freq_hz)
-    prep = _prepare(channels, rig)
-    mean = _mean_flow(rig, mean_flow)
-    fit = _fit(arr, channels, sample_rate_hz, freq_hz, 3)
+    arr, prep, mean, fit = _fit_record(data, channels, sample_rate_hz, freq_hz, rig, mean_flow, 3)
     vel = _velocity_estimate(fit, prep, rig, mean)
     medium = medium_from(mean)
 
