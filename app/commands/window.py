@@ -63,7 +63,15 @@ def run(args: argparse.Namespace) -> int:
             return headless_demo(args.runs_root)
         raise NoDisplay("no display: set DISPLAY (X11) or WAYLAND_DISPLAY, or QT_QPA_PLATFORM=offscreen; "
                         "for a headless sweep use 'flamebode sweep PLAN'")
-    from ..ui.app import run_window
-
+    try:
+        from ..ui.app import run_window
+    except ImportError as exc:   # Qt's runtime libraries are missing (e.g. libEGL.so.1)
+        message = (f"the window cannot start: {exc}. On Debian/Ubuntu install Qt's runtime libraries "
+                   "(apt-get install libegl1 libgl1 libfontconfig1 libxkbcommon0 libxkbcommon-x11-0 "
+                   "libxcb-cursor0 libdbus-1-3)")
+        if args.first_run:
+            print(f"flamebode: {message}")
+            return headless_demo(args.runs_root)
+        raise NoDisplay(message) from None
     return run_window(args.rig or DEMO_RIG, args.plan or DEMO_PLAN, run_dir=args.run, runs_root=args.runs_root,
                       fast=args.fast, backend=args.backend)
