@@ -4,7 +4,6 @@ every point already stored is kept and says so."""
 from __future__ import annotations
 
 import signal
-import sqlite3
 import subprocess
 import sys
 import time
@@ -12,30 +11,14 @@ from pathlib import Path
 
 import pytest
 
+from run_watch import committed_attempts, short_plan_text
+
 ROOT = Path(__file__).resolve().parents[2]
-PLAN = """name = "interrupt test"
-[frequencies]
-linear = { start = "200 Hz", stop = "1200 Hz", step = "50 Hz" }
-[amplitude]
-values = [0.05]
-basis = "peak"
-[timing]
-record = "0.5 s"
-settle = "0.2 s"
-tuning_window = "0.2 s"
-tuning_discard = "0.05 s"
-"""
+PLAN = short_plan_text("interrupt test", 200, 1200, 50, 0.5)
 
 
 def stored(run_dir: Path) -> int:
-    try:
-        con = sqlite3.connect(f"{(run_dir / 'index.sqlite').as_uri()}?mode=ro", uri=True, timeout=0.2)
-        try:
-            return con.execute("SELECT COUNT(*) FROM attempts").fetchone()[0]
-        finally:
-            con.close()
-    except sqlite3.Error:
-        return 0
+    return len(committed_attempts(run_dir))
 
 
 @pytest.mark.slow

@@ -14,7 +14,6 @@ from __future__ import annotations
 import os
 import random
 import signal
-import sqlite3
 import subprocess
 import sys
 import time
@@ -23,31 +22,10 @@ from pathlib import Path
 import pytest
 
 from app.storage.reader import open_run
+from run_watch import committed_attempts, short_plan_text
 
 ROOT = Path(__file__).resolve().parents[2]
-PLAN = """name = "crash test"
-[frequencies]
-linear = { start = "200 Hz", stop = "700 Hz", step = "100 Hz" }
-[amplitude]
-values = [0.05]
-basis = "peak"
-[timing]
-record = "0.4 s"
-settle = "0.2 s"
-tuning_window = "0.2 s"
-tuning_discard = "0.05 s"
-"""
-
-
-def committed_attempts(run_dir: Path) -> set[str]:
-    try:
-        con = sqlite3.connect(f"{(run_dir / 'index.sqlite').as_uri()}?mode=ro", uri=True, timeout=0.2)
-        try:
-            return {r[0] for r in con.execute("SELECT attempt_id FROM attempts")}
-        finally:
-            con.close()
-    except sqlite3.Error:
-        return set()
+PLAN = short_plan_text("crash test", 200, 700, 100, 0.4)
 
 
 def start_sweep(run_dir: Path, plan: Path) -> subprocess.Popen:
