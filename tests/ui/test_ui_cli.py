@@ -5,8 +5,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import pytest
-
 from app.cli import main
 from app.commands import window as window_command
 from app.storage.reader import open_run
