@@ -16,7 +16,7 @@ from typing import Annotated, Any
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator, model_validator
 
-from .configfile import format_validation_error, load_model, model_from_dict, read_toml  # noqa: F401 (re-exported)
+from .configfile import load_model, model_from_dict, read_toml  # noqa: F401 (read_toml is re-exported)
 from .units import parse_quantity
 
 
