@@ -46,7 +46,7 @@ from app.errors import ConfigError
 from app.rig import Rig
 from app.units import parse_quantity
 from drivers import safety
-from drivers.errors import BackendTimeout, DriverError
+from drivers.errors import BackendTimeout, DriveHalted, DriverError
 from drivers.guard import CeilingGuard
 from drivers.protocols import Availability, Block, DriveStatus
 
@@ -447,6 +447,12 @@ class DaqmxCard:
         if self._stopped or self._halted:
             raise DriverError("DAQ card: the drive was stopped or halted; open the back-end again")
         self.guard.request(freq_hz, amplitude_v)
+
+    def arm(self, ceiling_v: float) -> None:
+        """New sweep: this sweep's ceiling. After a halt the output task is stopped: open the back-end again."""
+        if self._halted or self._halt_flag:
+            raise DriveHalted("DAQ card: the drive was halted; open the back-end again for a new sweep")
+        self.guard.arm(ceiling_v)
 
     def drive_status(self) -> DriveStatus:
         """What the card is putting out now (the queued samples not yet played are not counted)."""

@@ -19,3 +19,7 @@ class BackendTimeout(DriverError):
 
 class BackendUnavailable(DriverError):
     """The back-end's library, vendor runtime or device is missing."""
+
+
+class DriveHalted(DriverError):
+    """A drive request after an emergency halt: the output stays at zero until a new sweep re-arms it."""

@@ -11,13 +11,21 @@ amplitude commands a back-end actually sends, independently of any controller ab
 * a frequency change while the output is non-zero ramps down to zero, switches frequency
   at zero and ramps back up; the phase runs on continuously across blocks;
 * :meth:`CeilingGuard.halt` zeroes the output from the next sample, from any thread or a
-  signal handler (it takes no lock).
+  signal handler (it takes no lock), and *latches*: every later request is refused with
+  :class:`~drivers.errors.DriveHalted` until :meth:`CeilingGuard.arm` (called when a new
+  sweep starts) re-arms it. Whatever is still running above (an engine thread, a tuning
+  loop) can therefore never bring the drive back after a halt;
+* :meth:`CeilingGuard.arm` also sets the ceiling of the sweep about to start: the lower of
+  the rig's (fixed at construction, never raised) and the plan's;
+* every rendered block and amplitude schedule is noted in the drive log
+  (:mod:`drivers.drive_log`) when one is open, so what was put out can be audited from
+  outside the process.
 
 By construction the envelope never exceeds the ceiling; a last clip is kept only as a
 belt-and-braces and every time it would have acted is counted in
 :attr:`CeilingGuard.clip_events` (a bug counter the tests require to stay at zero).
 
-Imports: standard library, numpy, ``drivers.errors`` and ``drivers.protocols`` only.
+Imports: standard library, numpy, ``drivers.errors``, ``drivers.protocols`` and ``drivers.drive_log`` only.
 """
 
 from __future__ import annotations
@@ -28,7 +36,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import CeilingExceeded, DriverError
+from . import drive_log
+from .errors import CeilingExceeded, DriveHalted, DriverError
 from .protocols import DriveStatus
 
 TWO_PI = 2.0 * math.pi
@@ -81,11 +90,13 @@ class CeilingGuard:
 
     def __init__(self, ceiling_v: float, sample_rate_hz: float, ramp_time_s: float = 0.3) -> None:
         self._ceiling_v = _positive_finite("ceiling_v", ceiling_v)
+        self._hard_ceiling_v = self._ceiling_v      # the rig's: arm() may lower the ceiling, never raise it
         self._fs_hz = _positive_finite("sample_rate_hz", sample_rate_hz)
         self._ramp_time_s = _positive_finite("ramp_time_s", ramp_time_s)
         self._step_v = self._ceiling_v / self._ramp_time_s / self._fs_hz  # volts per sample
         self._lock = threading.Lock()
         self._halt_flag = False
+        self._latched = False      # set by halt(), cleared only by arm()
         self._freq_hz = 0.0
         self._phase_rad = 0.0      # phase of the last emitted sample, wrapped to [0, 2π)
         self._amp_v = 0.0          # envelope of the last emitted sample
@@ -99,6 +110,16 @@ class CeilingGuard:
         return self._ceiling_v
 
     @property
+    def hard_ceiling_v(self) -> float:
+        """The ceiling the guard was built with (the rig's); :meth:`arm` never goes above it."""
+        return self._hard_ceiling_v
+
+    @property
+    def latched(self) -> bool:
+        """True after a halt until :meth:`arm`: every drive request is refused."""
+        return self._latched
+
+    @property
     def sample_rate_hz(self) -> float:
         return self._fs_hz
 
@@ -108,7 +129,7 @@ class CeilingGuard:
 
     @property
     def ramp_rate_v_per_s(self) -> float:
-        return self._ceiling_v / self._ramp_time_s
+        return self._hard_ceiling_v / self._ramp_time_s
 
     def time_to_settle_s(self) -> float:
         """Ramp time left until the output reaches the requested amplitude (and frequency)."""
@@ -129,6 +150,11 @@ class CeilingGuard:
         freq_hz, amplitude_v = self._validated(freq_hz, amplitude_v)
         with self._lock:
             self._apply_halt_flag()
+            if self._latched:
+                if amplitude_v == 0.0:
+                    return              # zero is what a halted output gives anyway
+                raise DriveHalted(f"drive request {amplitude_v:g} V at {freq_hz:g} Hz refused: the output was "
+                                  f"halted and stays at zero until a new sweep starts")
             if freq_hz == self._freq_hz:
                 self._pending = None
                 self._target_v = amplitude_v
@@ -148,8 +174,27 @@ class CeilingGuard:
             self._target_v = 0.0
 
     def halt(self) -> None:
-        """Zero from the next sample, no ramp. Lock-free: safe from any thread or signal handler."""
+        """Zero from the next sample, no ramp, and refuse every request until :meth:`arm`.
+
+        Lock-free: safe from any thread or signal handler."""
+        self._latched = True
         self._halt_flag = True
+
+    def arm(self, ceiling_v: float | None = None) -> None:
+        """Start of a sweep: clear a halt latch and set this sweep's ceiling.
+
+        ``ceiling_v`` above the rig's ceiling (the one the guard was built with) is refused
+        with :class:`~drivers.errors.CeilingExceeded`; ``None`` restores the rig's ceiling.
+        The output must be at zero (it is after a halt or a finished ramp)."""
+        wanted = self._hard_ceiling_v if ceiling_v is None else _positive_finite("ceiling_v", ceiling_v)
+        if wanted > self._hard_ceiling_v:
+            raise CeilingExceeded(f"ceiling {wanted:g} V refused: above the rig's ceiling {self._hard_ceiling_v:g} V")
+        with self._lock:
+            self._apply_halt_flag()
+            if self._amp_v > wanted or self._target_v > wanted:
+                raise CeilingExceeded(f"ceiling {wanted:g} V refused while the output is at {self._amp_v:g} V")
+            self._latched = False
+            self._ceiling_v = wanted
 
     def status(self) -> DriveStatus:
         with self._lock:
@@ -181,7 +226,9 @@ class CeilingGuard:
             if self._halt_flag:  # halt() arrived while this block was being computed
                 self._apply_halt_flag()
                 out[:] = 0.0
-            return self._final_clip(out)
+            out = self._final_clip(out)
+        drive_log.note(out, self._fs_hz, self._ceiling_v, self._latched)
+        return out
 
     def amplitude_schedule(self, duration_s: float, step_s: float) -> np.ndarray:
         """Peak amplitudes to send every ``step_s`` for ``duration_s`` to carry out the ramp.
@@ -201,7 +248,9 @@ class CeilingGuard:
             step_samples = step_s * self._fs_hz
             k = np.arange(1, n_steps + 1, dtype=np.float64) * step_samples
             amp_v, _ = self._advance(k, quantum=step_samples)
-            return self._final_clip(amp_v.copy())
+            out = self._final_clip(amp_v.copy())
+        drive_log.note(out, 1.0 / step_s, self._ceiling_v, self._latched)
+        return out
 
     # ----------------------------------------------------------------- internals
     def _validated(self, freq_hz: float, amplitude_v: float) -> tuple[float, float]:

@@ -115,6 +115,15 @@ class EmergencyHalt(Protocol):
 
 
 @runtime_checkable
+class Armable(Protocol):
+    def arm(self, ceiling_v: float) -> None:
+        """Start of a sweep: clear a halt latch and set this sweep's ceiling (never above the rig's).
+
+        After ``halt()`` a back-end refuses every drive request until it is armed again, so
+        nothing still running above it can bring the drive back."""
+
+
+@runtime_checkable
 class Paced(Protocol):
     """A back-end whose time base can run faster than real time (the simulator)."""
 

@@ -45,7 +45,7 @@ from app.errors import ConfigError
 from app.rig import Rig
 from app.units import parse_quantity
 from drivers import safety
-from drivers.errors import BackendTimeout, DriverError
+from drivers.errors import BackendTimeout, DriveHalted, DriverError
 from drivers.guard import CeilingGuard
 from drivers.protocols import Availability, DriveStatus
 
@@ -470,6 +470,12 @@ class ScpiGenerator:
         if answer.upper() not in ("0", "OFF", "+0"):
             raise DriverError(f"SCPI generator {self.config.resource}: output still on after OUTP OFF "
                               f"(OUTP? answered {answer!r})")
+
+    def arm(self, ceiling_v: float) -> None:
+        """New sweep: this sweep's ceiling. After a halt the output is off: open the back-end again."""
+        if self._closed or self._halt_event.is_set():
+            raise DriveHalted("SCPI generator: halted or stopped; open the back-end again for a new sweep")
+        self.guard.arm(ceiling_v)
 
     def drive_status(self) -> DriveStatus:
         g = self.guard.status()

@@ -27,7 +27,7 @@ from typing import Any, Callable
 
 from app.rig import Rig
 from drivers.errors import DriverError
-from drivers.protocols import Availability, Block, DriveStatus, EmergencyHalt, Identified, Stoppable
+from drivers.protocols import Armable, Availability, Block, DriveStatus, EmergencyHalt, Identified, Stoppable
 
 log = logging.getLogger(__name__)
 
@@ -81,6 +81,11 @@ class Composite:
         out["maker"] = out.get("drive.maker", "")
         out["model"] = f"{out.get('drive.model', '?')} + {out.get('recorder.model', '?')}"
         return out
+
+    def arm(self, ceiling_v: float) -> None:
+        for part in (self.drive, self.acquirer):
+            if isinstance(part, Armable):
+                part.arm(ceiling_v)
 
     def halt(self) -> None:
         for part in (self.drive, self.acquirer):

@@ -581,6 +581,10 @@ class SoundCard:
         if self._halted:
             self._resume = True   # the callback drops the pre-halt samples, then plays again
 
+    def arm(self, ceiling_v: float) -> None:
+        """New sweep: clear a halt latch; this sweep's ceiling (never above the rig's or the output's full scale)."""
+        self.guard.arm(min(ceiling_v, self.guard.hard_ceiling_v))
+
     def drive_status(self) -> DriveStatus:
         """The guard's status; still ``ramping`` until the end of the ramp has reached the inputs."""
         status = self.guard.status()

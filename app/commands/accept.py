@@ -39,6 +39,8 @@ def run(args: argparse.Namespace) -> int:
                 for attempt_id in args.attempt:
                     try:
                         point = index.decide(conn, attempt_id, not args.reject, args.reason or f"{verb} by user")
+                    except index.NotAcceptable as exc:
+                        raise DecisionError(f"{path}: {exc}") from None
                     except KeyError:
                         raise DecisionError(f"{path}: no attempt '{attempt_id}' in this run (see 'flamebode "
                                             f"review {args.run_dir} --attempts')") from None

@@ -8,9 +8,12 @@ documented in docs/run-layout.md; keep the two in step.
 Acceptance rule: the accepted attempt of a point is the one whose ``decision`` is
 ``accepted``. A newly stored attempt becomes accepted (``decided_by = 'auto'``) unless the
 user has accepted another attempt of that point; a flagged attempt is accepted only when
-the point has no accepted attempt yet, so the newest *good* attempt wins.
+the point has no accepted attempt yet, so the newest *good* attempt wins. An attempt whose
+record was cut short (flag ``interrupted``: a halt, an abort or a fatal fault such as a
+flame-out during the record) is stored as evidence, marked rejected, and can never be
+accepted.
 
-Imports: standard library only (no Qt, no drivers, no h5py).
+Imports: standard library and ``app.errors`` only (no Qt, no drivers, no h5py).
 """
 
 from __future__ import annotations
@@ -21,8 +24,11 @@ import time
 from pathlib import Path
 from typing import Any, Iterable
 
+from app.errors import FlamebodeError
+
 INDEX_NAME = "index.sqlite"
 SCHEMA_VERSION = 1
+NEVER_ACCEPTED = frozenset({"interrupted"})   # attempt flags that keep an attempt out of every result
 
 SCHEMA = """
 CREATE TABLE IF NOT EXISTS run_info (
@@ -158,6 +164,13 @@ def insert_analysis(conn: sqlite3.Connection, attempt_id: str, analysis: dict[st
 
 
 def _auto_accept(conn: sqlite3.Connection, point_index: int, attempt_id: str, good: bool) -> None:
+    flags = conn.execute("SELECT flags FROM attempts WHERE attempt_id = ?", (attempt_id,)).fetchone()
+    if flags is not None and NEVER_ACCEPTED & set(json.loads(flags["flags"])):
+        conn.execute("UPDATE attempts SET decision = 'rejected', decided_by = 'auto', decision_reason = ?, "
+                     "decided_wall_s = ? WHERE attempt_id = ?",
+                     ("record interrupted before its end (kept as evidence, never accepted)", time.time(),
+                      attempt_id))
+        return
     current = conn.execute("SELECT attempt_id, decided_by FROM attempts WHERE point_index = ? "
                            "AND decision = 'accepted'", (point_index,)).fetchone()
     if current is not None and (current["decided_by"] == "user" or not good):
@@ -171,11 +184,20 @@ def _auto_accept(conn: sqlite3.Connection, point_index: int, attempt_id: str, go
                  ("newest attempt" + ("" if good else " (flagged; no other attempt)"), now, attempt_id))
 
 
+class NotAcceptable(FlamebodeError):
+    """An attempt that can never be accepted (its record was interrupted before its end)."""
+
+
 def decide(conn: sqlite3.Connection, attempt_id: str, accept: bool, reason: str) -> int:
-    """User decision on one attempt; returns its point index. Accepting un-accepts the others."""
-    row = conn.execute("SELECT point_index FROM attempts WHERE attempt_id = ?", (attempt_id,)).fetchone()
+    """User decision on one attempt; returns its point index. Accepting un-accepts the others.
+
+    An interrupted attempt (flag ``interrupted``) cannot be accepted: :class:`NotAcceptable`."""
+    row = conn.execute("SELECT point_index, flags FROM attempts WHERE attempt_id = ?", (attempt_id,)).fetchone()
     if row is None:
         raise KeyError(attempt_id)
+    if accept and NEVER_ACCEPTED & set(json.loads(row["flags"])):
+        raise NotAcceptable(f"attempt {attempt_id} was interrupted before its record ended (halt, abort or "
+                            f"fault); it is kept as evidence and cannot be accepted: measure the point again")
     point, now = int(row["point_index"]), time.time()
     if accept:
         conn.execute("UPDATE attempts SET decision = '', decided_by = 'user', decision_reason = 'another "

@@ -168,6 +168,10 @@ class SimulatedBurner:
     def drive_status(self) -> DriveStatus:
         return self.guard.status()
 
+    def arm(self, ceiling_v: float) -> None:
+        """New sweep: clear a halt latch; this sweep's ceiling (never above the rig's)."""
+        self.guard.arm(ceiling_v)
+
     def stop(self) -> None:
         """Ramp the drive down (the ramp is played out in simulated time) and stop. Idempotent."""
         if self._stopped:
@@ -182,7 +186,7 @@ class SimulatedBurner:
         self._stopped = True
 
     def halt(self) -> None:
-        """Drive to zero from the next sample, no ramp (lock-free, any thread)."""
+        """Drive to zero from the next sample, no ramp (lock-free, any thread); latched until :meth:`arm`."""
         self.guard.halt()
 
     # ------------------------------------------------------------------ internals

@@ -21,7 +21,7 @@ import pytest
 from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
 
-from drivers.errors import CeilingExceeded, DriverError
+from drivers.errors import CeilingExceeded, DriveHalted, DriverError
 from drivers.guard import CeilingGuard, InvalidDriveRequest
 from drivers.protocols import DriveStatus
 
@@ -56,6 +56,7 @@ OPS = st.one_of(
     st.tuples(st.just("render"), st.integers(0, 160), st.integers(0, 160)),
     st.tuples(st.just("ramp_down")),
     st.tuples(st.just("halt")),
+    st.tuples(st.just("arm")),
 )
 
 
@@ -89,6 +90,7 @@ class _Checker:
         self.step_v = ceiling_v / ramp_time_s / fs_hz   # allowed envelope change per sample
         self.last_sample: float | None = None
         self.halted_since_request = False
+        self.latched = False                             # halted and not re-armed: requests refused
         self.freq_seen_hz = 0.0                          # highest frequency that can be playing
 
     def request(self, freq_choice, amp_choice) -> None:
@@ -96,6 +98,16 @@ class _Checker:
         amplitude_v = _amplitude_value(amp_choice, self.ceiling_v)
         expected = _expected_error(freq_hz, amplitude_v, self.ceiling_v, self.fs_hz)
         before = self.guard.status()
+        if expected is None and self.latched:
+            # a halt latches: nothing above the guard can bring the drive back before arm()
+            if amplitude_v == 0.0:
+                self.guard.request(freq_hz, amplitude_v)
+                self.twin.request(freq_hz, amplitude_v)
+            else:
+                with pytest.raises(DriveHalted):
+                    self.guard.request(freq_hz, amplitude_v)
+            assert self.guard.status() == before, "a request after a halt changed the guard"
+            return
         if expected is None:
             self.guard.request(freq_hz, amplitude_v)
             self.twin.request(freq_hz, amplitude_v)
@@ -115,7 +127,15 @@ class _Checker:
         self.guard.halt()
         self.twin.halt()
         self.halted_since_request = True
+        self.latched = True
         self.last_sample = None   # a halt may jump to zero: no continuity across it
+
+    def arm(self) -> None:
+        if self.guard.status().amplitude_v > 0.0:
+            return                  # arm() is for the start of a sweep, with the output at zero
+        self.guard.arm(self.ceiling_v)
+        self.twin.arm(self.ceiling_v)
+        self.latched = False
 
     def ramp_down(self) -> None:
         self.guard.ramp_down()
@@ -267,13 +287,18 @@ def test_return_to_current_frequency_cancels_pending_change():
     assert guard.status().freq_hz == 50.0 and guard.status().amplitude_v == 0.9
 
 
-def test_halt_then_request_ramps_up_again_from_zero():
+def test_halt_latches_until_armed_then_ramps_up_again_from_zero():
     guard = CeilingGuard(1.0, 1000.0, 0.1)
     guard.request(50.0, 1.0)
     guard.render(300)
     guard.halt()
     assert np.all(guard.render(64) == 0.0)
     assert guard.status().amplitude_v == 0.0 and guard.status().target_amplitude_v == 0.0
+    with pytest.raises(DriveHalted, match="halted"):
+        guard.request(50.0, 0.5)          # whatever still runs above cannot bring the drive back
+    guard.request(50.0, 0.0)              # asking for zero is harmless
+    assert np.all(guard.render(64) == 0.0) and guard.latched
+    guard.arm(1.0)                         # a new sweep
     guard.request(50.0, 1.0)
     x = guard.render(5)
     assert np.all(np.abs(x) <= np.arange(1, 6) * 0.01 + 1e-15)
@@ -359,3 +384,43 @@ def test_amplitude_schedule_advances_like_render():
     np.testing.assert_allclose(sched, np.arange(1, 11) * 0.005 * 1.0 / 0.2)
 
 
+
+
+def test_arm_sets_the_sweep_ceiling_never_above_the_rigs():
+    guard = CeilingGuard(2.0, 1000.0, 0.1)
+    guard.arm(0.5)                         # the plan's lower ceiling
+    assert guard.ceiling_v == 0.5 and guard.hard_ceiling_v == 2.0
+    with pytest.raises(CeilingExceeded, match="0.5 V"):
+        guard.request(50.0, 0.6)
+    with pytest.raises(CeilingExceeded, match="above the rig's ceiling"):
+        guard.arm(2.5)
+    assert guard.ceiling_v == 0.5
+    guard.request(50.0, 0.5)
+    x = guard.render(500)
+    assert np.max(np.abs(x)) <= 0.5 and guard.clip_events == 0
+    # the ramp rate stays the rig's (ceiling / ramp time), not the lowered ceiling's
+    assert guard.ramp_rate_v_per_s == pytest.approx(20.0)
+    guard.arm(None)
+    assert guard.ceiling_v == 2.0
+
+
+def test_drive_log_notes_every_block_with_its_peak(tmp_path):
+    from drivers import drive_log
+
+    path = tmp_path / "drive.csv"
+    drive_log.open_log(path)
+    try:
+        guard = CeilingGuard(1.0, 1000.0, 0.01)
+        guard.request(50.0, 0.8)
+        guard.render(100)
+        guard.render(100)
+        guard.halt()
+        guard.render(100)
+        drive_log.flush()
+    finally:
+        drive_log.open_log(None)
+    log = drive_log.read_log(path)
+    assert log.size == 3
+    assert log["peak_v"][1] == pytest.approx(0.8, abs=1e-3) and log["peak_v"][2] == 0.0
+    assert list(log["latched"]) == [0.0, 0.0, 1.0] and np.all(log["n_samples"] == 100)
+    assert np.all(np.diff(log["wall_time_s"]) >= 0)
