@@ -124,6 +124,7 @@ class SweepFinished(Event):
     reason: str               # "complete", "stopped", "aborted", "halted", "fault"
     n_settled: int
     n_points: int
+    detail: str = ""          # why, in plain words ("SIGTERM received", "halt button", the fault's name)
     wall_time_s: float = field(default_factory=time.time)
 
 

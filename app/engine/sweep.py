@@ -151,6 +151,7 @@ class SweepEngine:
         self.error: BaseException | None = None
         self.tuning_history: dict[int, tuple[tuple[float, float, float], ...]] = {}
         self._cmd = _Commands()
+        self._why = ""                 # why the sweep was halted or aborted (for SweepFinished.detail)
         self._thread: threading.Thread | None = None
         self._ended = threading.Event()
         self._pending: np.ndarray | None = None
@@ -184,17 +185,27 @@ class SweepEngine:
             self._cmd.stop = True
             self._cmd.cond.notify_all()
 
-    def abort(self) -> None:
+    def abort(self, why: str = "abort requested") -> None:
         with self._cmd.cond:
             self._cmd.abort = True
+            self._why = self._why or why
             self._cmd.cond.notify_all()
 
-    def halt(self) -> None:
-        """Outputs to zero at once, from the caller's thread; the engine then ends."""
-        with self._cmd.cond:   # held: the engine cannot set a new drive between flag and halt
-            self._cmd.halt = True
-            self._zero_now()
-            self._cmd.cond.notify_all()
+    def halt(self, why: str = "emergency halt") -> None:
+        """Outputs to zero at once, from the caller's thread (a signal handler too); the engine then ends.
+
+        The flag is raised first, then the back-end is halted; the back-end's guard latches, so
+        whatever the engine's thread is doing can no longer bring the drive back. Never waits
+        long on the engine: the wake-up of a paused engine is skipped if the lock is busy
+        (the engine sees the flag at its next block anyway)."""
+        self._cmd.halt = True
+        self._why = self._why or why
+        self._zero_now()
+        if self._cmd.cond.acquire(timeout=0.2):
+            try:
+                self._cmd.cond.notify_all()
+            finally:
+                self._cmd.cond.release()
 
     def start(self) -> threading.Thread:
         self._ended.clear()
@@ -291,7 +302,8 @@ class SweepEngine:
                     self.machine.set(S.WINDING_DOWN, self._point_index)
                 self.machine.set(final, self._point_index)
             self.finish_reason = reason
-            self.bus.publish(SweepFinished(reason=reason, n_settled=self.stats.settled, n_points=len(self.points)))
+            self.bus.publish(SweepFinished(reason=reason, n_settled=self.stats.settled, n_points=len(self.points),
+                                           detail=self._why))
 
     # ================================================================== one point
     def _measure_point(self, point: Any) -> None:

@@ -286,6 +286,7 @@ class RunWriter:
                                                "point_index", "fatal")})
                 elif isinstance(event, SweepFinished):
                     index.set_info(conn, {"last_finish_reason": event.reason,
+                                          "last_finish_detail": event.detail,
                                           "last_finish_wall_s": repr(event.wall_time_s)})
         except Exception:  # run facts are not points: a failure here must not stop the sweep
             pass
