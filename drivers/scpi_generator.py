@@ -7,6 +7,12 @@ IEEE 488.2 common commands and the standard SCPI source subsystem, no vendor dia
   (VPP, VRMS or DBM, converted from our peak volts: Vpp = 2 Vp, Vrms = Vp/√2, dBm into the
   configured load), ``SOUR:VOLT:OFFS 0``, ``OUTP OFF``; then ``SYST:ERR?`` is drained until
   it answers ``0,...`` and ``*OPC?`` is asked with a generous timeout;
+* before any ``OUTP ON``: the output load setting is read back (``OUTP:LOAD?``: ohms, or
+  ``INF``/9.9E37 for high impedance) and compared with the rig's ``load``; a mismatch (a 50 Ω
+  setting into a high-Z amplifier input doubles the voltage) is refused with
+  :class:`OutputLoadMismatch`; an instrument that does not know the query is logged and
+  recorded in :meth:`ScpiGenerator.identity` as not confirmed; ``set_load = true`` sends
+  ``OUTP:LOAD`` first (the setting is never changed otherwise);
 * a drive request goes through :class:`drivers.guard.CeilingGuard` and is carried out as a
   ramp of discrete ``SOUR:VOLT`` steps from ``CeilingGuard.amplitude_schedule``; amplitudes
   at zero (or below ``min_amplitude``) switch the output off, a frequency change happens at
@@ -52,6 +58,9 @@ from drivers.protocols import Availability, DriveStatus
 log = logging.getLogger(__name__)
 
 UNITS = ("VPP", "VRMS", "DBM")
+SOURCE_OHM = 50.0          # a bench generator's usual source impedance (common practice)
+SCPI_INF = 9.9e37          # SCPI-1999 stands for infinity with this number
+LOAD_QUERY_WAIT_S = 1.0    # an idle instrument that knows OUTP:LOAD? answers within milliseconds
 # The guard's notional clock for an instrument set by commands: only its Nyquist limit and
 # the quantisation of ramp steps depend on it, neither matters at 1 MHz.
 GUARD_RATE_HZ = 1e6
@@ -65,6 +74,10 @@ class InstrumentError(DriverError):
 
 class InstrumentConnectionLost(DriverError):
     """The connection to the instrument was closed or could not be made again."""
+
+
+class OutputLoadMismatch(DriverError):
+    """The instrument's output load setting (``OUTP:LOAD?``) is not the load the rig file says it drives."""
 
 
 # =========================================================================== units
@@ -92,6 +105,44 @@ def unit_to_peak(value: float, unit: str, load_ohm: float = 50.0) -> float:
     raise DriverError(f"SCPI generator: unknown amplitude unit {unit!r}; use one of {', '.join(UNITS)}")
 
 
+# =========================================================================== output load
+def load_from_answer(answer: str) -> float | None:
+    """An ``OUTP:LOAD?`` answer in ohms (``math.inf`` for INF or SCPI's 9.9E37); None if unreadable."""
+    try:
+        ohm = float(answer.strip().split(",")[0])
+    except ValueError:
+        return None
+    if math.isnan(ohm) or ohm <= 0.0:
+        return None
+    return math.inf if ohm >= SCPI_INF * (1.0 - 1e-6) else ohm
+
+
+def describe_load(ohm: float) -> str:
+    return "high impedance" if math.isinf(ohm) else f"{ohm:g} ohm"
+
+
+def load_argument(ohm: float) -> str:
+    """The ``OUTP:LOAD`` argument for a load (``INF`` for high impedance)."""
+    return "INF" if math.isinf(ohm) else f"{ohm:g}"
+
+
+def voltage_factor(setting_ohm: float, real_ohm: float, source_ohm: float = SOURCE_OHM) -> float:
+    """Volts the real load gets per volt the instrument shows for its load setting.
+
+    The instrument scales its open-circuit voltage so that ``setting_ohm`` would see the
+    commanded value through ``source_ohm`` (a voltage divider; common practice): 2.0 for a
+    50 Ω setting into a high-impedance input, 0.5 the other way round."""
+    emf = 1.0 if math.isinf(setting_ohm) else (setting_ohm + source_ohm) / setting_ohm
+    return emf if math.isinf(real_ohm) else emf * real_ohm / (real_ohm + source_ohm)
+
+
+def same_load(a_ohm: float, b_ohm: float) -> bool:
+    """Equal within 1 % (instruments round the setting), high impedance only equal to itself."""
+    if math.isinf(a_ohm) or math.isinf(b_ohm):
+        return math.isinf(a_ohm) and math.isinf(b_ohm)
+    return math.isclose(a_ohm, b_ohm, rel_tol=0.01)
+
+
 # =========================================================================== configuration
 @dataclass(frozen=True)
 class ScpiConfig:
@@ -104,13 +155,15 @@ class ScpiConfig:
     read_termination: str = "\n"
     write_termination: str = "\n"
     amplitude_unit: str = "VPP"
-    load_ohm: float = 50.0
+    load_ohm: float = 50.0             # what the output really drives; math.inf: high impedance
+    load_given: bool = False           # False: the rig file did not say (50 Ω assumed)
+    set_load: bool = False             # True: send OUTP:LOAD on opening instead of refusing a mismatch
     step_s: float = 0.05
     min_amplitude_v: float = 0.0
     reset: bool = True
 
     KEYS = ("resource", "visa_library", "timeout", "opc_timeout", "read_termination", "write_termination",
-            "amplitude_unit", "load", "ramp_step", "min_amplitude", "reset")
+            "amplitude_unit", "load", "set_load", "ramp_step", "min_amplitude", "reset")
 
     @classmethod
     def from_rig(cls, rig: Rig, **overrides: Any) -> "ScpiConfig":
@@ -124,15 +177,17 @@ class ScpiConfig:
         unit = str(table.get("amplitude_unit", "VPP")).upper()
         if unit not in UNITS:
             problems.append(f"hardware.scpi.amplitude_unit: {unit!r} is not one of {', '.join(UNITS)}")
-        load = table.get("load", 50.0)
-        if isinstance(load, str):
-            load = load.lower().removesuffix("ohm").strip()
-        try:
-            load_ohm = float(load)
-            assert load_ohm > 0
-        except (TypeError, ValueError, AssertionError):
-            problems.append(f"hardware.scpi.load: expected a resistance in ohms > 0, got {table.get('load')!r}")
+        load_ohm = parse_load(table.get("load", 50.0))
+        if load_ohm is None:
+            problems.append(f"hardware.scpi.load: expected a resistance in ohms > 0 or \"high-z\" (also \"inf\"), "
+                            f"got {table.get('load')!r}")
             load_ohm = 50.0
+        if unit == "DBM" and math.isinf(load_ohm):
+            problems.append("hardware.scpi.amplitude_unit: DBM needs a finite load; with load = \"high-z\" use "
+                            "VPP or VRMS")
+        for key in ("set_load", "reset"):
+            if key in table and not isinstance(table[key], bool):
+                problems.append(f"hardware.scpi.{key}: expected true or false, got {table[key]!r}")
         q = {name: _quantity(table, key, kind, default, problems) for name, key, kind, default in (
             ("timeout_s", "timeout", "time", 5.0), ("opc_timeout_s", "opc_timeout", "time", 30.0),
             ("step_s", "ramp_step", "time", 0.05), ("min_amplitude_v", "min_amplitude", "voltage", 0.0))}
@@ -143,7 +198,25 @@ class ScpiConfig:
         return cls(resource=str(resource).strip(), visa_library=str(table.get("visa_library", "@py")),
                    read_termination=str(table.get("read_termination", "\n")),
                    write_termination=str(table.get("write_termination", "\n")),
-                   amplitude_unit=unit, load_ohm=load_ohm, reset=bool(table.get("reset", True)), **q)
+                   amplitude_unit=unit, load_ohm=load_ohm, load_given="load" in table,
+                   set_load=table.get("set_load", False) is True, reset=table.get("reset", True) is not False, **q)
+
+
+def parse_load(value: Any) -> float | None:
+    """A rig-file load: ohms (``50``, ``"600 ohm"``, ``"50 Ω"``) or high impedance (``"high-z"``,
+    ``"highz"``, ``"inf"``) as ``math.inf``; None when it is neither."""
+    if isinstance(value, bool):
+        return None
+    if isinstance(value, str):
+        text = value.strip().lower()
+        if text in ("high-z", "highz", "high z", "hi-z", "inf", "infinity", "infinite"):
+            return math.inf
+        value = text.removesuffix("ohms").removesuffix("ohm").removesuffix("ω").strip()   # "Ω".lower()
+    try:
+        ohm = float(value)
+    except (TypeError, ValueError):
+        return None
+    return ohm if ohm > 0 and not math.isnan(ohm) else None
 
 
 def _quantity(table: dict, key: str, kind: str, default: float, problems: list[str]) -> float:
@@ -189,6 +262,8 @@ class ScpiGenerator:
         self._inst: Any = None
         self._idn = ""
         self._nodelay = "not applicable"
+        self._load_answer = ""                 # the instrument's OUTP:LOAD? answer, verbatim
+        self._load_check = "not checked"
         self._sent_freq_hz = 0.0
         self._sent_amp_v = 0.0
         self._output_on = False
@@ -333,6 +408,12 @@ class ScpiGenerator:
 
     def _drain_errors(self, after: str) -> None:
         """Read ``SYST:ERR?`` until it reports no error; raise with every entry found."""
+        found = self._read_errors()
+        if found:
+            raise InstrumentError(f"SCPI generator {self.config.resource} reported {'; '.join(found)} after: {after}")
+
+    def _read_errors(self) -> list[str]:
+        """Every entry of the error queue, read with ``SYST:ERR?`` until it answers ``0,...``."""
         found = []
         for _ in range(64):
             answer = self._query("SYST:ERR?")
@@ -346,8 +427,7 @@ class ScpiGenerator:
             found.append(answer)
         else:
             found.append("(error queue did not empty after 64 reads)")
-        if found:
-            raise InstrumentError(f"SCPI generator {self.config.resource} reported {'; '.join(found)} after: {after}")
+        return found
 
     def _batch(self, commands: list[str], opc: bool = False) -> None:
         for command in commands:
@@ -364,16 +444,82 @@ class ScpiGenerator:
             self._write("*RST")
         self._write("*CLS")
         self._idn = self._query("*IDN?")
+        if cfg.set_load:      # before the unit: an instrument in high impedance may refuse DBM
+            self._set_load()
         self._batch(["SOUR:FUNC SIN", f"SOUR:VOLT:UNIT {cfg.amplitude_unit}", "SOUR:VOLT:OFFS 0", "OUTP OFF"],
                     opc=True)
         self._output_on = False
+        self._check_load()
         self._sent_freq_hz = self.actual_frequency_hz()
+
+    # ------------------------------------------------------------------ output load (caller holds self._io)
+    def _set_load(self) -> None:
+        command = f"OUTP:LOAD {load_argument(self.config.load_ohm)}"
+        self._batch(["OUTP OFF", command])
+        log.info("SCPI generator %s: output load set with %r (hardware.scpi.set_load = true)",
+                 self.config.resource, command)
+
+    def _check_load(self) -> None:
+        """Read the output load setting back and compare it with the rig's, before any ``OUTP ON``.
+
+        A mismatch is refused (:class:`OutputLoadMismatch`). An instrument that does not know
+        ``OUTP:LOAD?`` (no answer, an error queued, or an unreadable answer) is logged and
+        recorded in :meth:`identity` as not confirmed, and opening carries on, unless the rig
+        asked for the load to be set (``set_load``): then it is refused."""
+        cfg = self.config
+        answer: str | None = None
+        try:
+            answer = self._query("OUTP:LOAD?", timeout_s=min(cfg.timeout_s, LOAD_QUERY_WAIT_S))
+        except BackendTimeout:
+            pass                       # the session was reopened: no late answer can be misread
+        errors = self._read_errors()
+        ohm = load_from_answer(answer) if answer is not None and not errors else None
+        self._load_answer = "" if answer is None else answer
+        if ohm is None:
+            reason = (f"OUTP:LOAD? answered {answer!r}" if answer is not None
+                      else f"no answer to OUTP:LOAD? within {min(cfg.timeout_s, LOAD_QUERY_WAIT_S):g} s")
+            if errors:
+                reason += f", error queue: {'; '.join(errors)}"
+            self._load_check = f"not confirmed ({reason})"
+            if cfg.set_load:
+                raise DriverError(f"SCPI generator {cfg.resource}: the output load was set to "
+                                  f"{describe_load(cfg.load_ohm)} (hardware.scpi.set_load = true) but could not be "
+                                  f"read back: {reason}")
+            log.warning("SCPI generator %s: the output load setting could not be confirmed (%s); the rig says "
+                        "the output drives %s: check the instrument's load setting by hand", cfg.resource, reason,
+                        describe_load(cfg.load_ohm))
+            return
+        if not same_load(ohm, cfg.load_ohm):
+            raise OutputLoadMismatch(self._mismatch_message(answer or "", ohm))
+        self._load_check = "set and confirmed" if cfg.set_load else "confirmed"
+        if not cfg.load_given:
+            log.warning("SCPI generator %s: hardware.scpi.load is not set in the rig file, so 50 ohm is assumed and "
+                        "the instrument agrees; most amplifier inputs are high impedance: if yours is, set "
+                        "load = \"high-z\" there", cfg.resource)
+
+    def _mismatch_message(self, answer: str, instrument_ohm: float) -> str:
+        cfg = self.config
+        factor = voltage_factor(instrument_ohm, cfg.load_ohm)
+        rig_value = '"high-z"' if math.isinf(instrument_ohm) else f"{instrument_ohm:g}"
+        where = self.rig.source_path or "the rig file"
+        reset = (" (the opening *RST restores the instrument's default load setting, so set_load = true is the "
+                 "lasting fix)" if cfg.reset else "")
+        return (f"SCPI generator {cfg.resource}: output load setting mismatch, nothing was switched on: the "
+                f"instrument answered OUTP:LOAD? with {answer!r} ({describe_load(instrument_ohm)}), the rig says the "
+                f"output drives {describe_load(cfg.load_ohm)} (hardware.scpi.load"
+                f"{'' if cfg.load_given else ', not set: 50 ohm assumed'}). The amplifier would get {factor:.3g}x "
+                f"the commanded voltage (through a {SOURCE_OHM:g} ohm source). Fix: send "
+                f"\"OUTP:LOAD {load_argument(cfg.load_ohm)}\" to the instrument (or set it on its front panel)"
+                f"{reset}; or set hardware.scpi.set_load = true in {where} to have it sent on opening; or, if the "
+                f"output really drives {describe_load(instrument_ohm)}, set hardware.scpi.load = {rig_value}")
 
     # ------------------------------------------------------------------ identity and read-back
     def identity(self) -> dict[str, str]:
         fields = [f.strip() for f in self._idn.split(",")] + ["", "", "", ""]
         return {"maker": fields[0], "model": fields[1], "serial": fields[2], "firmware": fields[3],
                 "idn": self._idn, "resource": self.config.resource, "amplitude_unit": self.config.amplitude_unit,
+                "load_rig": describe_load(self.config.load_ohm) + ("" if self.config.load_given else " (assumed)"),
+                "load_instrument": self._load_answer, "load_check": self._load_check,
                 "tcp_nodelay": self._nodelay, "pyvisa": metadata.version("pyvisa")}
 
     def actual_frequency_hz(self) -> float:
@@ -534,5 +680,6 @@ def _float(answer: str, what: str) -> float:
         raise DriverError(f"SCPI generator: unreadable answer {answer!r} to {what}") from None
 
 
-__all__ = ["GeneratorSettings", "InstrumentConnectionLost", "InstrumentError", "ScpiConfig", "ScpiGenerator",
-           "peak_to_unit", "resource_manager", "unit_to_peak"]
+__all__ = ["GeneratorSettings", "InstrumentConnectionLost", "InstrumentError", "OutputLoadMismatch", "ScpiConfig",
+           "ScpiGenerator", "describe_load", "load_from_answer", "parse_load", "peak_to_unit", "resource_manager",
+           "unit_to_peak", "voltage_factor"]
