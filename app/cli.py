@@ -56,7 +56,7 @@ def main(argv: list[str] | None = None) -> int:
         return int(args._run(args) or 0)
     except FlamebodeError as exc:
         print(f"flamebode {args.command}: {exc}", file=sys.stderr)
-        return 2
+        return int(getattr(exc, "exit_code", 2))
     except KeyboardInterrupt:
         print(f"flamebode {args.command}: interrupted", file=sys.stderr)
         return 130

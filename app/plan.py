@@ -139,7 +139,7 @@ class Tuning(_Strict):
     tolerance: float = Field(default=0.05, gt=0.0, lt=0.5)
     max_steps: int = Field(default=8, ge=1, le=100)
     ceiling: Voltage | None = None
-    first_drive_fraction: float = Field(default=0.1, gt=0.0, le=1.0)
+    first_drive_fraction: float = Field(default=0.002, gt=0.0, le=1.0)
     max_step_factor: float = Field(default=4.0, gt=1.0, le=100.0)
     when_unreachable: Literal["record-at-ceiling", "skip"] = "record-at-ceiling"
     prior: tuple[tuple[Frequency, Annotated[float, Field(gt=0.0)]], ...] = ()
@@ -201,8 +201,8 @@ class Plan(_Strict):
         return [PlanPoint(i, f, a, a * k) for i, (f, a) in enumerate(pairs)]
 
     def ceiling_v(self, rig: Rig) -> float:
-        """The plan's ceiling, or the rig's when the plan gives none."""
-        return rig.drive.ceiling if self.tuning.ceiling is None else self.tuning.ceiling
+        """The lower of the plan's ceiling and the rig's (the rig's when the plan gives none)."""
+        return rig.drive.ceiling if self.tuning.ceiling is None else min(self.tuning.ceiling, rig.drive.ceiling)
 
     def check_against(self, rig: Rig) -> None:
         """Raise ConfigError (naming the plan file and key) where the plan does not fit the rig."""

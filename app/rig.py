@@ -128,8 +128,18 @@ class Light(_Strict):
     channel: str = Field(min_length=1)
     sensitivity: float = Field(default=1.0, gt=0.0, description="volts per unit of light; cancels in Q'/Q")
     dark_offset: Voltage = 0.0
+    dark_offset_uncertainty: Annotated[float, _q("voltage"), Field(ge=0.0)] = 0.005
+    min_flame_signal: Annotated[float, _q("voltage"), Field(gt=0.0)] | None = None
     safe_max: Voltage = 10.0
     filter: str = ""
+
+    def lit_threshold_v(self, dead_rms_v: float = 0.0) -> float:
+        """Light above the stated dark offset that means a burning flame: the stated minimum a lit
+        flame gives, else four standard uncertainties of the dark offset plus ten noise floors
+        (a dark offset mis-stated by a few millivolts never reads as a flame)."""
+        if self.min_flame_signal is not None:
+            return float(self.min_flame_signal)
+        return 4.0 * self.dark_offset_uncertainty + 10.0 * dead_rms_v
 
 
 class Drive(_Strict):

@@ -86,7 +86,7 @@ def _run_sweep(args: argparse.Namespace, plan: Any, rig: Any, plan_path: Path, r
     from ..engine.events import EventBus
     from ..engine.progress import ProgressDisplay
     from ..engine.sweep import SweepEngine
-    from .running import open_device, run_engine
+    from .running import StoppedBySignal, open_device, run_engine
 
     bus = EventBus()
     device = open_device(args.backend, rig, scenario, args.fast, args.seed)
@@ -105,7 +105,11 @@ def _run_sweep(args: argparse.Namespace, plan: Any, rig: Any, plan_path: Path, r
     engine = SweepEngine(plan, rig, device, bus, backend_name=args.backend,
                          run_label=time.strftime("s%Y%m%d-%H%M%S"), wait_for_store=writer is not None)
     display.start()
-    run_engine(engine, device, (display.close,) + ((writer.close,) if writer is not None else ()))
+    try:
+        run_engine(engine, device, (display.close,) + ((writer.close,) if writer is not None else ()))
+    except StoppedBySignal:
+        print(f"run folder: {args.out}" if args.out else "nothing stored (no --out RUN_DIR)")
+        raise
     return _report(engine, writer, args.out)
 
 

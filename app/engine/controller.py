@@ -5,15 +5,22 @@ measures the velocity amplitude ratio |u'_ref|/u_mean over a short window, hands
 measurement back, and gets a :class:`Decision`: measure again at a new voltage, converged,
 unreachable under the ceiling, or not converged within the allowed steps.
 
-* The first voltage of each point is predicted from what the sweep has learned so far (the
-  drive-to-velocity gain |u'_ref/u_mean| per volt at earlier points, interpolated or
-  extrapolated in frequency on log-magnitude) and, when given, from an earlier run's table
-  of (frequency, ratio per volt), rescaled to this run. The very first point starts low, at
-  a fraction of the ceiling; a point beyond the learned range starts below its prediction.
+* Soft start: no tuning window should force much harder than the target (a flame close to
+  blow-off or flash-back must not see ten times the planned amplitude). The very first point
+  starts very low, at a small fraction of the ceiling, and grows in bounded factors. Every
+  later point starts from a *cautious* prediction of the drive-to-velocity gain
+  |u'_ref/u_mean| per volt learned so far (interpolated in log-magnitude, or extrapolated
+  with the full local slope but never below the nearest learned gain) and, when given, an
+  earlier run's table rescaled to this run: a point beyond the learned range starts at a
+  fraction of the predicted voltage, smaller where this sweep's predictions have proved
+  poor (``soft_start_max`` over the recent prediction errors). The first window then
+  measures the gain at a safe amplitude and the next step lands on the target.
 * Updates are secant steps on (log voltage, log amplitude); when the last two pairs are
   inconsistent (slope outside a sane band, e.g. noise or a nonlinear driver) the step falls
-  back to the proportional one (slope 1, the linear-acoustics answer). An upward step is
-  limited to a factor ``max_step_factor``; no request is ever above the ceiling.
+  back to the proportional one (slope 1, the linear-acoustics answer). A window whose
+  forcing line is lost in the noise (below ``noise_sigmas`` standard deviations) steps up
+  only as far as the noise bound allows. An upward step is limited to a factor
+  ``max_step_factor``; no request is ever above the ceiling.
 * An unreachable target is reported early: measured below target at the ceiling, or a
   prediction clearly above the ceiling after a step near it.
 
@@ -27,7 +34,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Literal, Sequence
+from typing import Callable, Literal, Sequence
 
 import numpy as np
 
@@ -39,13 +46,19 @@ class ControllerSettings:
     ceiling_v: float
     tolerance: float = 0.05              # max relative deviation of the amplitude from the target
     max_steps: int = 8                   # tuning windows per point
-    first_drive_fraction: float = 0.1    # first voltage of the very first point, of the ceiling
+    first_drive_fraction: float = 0.002  # first voltage of the very first point, of the ceiling
     max_step_factor: float = 4.0         # one step raises the voltage by at most this factor
+    soft_start_max: float = 1.5          # aim: no first window above this multiple of the target
+    noise_sigmas: float = 3.0            # a ratio below this many standard deviations is not measured
+    clean_sigmas: float = 10.0           # a ratio above this many standard deviations is a clean measurement
+    clean_step_factor: float = 20.0      # ... from which one step may raise the voltage by this factor
     slope_band: tuple[float, float] = (0.33, 3.0)   # sane d(log a)/d(log V)
     near_ceiling: float = 0.7            # a step at >= this fraction of the ceiling is "near" it
     unreachable_margin: float = 0.25     # predicted voltage above (1 + margin) * ceiling: unreachable
     extrapolation_limit: float = 3.0     # an extrapolated gain stays within this factor of the nearest
-    extrapolation_caution: float = 0.5   # first voltage of an extrapolated point, of the prediction
+    extrapolation_caution: float = 0.0625  # first voltage of an extrapolated point, at most, of the prediction
+    interpolation_caution: float = 0.9   # first voltage between learned points, of the prediction
+    caution_floor: float = 0.03          # never start a point below this fraction of its prediction
 
 
 @dataclass(frozen=True)
@@ -53,6 +66,8 @@ class TuningSample:
     drive_v: float
     measured_ratio: float
     window_s: float
+    measurable: bool = True     # False: the forcing line was lost in the noise
+    clean: bool = True          # True: well above the noise (clean_sigmas), good for a secant slope
 
 
 @dataclass(frozen=True)
@@ -75,6 +90,16 @@ class TransferMemory:
     def learn(self, freq_hz: float, target_ratio: float, drive_v: float, measured_ratio: float) -> None:
         if drive_v > 0 and measured_ratio > 0 and math.isfinite(measured_ratio):
             self._learned[(round(freq_hz, 6), round(target_ratio, 9))] = measured_ratio / drive_v
+
+    def strongest_gain(self) -> float:
+        """The largest ratio per volt learned so far at any frequency (a resonance seen once may be
+        met again further on: a new point never opens above the target at that gain)."""
+        return max(self._learned.values(), default=0.0)
+
+    def learned_at_or_above(self, freq_hz: float, target_ratio: float) -> bool:
+        """True when a gain was learned at ``freq_hz`` for an amplitude at or above ``target_ratio``."""
+        return any(math.isclose(f, freq_hz, rel_tol=1e-9) and a >= target_ratio * (1 - 1e-9)
+                   for f, a in self._learned)
 
     @property
     def n_learned(self) -> int:
@@ -143,6 +168,33 @@ class TransferMemory:
         return float(np.clip(value, g2 - self._limit_log, g2 + self._limit_log))
 
 
+    def predict_cautious(self, freq_hz: float, target_ratio: float) -> tuple[float | None, str]:
+        """(ratio per volt, how it was found) erring on the HIGH side, so the voltage it gives errs low.
+
+        ``exact``: learned at this frequency; ``prior``: an earlier run's table rescaled to this
+        run; ``inside``: the larger of the two learned neighbours (a resonance may lie between);
+        ``beyond``: the full local slope in log-gain through the two nearest learned points, never
+        below the nearest one (a rising gain is followed, a falling one is not trusted); ``none``:
+        nothing learned yet."""
+        fs, lg = self._per_frequency(target_ratio)
+        if fs.size and np.any(np.isclose(fs, freq_hz, rtol=1e-9, atol=0.0)):
+            return float(np.exp(lg[np.isclose(fs, freq_hz, rtol=1e-9, atol=0.0)][0])), "exact"
+        if self._prior_f.size:
+            return self.predict(freq_hz, target_ratio), "prior"
+        if fs.size == 0:
+            return None, "none"
+        if fs[0] <= freq_hz <= fs[-1]:
+            i = int(np.searchsorted(fs, freq_hz))
+            return float(np.exp(max(lg[i - 1], lg[i]))), "inside"
+        if fs.size == 1:
+            return float(np.exp(lg[0])), "beyond"
+        if freq_hz > fs[-1]:
+            (f1, g1), (f2, g2) = (fs[-2], lg[-2]), (fs[-1], lg[-1])
+        else:
+            (f1, g1), (f2, g2) = (fs[1], lg[1]), (fs[0], lg[0])
+        value = g2 + (g2 - g1) / (f2 - f1) * (freq_hz - f2)
+        return float(np.exp(np.clip(value, g2, g2 + self._limit_log))), "beyond"
+
 @dataclass
 class PointTuner:
     """Tunes one point; ``history`` keeps every (voltage, measured ratio, window) step."""
@@ -153,6 +205,8 @@ class PointTuner:
     start_drive_v: float
     history: list[TuningSample] = field(default_factory=list)
     proportional: bool = False
+    predicted_gain: float | None = None          # ratio per volt the start voltage was based on
+    on_first: Callable[[float], None] | None = None   # told measured/predicted gain after window 1
 
     def first_drive(self) -> float:
         return min(self.start_drive_v, self.settings.ceiling_v)
@@ -162,17 +216,33 @@ class PointTuner:
 
     def best(self) -> TuningSample:
         """The step whose amplitude came closest to the target (log distance)."""
-        ok = [s for s in self.history if s.measured_ratio > 0 and math.isfinite(s.measured_ratio)]
+        ok = [s for s in self.history if s.measurable and s.measured_ratio > 0 and math.isfinite(s.measured_ratio)]
         if not ok:
             return self.history[-1]
         return min(ok, key=lambda s: abs(math.log(s.measured_ratio / self.target_ratio)))
 
-    def update(self, drive_v: float, measured_ratio: float, window_s: float) -> Decision:
+    def update(self, drive_v: float, measured_ratio: float, window_s: float, sigma_ratio: float = 0.0) -> Decision:
+        """One measured window; ``sigma_ratio`` is the standard deviation of ``measured_ratio``."""
         s = self.settings
-        self.history.append(TuningSample(drive_v, measured_ratio, window_s))
-        if measured_ratio > 0 and math.isfinite(measured_ratio) and self.within(measured_ratio):
+        measurable = (measured_ratio > 0 and math.isfinite(measured_ratio)
+                      and not measured_ratio < s.noise_sigmas * sigma_ratio)
+        if (not self.history and self.on_first is not None and self.predicted_gain and measurable
+                and drive_v > 0):
+            self.on_first(measured_ratio / drive_v / self.predicted_gain)
+        known_noise = math.isfinite(sigma_ratio) and sigma_ratio > 0
+        clean = measurable and known_noise and measured_ratio >= s.clean_sigmas * sigma_ratio
+        self.history.append(TuningSample(drive_v, measured_ratio, window_s, measurable, clean))
+        if measurable and self.within(measured_ratio):
             return Decision("converged", drive_v, f"within {s.tolerance:.1%} of the target")
-        wanted = self._next_voltage(drive_v, measured_ratio)
+        if clean or (measurable and not known_noise):
+            wanted = self._next_voltage(drive_v, measured_ratio, clean)
+        elif known_noise and math.isfinite(measured_ratio):
+            # noisy or lost in the noise: the true ratio is below r + noise_sigmas σ (with ~99.9 %
+            # confidence), so a step to the target at that bound cannot overshoot it
+            bound = max(measured_ratio, 0.0) + s.noise_sigmas * sigma_ratio
+            wanted = drive_v * min(max(self.target_ratio / bound, 1.0 / s.clean_step_factor), s.clean_step_factor)
+        else:
+            wanted = drive_v * s.max_step_factor      # nothing known: up, gently
         at_ceiling = drive_v >= 0.98 * s.ceiling_v
         if at_ceiling and measured_ratio < self.target_ratio * (1.0 - s.tolerance):
             return Decision("unreachable", s.ceiling_v,
@@ -187,26 +257,30 @@ class PointTuner:
                             f"best {best.measured_ratio:.4g} at {best.drive_v:.4g} V")
         return Decision("measure", min(wanted, s.ceiling_v))
 
-    def _next_voltage(self, drive_v: float, measured_ratio: float) -> float:
-        """Secant in log-log on the last two distinct voltages, else proportional; step-limited."""
+    def _next_voltage(self, drive_v: float, measured_ratio: float, clean: bool) -> float:
+        """Secant in log-log on the last two distinct clean windows, else proportional.
+
+        Upward, the slope is taken as at least 1 (a sub-linear slope would lengthen the step
+        past what linear acoustics predicts: undershoot instead), and the step is limited to
+        ``clean_step_factor`` from a clean window, ``max_step_factor`` where the noise is unknown."""
         s = self.settings
-        if not (measured_ratio > 0 and math.isfinite(measured_ratio)):
-            return drive_v * s.max_step_factor       # nothing measurable: go up, limited
         slope = 1.0
         prev = self._previous_distinct(drive_v)
-        if prev is not None and not self.proportional:
+        if prev is not None and clean and not self.proportional:
             dv = math.log(drive_v / prev.drive_v)
             da = math.log(measured_ratio / prev.measured_ratio)
             candidate = da / dv
             if s.slope_band[0] <= candidate <= s.slope_band[1]:
                 slope = candidate
         factor = (self.target_ratio / measured_ratio) ** (1.0 / slope)
+        if factor > 1.0:
+            factor = min(factor, (self.target_ratio / measured_ratio) ** (1.0 / max(slope, 1.0)))
         # only upward steps are limited (ramping up gently); lowering the drive is always safe
-        return drive_v * min(factor, s.max_step_factor)
+        return drive_v * min(factor, s.clean_step_factor if clean else s.max_step_factor)
 
     def _previous_distinct(self, drive_v: float) -> TuningSample | None:
         for sample in reversed(self.history[:-1]):
-            if (sample.measured_ratio > 0 and math.isfinite(sample.measured_ratio)
+            if (sample.clean and sample.measured_ratio > 0 and math.isfinite(sample.measured_ratio)
                     and abs(math.log(sample.drive_v / drive_v)) > 1e-3):
                 return sample
         return None
@@ -215,9 +289,13 @@ class PointTuner:
 class AmplitudeController:
     """Starts a tuner per point and learns from every measured step.
 
+    ``ERROR_MEMORY`` points' prediction errors set how cautiously the next point opens.
+
     ``proportional=True`` is the plain comparison controller: each point starts from the
     previous point's final voltage and steps proportionally, with no learned prediction.
     """
+
+    ERROR_MEMORY = 5
 
     def __init__(self, settings: ControllerSettings, prior: Sequence[tuple[float, float]] = (),
                  proportional: bool = False):
@@ -225,28 +303,49 @@ class AmplitudeController:
         self.memory = TransferMemory(() if proportional else prior, settings.extrapolation_limit)
         self.proportional = proportional
         self._last_drive_v: float | None = None
+        self._errors: list[float] = []      # measured / predicted gain at the first window of recent points
 
     def start_point(self, freq_hz: float, target_ratio: float) -> PointTuner:
         s = self.settings
         start = s.first_drive_fraction * s.ceiling_v
+        gain: float | None = None
         if self.proportional:
             if self._last_drive_v is not None:
                 start = self._last_drive_v
         else:
-            gain = self.memory.predict(freq_hz, target_ratio)
+            gain, kind = self.memory.predict_cautious(freq_hz, target_ratio)
             if gain is not None and gain > 0:
-                start = target_ratio / gain * self._caution(freq_hz)
-        start = max(start, 1e-4 * s.ceiling_v)
-        return PointTuner(s, freq_hz, target_ratio, start, proportional=self.proportional)
+                start = target_ratio / gain * self._caution(kind, freq_hz, target_ratio)
+                if kind == "beyond":   # and never above what the strongest gain seen so far allows
+                    start = min(start, target_ratio / self.memory.strongest_gain())
+        start = max(start, 1e-7 * s.ceiling_v)   # only to keep it positive
+        return PointTuner(s, freq_hz, target_ratio, start, proportional=self.proportional,
+                          predicted_gain=gain, on_first=self._note_prediction_error)
 
-    def _caution(self, freq_hz: float) -> float:
-        """Start below an extrapolated prediction: past the learned range a resonance may lie
-        (the gain can grow tenfold); the first window then measures safely and the next step
-        corrects. Interpolated or prior-based predictions are used as they are."""
-        d = self.memory.extrapolation_distance(freq_hz)
-        if d == 0.0:
-            return 1.0
-        return self.settings.extrapolation_caution if d <= 0.15 else self.settings.extrapolation_caution**2
+    def _caution(self, kind: str, freq_hz: float, target_ratio: float) -> float:
+        """Fraction of the predicted voltage to open a point with.
+
+        Beyond the learned range a resonance may lie (the gain can grow several-fold between
+        neighbouring points): open at ``extrapolation_caution`` of the prediction, lower still
+        where recent predictions fell short by a factor J (soft_start_max / (1.2 J)); the next
+        window, measured at a safe level, corrects. At a learned frequency, below or at a
+        learned amplitude, the prediction is used as it is."""
+        s = self.settings
+        if kind == "exact":
+            return 1.0 if self.memory.learned_at_or_above(freq_hz, target_ratio) else s.interpolation_caution
+        if kind == "inside":
+            return s.interpolation_caution
+        worst = max(self._errors, default=1.0)
+        adaptive = s.soft_start_max / (1.2 * max(worst, 1.0))
+        if kind == "prior":   # an earlier run's table: trusted once this run has confirmed it
+            return float(np.clip(adaptive, s.caution_floor, 1.0)) if self._errors else s.extrapolation_caution
+        return float(np.clip(min(s.extrapolation_caution, adaptive), s.caution_floor, 1.0))
+
+    def _note_prediction_error(self, ratio: float) -> None:
+        """Measured / predicted gain at a point's first window (kept for the last few points)."""
+        if math.isfinite(ratio) and ratio > 0:
+            self._errors.append(ratio)
+            del self._errors[:-self.ERROR_MEMORY]
 
     def learn(self, freq_hz: float, target_ratio: float, drive_v: float, measured_ratio: float) -> None:
         self.memory.learn(freq_hz, target_ratio, drive_v, measured_ratio)

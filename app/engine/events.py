@@ -105,6 +105,7 @@ class PointSettled(Event):
     overflows: int
     identity: dict[str, str]
     started_wall_s: float
+    recorded_wall_s: float = 0.0   # time.time() when the record's last block arrived
     wall_time_s: float = field(default_factory=time.time)
 
 

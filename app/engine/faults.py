@@ -28,7 +28,14 @@ class FaultKind:
     advice: str
 
 
-_ABORT = "drive ramped to zero; sweep ended; every stored point is kept"
+_ABORT = "drive brought to zero; sweep ended; every stored point is kept"
+_UNCONFIRMED = ("the output could not be confirmed at zero: switch the amplifier off; sweep ended; every "
+                "stored point is kept")
+
+
+def ended_action(confirmed_zero: bool) -> str:
+    """What the engine did on a fatal fault, truthfully: the output confirmed at zero, or not."""
+    return _ABORT if confirmed_zero else _UNCONFIRMED
 FAULTS: dict[str, FaultKind] = {f.name: f for f in (
     FaultKind("input-clipping", False, "point flagged; sweep continues",
               "lower the sensor gain or the forcing amplitude, or raise the input range"),
@@ -57,6 +64,14 @@ FAULTS: dict[str, FaultKind] = {f.name: f for f in (
               "see the message; the record could not be evaluated"),
     FaultKind("store-failed", True, _ABORT,
               "check the run folder's disk space and permissions"),
+    FaultKind("output-unconfirmed", True, _UNCONFIRMED,
+              "switch the amplifier off, then check the generator's connection and power"),
+    FaultKind("output-over-ceiling", True, _ABORT,
+              "switch the amplifier off; check the generator's output mode (50 ohm / high-Z), the amplifier "
+              "gain and the drive reference wiring before driving again"),
+    FaultKind("output-above-command", True, _ABORT,
+              "check the generator's output load setting (a 50 ohm setting into a high-impedance input doubles "
+              "the voltage) and the drive reference channel's wiring and scale"),
 )}
 
 
@@ -78,6 +93,43 @@ class Finding:
         return FAULTS[self.name].fatal
 
 
+# output monitor: measured drive reference against the ceiling and the command (common practice:
+# an independent read-back of the actuator signal, with margins above the measurement's noise)
+OVER_CEILING = 1.05          # sine amplitude above 105 % of the ceiling
+OVER_CEILING_PEAK = 1.25     # or any raw peak above 125 % of it
+ABOVE_COMMAND = 1.3          # sine amplitude above 130 % of the command ...
+ABOVE_COMMAND_FLOOR = 0.02   # ... plus 2 % of the ceiling (noise, zero command)
+# flat tops: samples piled up at one extreme value
+PILE_MIN_SAMPLES = 16
+PILE_MIN_FRACTION = 2e-3
+PILE_RATIO = 5.0
+
+
+def flat_top(x: np.ndarray) -> tuple[float, int] | None:
+    """(value, count) when samples pile up at the channel's largest or smallest value: clipping
+    at a rail, whatever range was declared (common practice: a clipped record shows a run of
+    identical extreme values and a spike in the histogram at its edge).
+
+    Piled up means: at least ``PILE_MIN_SAMPLES`` and ``PILE_MIN_FRACTION`` of the samples hold
+    exactly the extreme value, ``PILE_RATIO`` times as many as lie just inside it (within 0.2 %
+    of the span). A quantised sine without clipping has about as many samples at its top code
+    as at the next one (its density is smooth near the peak), so it does not count."""
+    n = x.size
+    if n == 0:
+        return None
+    lo, hi = float(x.min()), float(x.max())
+    span = hi - lo
+    if span <= 0.0:
+        return None
+    band = 2e-3 * span
+    need = max(PILE_MIN_SAMPLES, PILE_MIN_FRACTION * n)
+    for value, inside in ((hi, (x < hi) & (x >= hi - band)), (lo, (x > lo) & (x <= lo + band))):
+        at = int(np.count_nonzero(x == value))
+        if at >= need and at >= PILE_RATIO * max(1, int(np.count_nonzero(inside))):
+            return value, at
+    return None
+
+
 class SignalChecks:
     """Checks on blocks, windows and results against the rig's ranges and the plan's limits."""
 
@@ -90,24 +142,67 @@ class SignalChecks:
         self.baseline_light_v: float | None = None   # mean light above dark, drive off, at the start
 
     # ---------------------------------------------------------------- per block
-    def check_block(self, data: np.ndarray, channels: tuple[str, ...], where: str) -> list[Finding]:
-        """Cheap checks on every block: light above its safe maximum."""
+    def check_block(self, data: np.ndarray, channels: tuple[str, ...], where: str,
+                    commanded_v: float | None = None, ceiling_v: float | None = None) -> list[Finding]:
+        """Cheap checks on every block: light above its safe maximum, the flame watch (mean light
+        against its value at the start), and the output monitor (the measured drive reference
+        against the ceiling and the commanded amplitude ``commanded_v``, the largest envelope
+        of the last few blocks)."""
+        out: list[Finding] = []
         light = data[channels.index(self.light_channel)]
         peak = float(light.max()) if light.size else 0.0
         if peak >= self.rig.light.safe_max:
-            return [Finding("light-over-range", f"light channel '{self.light_channel}' reached {peak:.3g} V, "
-                            f"at or above its safe maximum {self.rig.light.safe_max:g} V ({where})")]
+            out.append(Finding("light-over-range", f"light channel '{self.light_channel}' reached {peak:.3g} V, "
+                               f"at or above its safe maximum {self.rig.light.safe_max:g} V ({where})"))
+        if self.baseline_light_v is not None and light.size:
+            ratio = (float(light.mean()) - self.rig.light.dark_offset) / self.baseline_light_v
+            if ratio < self.limits.flame_out_fraction:
+                out.append(Finding("flame-out", f"mean light on '{self.light_channel}' fell to {ratio:.0%} of its "
+                                   f"value at the start within one block ({where})"))
+        if ceiling_v is not None and self.reference_channel in channels:
+            out += self._output_monitor(data[channels.index(self.reference_channel)], commanded_v or 0.0,
+                                        ceiling_v, where)
+        return out
+
+    def _output_monitor(self, ref: np.ndarray, commanded_v: float, ceiling_v: float, where: str) -> list[Finding]:
+        """The drive reference measured independently of the guard: its sine amplitude (rms × √2,
+        insensitive to single spikes) and its raw peak against the ceiling and the command."""
+        if ref.size < 8:
+            return []
+        centred = ref - ref.mean()
+        amplitude_v = float(np.sqrt(2.0) * centred.std())
+        peak_v = float(np.abs(centred).max())
+        name = self.reference_channel
+        if amplitude_v > OVER_CEILING * ceiling_v or peak_v > OVER_CEILING_PEAK * ceiling_v:
+            return [Finding("output-over-ceiling", f"drive reference '{name}' measured {amplitude_v:.3g} V "
+                            f"amplitude ({peak_v:.3g} V peak), above the {ceiling_v:g} V ceiling; commanded "
+                            f"{commanded_v:.3g} V ({where})")]
+        floor_v = ABOVE_COMMAND_FLOOR * ceiling_v
+        if amplitude_v > ABOVE_COMMAND * commanded_v + floor_v:
+            return [Finding("output-above-command", f"drive reference '{name}' measured {amplitude_v:.3g} V "
+                            f"amplitude while {commanded_v:.3g} V was commanded ({amplitude_v / max(commanded_v, 1e-12):.2g}"
+                            f" times; ceiling {ceiling_v:g} V) ({where})")]
         return []
 
     # ---------------------------------------------------------------- per window/record
     def set_baseline(self, data: np.ndarray, channels: tuple[str, ...]) -> list[Finding]:
-        """Mean light with the drive off at the start; a flame must be burning."""
+        """Mean light with the drive off at the start; a flame must be burning.
+
+        Lit means: above the stated dark offset by more than what a lit flame gives at least
+        (``light.min_flame_signal``), or by more than a margin that a dark offset mis-stated
+        within its stated uncertainty cannot reach (see ``Light.lit_threshold_v``)."""
         findings = self.check_window(data, channels, drive_v=0.0, where="at the start, drive off")
+        light_cfg = self.rig.light
         light = data[channels.index(self.light_channel)]
-        above_dark = float(light.mean()) - self.rig.light.dark_offset
-        if above_dark <= 10.0 * self.limits.dead_rms:
+        above_dark = float(light.mean()) - light_cfg.dark_offset
+        threshold = light_cfg.lit_threshold_v(self.limits.dead_rms)
+        if above_dark <= threshold:
+            why = (f"light.min_flame_signal {threshold * 1e3:.3g} mV" if light_cfg.min_flame_signal is not None else
+                   f"{threshold * 1e3:.3g} mV: 4 x light.dark_offset_uncertainty "
+                   f"({light_cfg.dark_offset_uncertainty * 1e3:.3g} mV) plus the noise floor")
             findings.append(Finding("flame-out", f"no flame at the start: mean light on '{self.light_channel}' is "
-                                    f"{above_dark * 1e3:.2f} mV above the dark level"))
+                                    f"{above_dark * 1e3:.2f} mV above the stated dark offset "
+                                    f"{light_cfg.dark_offset * 1e3:.3g} mV; a lit flame gives more than {why}"))
         else:
             self.baseline_light_v = above_dark
         return findings
@@ -118,10 +213,16 @@ class SignalChecks:
         out: list[Finding] = []
         peaks = np.abs(data).max(axis=1)
         limit = self.limits.clip_fraction * self.rig.acquisition.input_range
-        for name, peak in zip(channels, peaks):
+        for row, (name, peak) in enumerate(zip(channels, peaks)):
             if peak >= limit:
                 out.append(Finding("input-clipping", f"channel '{name}' reached {peak:.3g} V, at or above "
                                    f"{limit:.3g} V of the {self.rig.acquisition.input_range:g} V input range ({where})"))
+                continue
+            pile = flat_top(data[row])
+            if pile is not None:
+                out.append(Finding("input-clipping", f"channel '{name}' is flat-topped: {pile[1]} samples sit at "
+                                   f"exactly {pile[0]:.6g} V (a rail below the declared {self.rig.acquisition.input_range:g} V "
+                                   f"range?) ({where})"))
         std = data.std(axis=1)
         for name in self.pressure_channels + (self.light_channel,):
             s = float(std[channels.index(name)])

@@ -28,9 +28,10 @@ from __future__ import annotations
 
 import math
 import threading
+from collections import deque
 import time
 import uuid
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Callable
 
 import numpy as np
@@ -38,13 +39,13 @@ import numpy as np
 from app.core.quality import quality_flags
 from app.errors import FlamebodeError
 from drivers.errors import BackendTimeout, DriverError
-from drivers.protocols import Acquirer, EmergencyHalt, Identified, SineDrive
+from drivers.protocols import Acquirer, Armable, EmergencyHalt, Identified, SineDrive
 
 from . import states as S
 from .controller import AmplitudeController, ControllerSettings, Decision, PointTuner
 from .events import (BlockAcquired, DriveChanged, EventBus, FaultRaised, PointSettled, SweepFinished,
                      SweepStarted, TuningStep)
-from .faults import Finding, SignalChecks, fault_event
+from .faults import Finding, SignalChecks, ended_action, fault_event
 
 
 def integer_period_samples(freq_hz: float, sample_rate_hz: float, min_duration_s: float,
@@ -80,6 +81,16 @@ class _Fatal(Exception):
 
 class _Skip(Exception):
     """The point is skipped (flagged); the sweep goes on."""
+
+
+@dataclass
+class _Recording:
+    """The record in progress: what is needed to store it as interrupted if it is cut short."""
+
+    point: Any
+    drive_v: float
+    started_wall_s: float
+    parts: list[np.ndarray] = field(default_factory=list)
 
 
 @dataclass
@@ -164,6 +175,9 @@ class SweepEngine:
         self._overflows = 0
         self._point_index: int | None = None
         self._point_flags: list[str] = []
+        self._recording: _Recording | None = None
+        self._recent_drive_v: deque[float] = deque([0.0], maxlen=4)   # output envelope of the last blocks
+        self._fatal_event: FaultRaised | None = None
 
     # ================================================================== commands
     @property
@@ -253,14 +267,36 @@ class SweepEngine:
         except _Halt:
             reason = "halted"
         except _Fatal as exc:
-            self.bus.publish(exc.event)
+            reason = self._ending_reason() or self._fatal(exc.event)
         except BackendTimeout as exc:
-            self.bus.publish(fault_event("backend-timeout", f"{exc} (point {self._label()})", self._point_index))
+            reason = self._ending_reason() or self._fatal(
+                fault_event("backend-timeout", f"{exc} (point {self._label()})", self._point_index))
         except DriverError as exc:
-            self.bus.publish(fault_event("driver-error", f"{exc} (point {self._label()})", self._point_index))
+            reason = self._ending_reason() or self._fatal(
+                fault_event("driver-error", f"{exc} ({self._label()})", self._point_index))
+        except BaseException as exc:   # a bug or an interpreter exit: outputs to zero at once, then re-raise
+            self._cmd.halt = True
+            self._why = self._why or f"internal error: {exc!r}"
+            reason = "halted"
+            raise
         finally:
             self._finish(reason)
         return reason
+
+    def _ending_reason(self) -> str | None:
+        """'halted' or 'aborted' when an operator command is why the back-end or a check failed
+        (a halted guard refuses the next request; a window cut short by a halt looks dead)."""
+        if self._cmd.halt:
+            return "halted"
+        if self._cmd.abort:
+            return "aborted"
+        return None
+
+    def _fatal(self, event: FaultRaised) -> str:
+        """Keep a fatal fault to publish once the outputs are at zero (its action says how that went)."""
+        self._fatal_event = event
+        self._why = self._why or event.name
+        return "fault"
 
     def _begin(self) -> None:
         identity = self.drive.identity() if isinstance(self.drive, Identified) else {}
@@ -269,6 +305,8 @@ class SweepEngine:
                                       plan=self.plan, rig=self.rig))
         self._identity = dict(identity)
         self._set_state(S.PREPARING)
+        if isinstance(self.drive, Armable):     # clear a halt latch; the guard takes this sweep's ceiling
+            self.drive.arm(self.ceiling_v)
         self.acquirer.start()
         self._channels = tuple(self.acquirer.channels)
         self._fs = float(self.acquirer.sample_rate_hz)
@@ -281,20 +319,30 @@ class SweepEngine:
         self._react(self.checks.set_baseline(base, self._channels), skip_ok=False)
 
     def _finish(self, reason: str) -> None:
-        """The one clean-up: drive to zero (ramped, or at once on halt), final state, SweepFinished."""
+        """The one clean-up: drive to zero (ramped, or at once on halt and after a driver error),
+        the record in progress stored as interrupted, the fault published with what was really
+        done to the output, final state, SweepFinished."""
         try:
-            if not self._cmd.halt and reason != "halted":
-                if self.machine.state != S.WINDING_DOWN:
+            if not self._cmd.halt and reason not in ("halted",):
+                if self.machine.state != S.WINDING_DOWN and self.machine.can_go(S.WINDING_DOWN):
                     self._set_state(S.WINDING_DOWN)
                 try:
                     self._ramp_to_zero(S.WINDING_DOWN)
-                except (DriverError, _Fatal, _Skip):
+                except (DriverError, _Fatal, _Skip, _Halt, _Abort):
                     self._zero_now()      # the ramp could not be carried out: zero at once
         finally:
             self._drive_on = False
             if self._cmd.halt or reason == "halted":
                 self._zero_now()
                 reason = "halted"
+            confirmed = self._confirm_zero()
+            if self._fatal_event is not None:
+                ev = self._fatal_event
+                self.bus.publish(replace(ev, action=ended_action(confirmed)))
+            elif not confirmed:
+                self.bus.publish(fault_event("output-unconfirmed", f"after the sweep ended ({reason}) the back-end "
+                                             f"could not confirm its output at zero", self._point_index))
+            self._store_interrupted(reason)
             final = {"complete": S.FINISHED, "stopped": S.FINISHED, "aborted": S.ABORTED,
                      "halted": S.HALTED, "fault": S.FAULTED}[reason]
             if self.machine.state not in S.TERMINAL:
@@ -304,6 +352,44 @@ class SweepEngine:
             self.finish_reason = reason
             self.bus.publish(SweepFinished(reason=reason, n_settled=self.stats.settled, n_points=len(self.points),
                                            detail=self._why))
+
+    def _confirm_zero(self, wait_s: float = 0.5) -> bool:
+        """True when the back-end reports its output at zero (polled briefly: a card's queue drains)."""
+        deadline = time.monotonic() + wait_s
+        while True:
+            try:
+                status = self.drive.drive_status()
+                if status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0:
+                    return True
+            except DriverError:
+                return False
+            if time.monotonic() >= deadline:
+                return False
+            time.sleep(0.02)
+
+    def _store_interrupted(self, reason: str) -> None:
+        """A record cut short (halt, abort, fatal fault) is stored as evidence, flagged
+        ``interrupted`` (never accepted). Its partial data are evaluated where they can be."""
+        rec, self._recording = self._recording, None
+        if rec is None or not rec.parts:
+            return
+        data = np.concatenate(rec.parts, axis=1)
+        cause = self._fatal_event.name if self._fatal_event is not None else reason
+        result = None
+        try:
+            result = self._evaluate(data, self._channels, self._fs, rec.point.freq_hz, self.rig)
+        except Exception:       # too short or no flame: the raw record is the evidence
+            result = None
+        attempt_id = f"{self.run_label}-p{rec.point.index:04d}-{uuid.uuid4().hex[:8]}"
+        flags = tuple(dict.fromkeys(["interrupted", cause] + self._point_flags))
+        self.bus.publish(PointSettled(
+            attempt_id=attempt_id, point_index=rec.point.index, freq_hz=rec.point.freq_hz,
+            target_ratio=rec.point.amplitude_ratio, drive_v=rec.drive_v, record=data, channels=self._channels,
+            sample_rate_hz=self._fs, result=result, tuning=self.tuning_history.get(rec.point.index, ()),
+            flags=flags, overflows=self._overflows, identity=getattr(self, "_identity", {}),
+            started_wall_s=rec.started_wall_s, recorded_wall_s=time.time()))
+        if self.wait_for_store:    # briefly: a halted process must exit within seconds
+            self.bus.wait_ack(attempt_id, min(1.5, self.plan.faults.store_timeout))
 
     # ================================================================== one point
     def _measure_point(self, point: Any) -> None:
@@ -320,15 +406,18 @@ class SweepEngine:
         self.stats.tuning_steps.append(len(self._tuner.history))
         self._set_state(S.RECORDING)
         _, n_record = integer_period_samples(point.freq_hz, self._fs, self.plan.timing.record, max_extra=0.01)
+        self._recording = _Recording(point, drive_v, attempt_start)
         record = self._take(n_record, S.RECORDING)
         self.stats.recorded_samples += n_record
+        recorded_wall_s = time.time()
         self._react(self.checks.check_window(record, self._channels, drive_v, f"record of {self._label()}"))
         self._set_state(S.EVALUATING)
+        self._recording = None     # complete: from here on it is stored (or flagged) as a whole record
         result = self._evaluate_record(point, record)
         if result is None:
             return
         self._set_state(S.STORING)
-        self._store(point, drive_v, record, result, attempt_start)
+        self._store(point, drive_v, record, result, attempt_start, recorded_wall_s)
         self._boundary(resume_to=S.PREPARING)
 
     def _tune_and_settle(self, point: Any) -> float:
@@ -352,8 +441,9 @@ class SweepEngine:
         while True:
             estimate, window_s = self._tuning_window(point, drive_v)
             ratio = float(estimate.amplitude_ratio)
-            self.controller.learn(point.freq_hz, point.peak_ratio, drive_v, ratio)
-            decision = tuner.update(drive_v, ratio, window_s)
+            if not ratio < self.controller.settings.noise_sigmas * float(estimate.sigma_ratio):
+                self.controller.learn(point.freq_hz, point.peak_ratio, drive_v, ratio)
+            decision = tuner.update(drive_v, ratio, window_s, float(estimate.sigma_ratio))
             k = self.plan.amplitude.to_peak
             self.bus.publish(TuningStep(point_index=point.index, step=len(tuner.history), drive_v=drive_v,
                                         measured_ratio=ratio / k, target_ratio=point.amplitude_ratio,
@@ -419,14 +509,16 @@ class SweepEngine:
             self._point_flags.append("amplitude-off-target")
         return result
 
-    def _store(self, point: Any, drive_v: float, record: np.ndarray, result: Any, started_wall_s: float) -> None:
+    def _store(self, point: Any, drive_v: float, record: np.ndarray, result: Any, started_wall_s: float,
+               recorded_wall_s: float) -> None:
         flags = tuple(dict.fromkeys(self._point_flags + list(quality_flags(result.quality, self.plan.quality))))
         attempt_id = f"{self.run_label}-p{point.index:04d}-{uuid.uuid4().hex[:8]}"
         self.bus.publish(PointSettled(
             attempt_id=attempt_id, point_index=point.index, freq_hz=point.freq_hz,
             target_ratio=point.amplitude_ratio, drive_v=drive_v, record=record, channels=self._channels,
             sample_rate_hz=self._fs, result=result, tuning=self.tuning_history.get(point.index, ()),
-            flags=flags, overflows=self._overflows, identity=self._identity, started_wall_s=started_wall_s))
+            flags=flags, overflows=self._overflows, identity=self._identity, started_wall_s=started_wall_s,
+            recorded_wall_s=recorded_wall_s))
         self._overflows = 0
         if self.wait_for_store:
             acked, error = self.bus.wait_ack(attempt_id, self.plan.faults.store_timeout)
@@ -437,7 +529,10 @@ class SweepEngine:
 
     # ================================================================== faults and boundaries
     def _react(self, findings: list[Finding], skip_ok: bool = True) -> None:
-        """Publish each finding once per point; fatal ones end the sweep, pressure-too-high skips."""
+        """Publish each finding once per point; fatal ones end the sweep, pressure-too-high skips.
+
+        After a halt or abort nothing is reported: a window cut short by the operator is not a fault."""
+        self._raise_if_ending()
         skip = False
         for f in findings:
             if f.fatal:
@@ -546,12 +641,16 @@ class SweepEngine:
         if self._drive_on:
             self.stats.drive_on_samples += data.shape[1]
         self._since_settled += data.shape[1]
+        if stage == S.RECORDING and self._recording is not None:
+            self._recording.parts.append(data)    # kept even if a check below ends the sweep
         self.bus.publish(BlockAcquired(data=data, channels=self._channels, sample_rate_hz=self._fs,
                                        start_index=int(block.start_index), stage=stage,
                                        point_index=self._point_index))
-        findings = self.checks.check_block(data, self._channels, f"{stage}, {self._label()}")
-        if findings and check_commands:
-            self._react(findings)
+        self._recent_drive_v.append(float(self.drive.drive_status().amplitude_v))
+        findings = self.checks.check_block(data, self._channels, f"{stage}, {self._label()}",
+                                           commanded_v=max(self._recent_drive_v), ceiling_v=self.ceiling_v)
+        if findings and (check_commands or any(f.name.startswith("output-") for f in findings)):
+            self._react(findings)        # the output monitor acts even while ramping down
         return data
 
     def _take(self, n: int, stage: str) -> np.ndarray:
@@ -559,6 +658,8 @@ class SweepEngine:
         parts, have = [], 0
         if self._pending is not None:
             parts.append(self._pending)
+            if stage == S.RECORDING and self._recording is not None:
+                self._recording.parts.append(self._pending)
             have = self._pending.shape[1]
             self._pending = None
         while have < n:

@@ -310,7 +310,7 @@ class RunWriter:
                    "freq_hz": float(ev.freq_hz), "target_ratio": float(ev.target_ratio),
                    "drive_v": float(ev.drive_v), "sample_rate_hz": float(ev.sample_rate_hz),
                    "n_samples": int(data.shape[1]), "overflows": int(ev.overflows), "flags": tuple(ev.flags),
-                   "started_wall_s": float(ev.started_wall_s), "stored_wall_s": time.time()}
+                   "started_wall_s": float(ev.started_wall_s), "recorded_wall_s": float(ev.recorded_wall_s), "stored_wall_s": time.time()}
             analysis.update(rig_path=SNAPSHOT_RIG, rig_sha256=self.rig_sha256, tool_version=__version__)
             with conn:
                 index.insert_attempt(conn, row, analysis)
@@ -339,7 +339,7 @@ class RunWriter:
             "channel_position_m": np.array([m["position_m"] for m in cmap], dtype=float),
             "identity": {str(k): str(v) for k, v in dict(ev.identity).items()},
             "library_versions": self._versions, "overflows": int(ev.overflows),
-            "started_wall_s": float(ev.started_wall_s),
+            "started_wall_s": float(ev.started_wall_s), "recorded_wall_s": float(ev.recorded_wall_s),
             "started_utc": datetime.fromtimestamp(ev.started_wall_s, timezone.utc).isoformat(),
             "tuning_drive_v": tuning[:, 0], "tuning_measured_ratio": tuning[:, 1],
             "tuning_window_s": tuning[:, 2], "flags": json.dumps(list(ev.flags)),

@@ -12,7 +12,8 @@ import threading
 import numpy as np
 
 from app.engine import states as S
-from app.engine.events import BlockAcquired, DriveChanged, PointSettled, StateChanged, SweepFinished, TuningStep
+from app.engine.events import (BlockAcquired, DriveChanged, FaultRaised, PointSettled, StateChanged,
+                               SweepFinished, TuningStep)
 from drivers.simulated.burner import SimulatedBurner
 
 from engine_helpers import make_engine, short_plan
@@ -84,8 +85,14 @@ def test_abort_ramps_down_and_keeps_stored_points(rig) -> None:
     _when(rec, lambda e: isinstance(e, BlockAcquired) and e.stage == S.RECORDING and e.point_index == 2,
           engine.abort)
     assert engine.run() == "aborted"
-    assert [p.point_index for p in rec.of(PointSettled)] == [0, 1]
+    settled = rec.of(PointSettled)
+    assert [p.point_index for p in settled] == [0, 1, 2]
+    # the record cut short is kept as evidence, flagged so that it is never accepted
+    assert "interrupted" not in settled[1].flags
+    assert settled[2].flags[:2] == ("interrupted", "aborted")
+    assert settled[2].record.shape[1] < rig.acquisition.sample_rate * 1.0
     assert engine.state == S.ABORTED
+    assert rec.of(SweepFinished)[-1].n_settled == 2
     # the record in progress was cut at the next block, not finished
     rec_blocks = [e for e in rec.of(BlockAcquired) if e.point_index == 2 and e.stage == S.RECORDING]
     assert len(rec_blocks) == 1
@@ -111,7 +118,11 @@ def test_halt_zeroes_at_once(rig) -> None:
     assert engine.state == S.HALTED
     assert S.WINDING_DOWN not in [e.new for e in rec.of(StateChanged)]
     assert not any(e.stage == S.WINDING_DOWN for e in rec.of(BlockAcquired))
-    assert [p.point_index for p in rec.of(PointSettled)] == [0]
+    settled = rec.of(PointSettled)
+    assert [p.point_index for p in settled] == [0, 1]
+    assert settled[1].flags[:2] == ("interrupted", "halted")
+    assert not any(e.name for e in rec.of(FaultRaised))      # a halt is not a fault
+    assert rec.of(SweepFinished)[-1].detail == "emergency halt"
     after = sim.read_block()
     assert np.abs(after.channel(rig.drive.reference_channel)).max() < 1e-3
     # no drive request after the halt
