@@ -23,8 +23,13 @@ IEEE 488.2 common commands and the standard SCPI source subsystem, no vendor dia
   trap); a closed connection becomes :class:`InstrumentConnectionLost`;
 * raw-socket sessions get explicit termination and ``TCP_NODELAY`` on the pyvisa-py
   session's socket (pyvisa-py leaves Nagle's algorithm on);
-* output off on ``stop()`` (ramped first), ``halt()`` (at once) and at exit
-  (:func:`drivers.safety.register`).
+* output off on ``stop()`` (ramped first), ``halt()`` (at once, waiting at most
+  ``HALT_WAIT_S`` for ``OUTP?`` and never reconnecting) and at exit
+  (:func:`drivers.safety.register`);
+* the output counts as off only once ``OUTP?`` has answered off after ``OUTP OFF``
+  (:attr:`ScpiGenerator.output_confirmed_off`); until then ``drive_status()`` reports the last
+  amplitude that may be on the output, also after a halt or a lost connection, so nothing
+  above can announce "ramped to zero" for an instrument that never confirmed it.
 
 :meth:`ScpiGenerator.actual_settings` reads back what the instrument really outputs
 (``SOUR:FREQ?``, ``SOUR:VOLT?``, ``OUTP?``). A generator only drives; pair it with a recorder
@@ -61,6 +66,7 @@ UNITS = ("VPP", "VRMS", "DBM")
 SOURCE_OHM = 50.0          # a bench generator's usual source impedance (common practice)
 SCPI_INF = 9.9e37          # SCPI-1999 stands for infinity with this number
 LOAD_QUERY_WAIT_S = 1.0    # an idle instrument that knows OUTP:LOAD? answers within milliseconds
+HALT_WAIT_S = 0.2          # halt() waits at most this long for OUTP? to confirm the output off
 # The guard's notional clock for an instrument set by commands: only its Nyquist limit and
 # the quantisation of ramp steps depend on it, neither matters at 1 MHz.
 GUARD_RATE_HZ = 1e6
@@ -267,6 +273,8 @@ class ScpiGenerator:
         self._sent_freq_hz = 0.0
         self._sent_amp_v = 0.0
         self._output_on = False
+        self._off_confirmed = False            # True only while OUTP? has answered off since the last OUTP ON
+        self._last_on_v = 0.0                  # the last amplitude that may be on the output
         self._ramping = False
         self._closed = False
         with self._io:
@@ -376,10 +384,12 @@ class ScpiGenerator:
             raise self._lost(f"sending {command!r}")
         try:
             self._inst.write(command)
-        except (OSError, pyvisa.errors.VisaIOError):
+        except (OSError, pyvisa.errors.VisaIOError, pyvisa.errors.InvalidSession):
             raise self._lost(f"sending {command!r}") from None
 
-    def _query(self, command: str, timeout_s: float | None = None) -> str:
+    def _query(self, command: str, timeout_s: float | None = None, reopen: bool = True) -> str:
+        """One query. After a timeout the session is reopened (``reopen=False``: only closed,
+        for :meth:`halt`, which must not wait for a connection), so a late answer is never read."""
         import pyvisa
 
         if self._inst is None:
@@ -387,24 +397,31 @@ class ScpiGenerator:
         if self._peer_closed():
             raise self._lost(f"asking {command!r}")
         wait_s = timeout_s or self.config.timeout_s
-        self._inst.timeout = round(wait_s * 1000)
         try:
+            self._inst.timeout = round(wait_s * 1000)
             return str(self._inst.query(command)).strip()
         except pyvisa.errors.VisaIOError as exc:
             if exc.error_code != pyvisa.constants.StatusCode.error_timeout:
                 raise DriverError(f"SCPI generator {self.config.resource}: {command!r} failed: "
                                   f"{exc.description}") from None
             lost = self._peer_closed()
-            self._reopen()   # a late answer must never be read as the next one: new session
+            if reopen:
+                self._reopen()   # a late answer must never be read as the next one: new session
+            else:
+                self._close_session()
             if lost:
                 raise self._lost(f"waiting for the answer to {command!r}") from None
             raise BackendTimeout(f"SCPI generator {self.config.resource}: no answer to {command!r} within "
-                                 f"{wait_s:g} s (session reopened so a late answer cannot be misread)") from None
-        except OSError:
+                                 f"{wait_s:g} s (session {'reopened' if reopen else 'closed'} so a late answer "
+                                 f"cannot be misread)") from None
+        except (OSError, pyvisa.errors.InvalidSession):    # a session closed under us (e.g. at exit)
             raise self._lost(f"asking {command!r}") from None
         finally:
             if self._inst is not None:
-                self._inst.timeout = round(self.config.timeout_s * 1000)
+                try:
+                    self._inst.timeout = round(self.config.timeout_s * 1000)
+                except pyvisa.errors.InvalidSession:
+                    pass                                  # already reported above
 
     def _drain_errors(self, after: str) -> None:
         """Read ``SYST:ERR?`` until it reports no error; raise with every entry found."""
@@ -450,6 +467,7 @@ class ScpiGenerator:
                     opc=True)
         self._output_on = False
         self._check_load()
+        self._confirm_off()
         self._sent_freq_hz = self.actual_frequency_hz()
 
     # ------------------------------------------------------------------ output load (caller holds self._io)
@@ -590,32 +608,52 @@ class ScpiGenerator:
     def _send_amplitude(self, amp_v: float) -> list[str]:
         cfg, sent = self.config, []
         if amp_v <= cfg.min_amplitude_v or amp_v == 0.0:
-            if self._output_on:
-                self._write("OUTP OFF")
-                sent.append("OUTP OFF")
-                self._output_on = False
+            if self._output_on or not self._off_confirmed:
+                self._output_off_now()
+                sent += ["OUTP OFF", "OUTP?"]
             self._sent_amp_v = 0.0
             return sent
         value = peak_to_unit(amp_v, cfg.amplitude_unit, cfg.load_ohm)
         command = f"SOUR:VOLT {value:.10g}"
+        if not self._off_confirmed:            # the output may show either amplitude while this goes out
+            self._last_on_v = max(self._last_on_v, amp_v)
         self._write(command)                    # amplitude first, so the output never shows an old one
         sent.append(command)
         if not self._output_on:
+            self._off_confirmed = False         # from here on only OUTP? answering off makes it zero again
+            self._last_on_v = amp_v
             self._write("OUTP ON")
             sent.append("OUTP ON")
             self._output_on = True
+        self._last_on_v = amp_v
         self._sent_amp_v = amp_v
         return sent
 
-    def _output_off_now(self) -> None:
-        """``OUTP OFF``, confirmed by ``OUTP?`` (so it has been carried out when this returns)."""
-        self._write("OUTP OFF")
-        self._output_on = False
+    def _output_off_now(self, wait_s: float | None = None, reopen: bool = True) -> None:
+        """``OUTP OFF``, confirmed by ``OUTP?`` (so it has been carried out when this returns).
+
+        Until the answer says off, the output counts as possibly on at the last amplitude."""
+        self._output_on = False                 # OUTP ON is sent again before the output is counted on
         self._sent_amp_v = 0.0
-        answer = self._query("OUTP?")
+        self._write("OUTP OFF")
+        self._confirm_off(wait_s, reopen)
+
+    def _confirm_off(self, wait_s: float | None = None, reopen: bool = True) -> None:
+        answer = self._query("OUTP?", timeout_s=wait_s, reopen=reopen)
         if answer.upper() not in ("0", "OFF", "+0"):
             raise DriverError(f"SCPI generator {self.config.resource}: output still on after OUTP OFF "
                               f"(OUTP? answered {answer!r})")
+        self._off_confirmed = True
+        self._last_on_v = 0.0
+
+    @property
+    def output_confirmed_off(self) -> bool:
+        """True only when ``OUTP?`` has answered off since the output was last switched on.
+
+        False after a lost or unanswered instrument even though the drive was halted or ramped
+        down: the output may still be on at :meth:`drive_status`'s amplitude, so switch the
+        amplifier off by hand. Lock-free: any thread may ask, at any time."""
+        return self._off_confirmed
 
     def arm(self, ceiling_v: float) -> None:
         """New sweep: this sweep's ceiling. After a halt the output is off: open the back-end again."""
@@ -624,21 +662,27 @@ class ScpiGenerator:
         self.guard.arm(ceiling_v)
 
     def drive_status(self) -> DriveStatus:
+        """Amplitude 0 only when the output is confirmed off (:attr:`output_confirmed_off`); otherwise
+        the last amplitude that may be on the output (within one ramp step), even after a halt."""
         g = self.guard.status()
-        return DriveStatus(freq_hz=self._sent_freq_hz, amplitude_v=self._sent_amp_v,
+        amplitude_v = 0.0 if self._off_confirmed else self._last_on_v
+        return DriveStatus(freq_hz=self._sent_freq_hz, amplitude_v=amplitude_v,
                            target_amplitude_v=g.target_amplitude_v, ceiling_v=g.ceiling_v,
                            ramping=self._ramping or g.ramping)
 
     # ------------------------------------------------------------------ stopping
     def halt(self) -> None:
-        """Output off at once. Never waits: if another thread is talking to the instrument, that
-        thread switches the output off at its next step (within one ramp step or one timeout)."""
+        """Output off at once. Never waits for another thread: if one is talking to the instrument,
+        it switches the output off at its next step (within one ramp step or one timeout).
+        Otherwise ``OUTP OFF`` is sent here and ``OUTP?`` awaited for at most ``HALT_WAIT_S``; no
+        connection is made (a lost session is left to :meth:`stop`). Safe in a signal handler.
+        Whether the output really went off: :attr:`output_confirmed_off`."""
         self.guard.halt()
         self._halt_event.set()
         if self._io.acquire(blocking=False):
             try:
                 if self._inst is not None:
-                    self._output_off_now()
+                    self._output_off_now(wait_s=min(self.config.timeout_s, HALT_WAIT_S), reopen=False)
             except DriverError as exc:
                 log.error("SCPI generator: output off on halt failed: %s", exc)
             finally:
@@ -668,8 +712,14 @@ class ScpiGenerator:
             raise error
 
     def _output_off_after(self, error: DriverError | None) -> None:
-        if isinstance(error, (InstrumentConnectionLost, BackendTimeout)) or self._inst is None:
-            self._reopen()       # one fresh attempt to reach the instrument
+        """Output off, confirmed; one fresh connection if the session is (or turns out to be) lost."""
+        if not (isinstance(error, (InstrumentConnectionLost, BackendTimeout)) or self._inst is None):
+            try:
+                self._output_off_now()
+                return
+            except InstrumentConnectionLost as exc:   # e.g. lost during a halt: nobody reconnected yet
+                log.info("SCPI generator: %s; reconnecting once to switch the output off", exc)
+        self._reopen()
         self._output_off_now()
 
 

@@ -8,6 +8,8 @@ engine can run. The drive's phase reference is then a *recorded* channel
 * ``follow``: an optional callback given the drive's read-back settings after every drive
   change, so a simulated recorder can respond to what the instrument really outputs;
 * ``drive_status()`` reports ramping until both the drive and any follower have settled;
+* ``output_confirmed_off`` passes on the drive's own answer (an SCPI generator's ``OUTP?``
+  confirmation), so the engine can tell "ramped to zero" from "could not be confirmed at zero";
 * ``halt()`` and ``stop()`` reach both parts, the drive first; ``identity()`` merges both.
 
 Registered combinations: ``scpi+simulated`` (:class:`ScpiSimulated`: the SCPI generator
@@ -62,6 +64,16 @@ class Composite:
         self.drive.set_drive(freq_hz, amplitude_v)
         if self._follow is not None:
             self._follow(self.drive.actual_settings())
+
+    @property
+    def output_confirmed_off(self) -> bool:
+        """True only when the drive's output is known to be off: the drive's own
+        ``output_confirmed_off`` where it has one, else its status at zero and not ramping."""
+        known = getattr(self.drive, "output_confirmed_off", None)
+        if known is not None:
+            return bool(known)
+        status = self.drive.drive_status()
+        return status.amplitude_v == 0.0 and not status.ramping
 
     def drive_status(self) -> DriveStatus:
         status = self.drive.drive_status()
