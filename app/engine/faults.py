@@ -102,18 +102,24 @@ ABOVE_COMMAND_FLOOR = 0.02   # ... plus 2 % of the ceiling (noise, zero command)
 # flat tops: samples piled up at one extreme value
 PILE_MIN_SAMPLES = 16
 PILE_MIN_FRACTION = 2e-3
-PILE_RATIO = 5.0
+PILE_RATIO = 3.0
+FLAT_RUN = 1.5               # mean run length at the extreme value: a flat top, not isolated samples
 
 
 def flat_top(x: np.ndarray) -> tuple[float, int] | None:
     """(value, count) when samples pile up at the channel's largest or smallest value: clipping
-    at a rail, whatever range was declared (common practice: a clipped record shows a run of
+    at a rail, whatever range was declared (common practice: a clipped record shows runs of
     identical extreme values and a spike in the histogram at its edge).
 
     Piled up means: at least ``PILE_MIN_SAMPLES`` and ``PILE_MIN_FRACTION`` of the samples hold
-    exactly the extreme value, ``PILE_RATIO`` times as many as lie just inside it (within 0.2 %
-    of the span). A quantised sine without clipping has about as many samples at its top code
-    as at the next one (its density is smooth near the peak), so it does not count."""
+    exactly the extreme value, ``PILE_RATIO`` (3) times as many as any other single value
+    within 2 % of the span (or two and a half code steps) from that edge. A quantised sine
+    without clipping has at most about 2.4 times as many samples at its top code as at the
+    next one (derived: its density near the peak goes as 1/sqrt(distance)), and a sine
+    sampled at a rational fraction of the sample rate repeats every value equally often, so
+    neither counts. And the value must be held for ``FLAT_RUN`` consecutive samples on
+    average: a flat top, not isolated repeats (a coarsely sampled sine hits its few values
+    once per period)."""
     n = x.size
     if n == 0:
         return None
@@ -121,11 +127,23 @@ def flat_top(x: np.ndarray) -> tuple[float, int] | None:
     span = hi - lo
     if span <= 0.0:
         return None
-    band = 2e-3 * span
     need = max(PILE_MIN_SAMPLES, PILE_MIN_FRACTION * n)
-    for value, inside in ((hi, (x < hi) & (x >= hi - band)), (lo, (x > lo) & (x <= lo + band))):
-        at = int(np.count_nonzero(x == value))
-        if at >= need and at >= PILE_RATIO * max(1, int(np.count_nonzero(inside))):
+    if max(np.count_nonzero(x == hi), np.count_nonzero(x == lo)) < need:
+        return None
+    codes = np.unique(x)
+    width = max(0.02 * span, 2.5 * float(np.diff(codes).min())) if codes.size > 1 else span
+    for edge in (x[x >= hi - width], -x[x <= lo + width]):
+        values, counts = np.unique(edge, return_counts=True)
+        top, at = float(values[-1]), int(counts[-1])
+        if at < need:
+            continue
+        biggest_other = int(counts[:-1].max()) if values.size > 1 else 0
+        if at < PILE_RATIO * max(1, biggest_other):
+            continue
+        value = top if top == hi else -top
+        on = np.concatenate(([False], x == value, [False]))
+        runs = int(np.count_nonzero(np.diff(on.astype(np.int8)) == 1))
+        if at >= FLAT_RUN * runs:     # flat: the extreme value held for consecutive samples
             return value, at
     return None
 
