@@ -217,7 +217,7 @@ class Plan(_Strict):
         if problems:
             raise ConfigError(self.source_path or "<plan>", problems)
 
-    def estimated_duration_s(self, ramp_time_s: float = 0.3, tuning_steps: float = 1.5,
+    def estimated_duration_s(self, ramp_time_s: float = 0.3, tuning_steps: float = 2.6,
                              overhead_s: float = 0.05) -> float:
         """Rough run time: per point ``tuning_steps`` windows (each after a ramp and a discard),
         the part of the settle time the last window has not already covered, the record and a
@@ -243,9 +243,15 @@ class Plan(_Strict):
             f"drive never above {ceiling} peak; unreachable target: {unreachable}",
             f"tuning within {tu.tolerance:.1%} of the target in at most {tu.max_steps} steps "
             f"(else flag 'tuning-not-converged')",
-            f"input clipping at {fl.clip_fraction:.0%} of the input range (flag the point)",
+            f"input clipping at {fl.clip_fraction:.0%} of the input range, or flat tops at any level (flag the point)",
             "light above the rig's safe maximum (abort)",
-            f"flame-out: mean light above dark below {fl.flame_out_fraction:.0%} of the start value (abort)",
+            "no flame at the start: mean light above the dark offset at or below the lit threshold "
+            "(light.min_flame_signal, or 4 x light.dark_offset_uncertainty) (end before any drive)",
+            f"flame-out: mean light above dark below {fl.flame_out_fraction:.0%} of the start value, checked "
+            f"every block (abort at once)",
+            "output monitor: the drive reference above the ceiling, or 30 % above the command (abort)"
+            + ("" if rig is None or rig.drive.reference_channel else " - not active: the rig has no "
+               "drive.reference_channel"),
             f"dead sensor: rms below {fl.dead_rms * 1e3:g} mV (abort); noisy sensor: "
             f"pressure SNR below {fl.noisy_snr_db_min:g} dB (flag)",
             f"pressure amplitude above {fl.pressure_max:g} Pa (drive to zero, skip the point)",

@@ -124,6 +124,16 @@ class Armable(Protocol):
 
 
 @runtime_checkable
+class OutputConfirmation(Protocol):
+    @property
+    def output_confirmed_off(self) -> bool:
+        """True only when the instrument itself has confirmed its output off (or at zero).
+
+        False after a lost connection: the output may still be on, and the operator must be
+        told to switch the amplifier off."""
+
+
+@runtime_checkable
 class Paced(Protocol):
     """A back-end whose time base can run faster than real time (the simulator)."""
 

@@ -39,7 +39,7 @@ import numpy as np
 from app.core.quality import quality_flags
 from app.errors import FlamebodeError
 from drivers.errors import BackendTimeout, DriverError
-from drivers.protocols import Acquirer, Armable, EmergencyHalt, Identified, SineDrive
+from drivers.protocols import Acquirer, Armable, EmergencyHalt, Identified, OutputConfirmation, SineDrive
 
 from . import states as S
 from .controller import AmplitudeController, ControllerSettings, Decision, PointTuner
@@ -354,12 +354,15 @@ class SweepEngine:
                                            detail=self._why))
 
     def _confirm_zero(self, wait_s: float = 0.5) -> bool:
-        """True when the back-end reports its output at zero (polled briefly: a card's queue drains)."""
+        """True when the back-end reports its output at zero (polled briefly: a card's queue drains)
+        and, where it can say so (OutputConfirmation), the instrument has confirmed it."""
         deadline = time.monotonic() + wait_s
         while True:
             try:
                 status = self.drive.drive_status()
-                if status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0:
+                confirmed = (self.drive.output_confirmed_off if isinstance(self.drive, OutputConfirmation)
+                             else True)
+                if status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0 and confirmed:
                     return True
             except DriverError:
                 return False

@@ -10,10 +10,12 @@ from __future__ import annotations
 import threading
 
 import numpy as np
+import pytest
 
 from app.engine import states as S
 from app.engine.events import (BlockAcquired, DriveChanged, FaultRaised, PointSettled, StateChanged,
                                SweepFinished, TuningStep)
+from drivers.errors import CeilingExceeded, DriveHalted
 from drivers.simulated.burner import SimulatedBurner
 
 from engine_helpers import make_engine, short_plan
@@ -137,3 +139,21 @@ def test_drive_never_above_the_plan_ceiling(rig) -> None:
     engine.run()
     assert max(d.amplitude_v for d in rec.of(DriveChanged)) <= 0.5
     assert max(sim.guard.clip_events, 0) == 0
+    # the hardware layer itself holds the plan's lower ceiling, not only the controller
+    assert sim.guard.ceiling_v == 0.5 and rig.drive.ceiling == 2.0
+    with pytest.raises(CeilingExceeded, match="0.5 V"):
+        sim.set_drive(600.0, 0.6)
+
+
+def test_a_halted_back_end_refuses_drive_until_the_next_sweep_arms_it(rig) -> None:
+    # before: the simulated burner and the sound card took new drive requests after a halt, so an
+    # engine thread still running could bring the drive back
+    sim = SimulatedBurner(rig, seed=10)
+    engine, rec = make_engine(rig, short_plan(FREQS, [0.05], record_s=0.5), sim)
+    _when(rec, _entered(S.TUNING, 1), engine.halt)
+    assert engine.run() == "halted"
+    with pytest.raises(DriveHalted):
+        sim.set_drive(300.0, 0.1)
+    engine2, rec2 = make_engine(rig, short_plan([300.0], [0.05], record_s=0.3), sim)
+    assert engine2.run() == "complete"          # a new sweep re-arms it
+    assert len(rec2.of(PointSettled)) == 1
