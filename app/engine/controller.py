@@ -51,7 +51,7 @@ class ControllerSettings:
     soft_start_max: float = 1.5          # aim: no first window above this multiple of the target
     noise_sigmas: float = 3.0            # a ratio below this many standard deviations is not measured
     clean_sigmas: float = 10.0           # a ratio above this many standard deviations is a clean measurement
-    clean_step_factor: float = 20.0      # ... from which one step may raise the voltage by this factor
+    clean_step_factor: float = 50.0      # ... from which one step may raise the voltage by this factor
     slope_band: tuple[float, float] = (0.33, 3.0)   # sane d(log a)/d(log V)
     near_ceiling: float = 0.7            # a step at >= this fraction of the ceiling is "near" it
     unreachable_margin: float = 0.25     # predicted voltage above (1 + margin) * ceiling: unreachable
