@@ -1,4 +1,5 @@
-"""Shared pytest set-up: Qt offscreen by default, paths to the shipped configs."""
+"""Shared pytest set-up: Qt offscreen by default, a private audio server where none is
+configured and PulseAudio is installed (tests/audio_server.py), paths to the shipped configs."""
 
 from __future__ import annotations
 
@@ -14,6 +15,22 @@ settings.register_profile("flamebode", derandomize=True, print_blob=True)
 settings.load_profile("flamebode")
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+
+
+def pytest_configure(config: pytest.Config) -> None:
+    # before any test module imports PortAudio, so its device list sees the server
+    import audio_server
+
+    config.stash[_AUDIO] = audio_server.start()
+
+
+def pytest_unconfigure(config: pytest.Config) -> None:
+    import audio_server
+
+    audio_server.stop()
+
+
+_AUDIO = pytest.StashKey[str]()
 
 ROOT = Path(__file__).resolve().parents[1]
 CONFIGS = ROOT / "configs"

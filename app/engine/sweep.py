@@ -61,6 +61,9 @@ def integer_period_samples(freq_hz: float, sample_rate_hz: float, min_duration_s
     return int(periods[best]), int(round(exact[best]))
 
 
+OUTPUT_MONITOR_MEMORY_S = 1.0    # the output monitor compares with the largest command of this long
+
+
 class _Halt(Exception):
     pass
 
@@ -176,7 +179,10 @@ class SweepEngine:
         self._point_index: int | None = None
         self._point_flags: list[str] = []
         self._recording: _Recording | None = None
-        self._recent_drive_v: deque[float] = deque([0.0], maxlen=4)   # output envelope of the last blocks
+        # commanded output envelope over the last second of blocks: what a back-end renders ahead
+        # (a sound card's output lead, a card's queue) reaches the drive reference later
+        monitor_blocks = max(4, math.ceil(OUTPUT_MONITOR_MEMORY_S / max(rig.acquisition.block_duration, 1e-3)))
+        self._recent_drive_v: deque[float] = deque([0.0], maxlen=monitor_blocks)
         self._fatal_event: FaultRaised | None = None
 
     # ================================================================== commands

@@ -167,10 +167,20 @@ def test_probe_names_a_missing_package(monkeypatch: pytest.MonkeyPatch) -> None:
     assert not av.available and "sounddevice is not installed" in av.reason
 
 
+def sounddevice_or_skip():
+    """sounddevice, or a skip naming the package: importing it raises OSError (not ImportError)
+    when the PortAudio library is missing, which pytest.importorskip does not catch."""
+    try:
+        import sounddevice
+    except (ImportError, OSError) as exc:
+        pytest.skip(f"needs the PortAudio library (apt package libportaudio2): {exc}")
+    return sounddevice
+
+
 @pytest.mark.parametrize("server", [None, "unix:/nonexistent/native"])
 def test_probe_without_duplex_device_names_the_audio_server(monkeypatch: pytest.MonkeyPatch,
                                                             server: str | None) -> None:
-    sd = pytest.importorskip("sounddevice", reason="PortAudio missing: sounddevice cannot be imported")
+    sd = sounddevice_or_skip()
     output_only = {"index": 0, "name": "hdmi", "max_input_channels": 0, "max_output_channels": 2}
     monkeypatch.setattr(sd, "query_devices", lambda *a, **k: [output_only])
     if server is None:
@@ -184,7 +194,7 @@ def test_probe_without_duplex_device_names_the_audio_server(monkeypatch: pytest.
 
 
 def test_probe_never_raises(monkeypatch: pytest.MonkeyPatch) -> None:
-    sd = pytest.importorskip("sounddevice", reason="PortAudio missing: sounddevice cannot be imported")
+    sd = sounddevice_or_skip()
 
     def broken(*_a: Any, **_k: Any) -> Any:
         raise sd.PortAudioError("Error querying device -1")

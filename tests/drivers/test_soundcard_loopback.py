@@ -32,7 +32,7 @@ from scipy import signal
 
 from app.core.harmonic import fit_harmonics
 from app.rig import Rig, rig_from_dict
-from drivers.errors import CeilingExceeded, DriverError
+from drivers.errors import CeilingExceeded, DriveHalted, DriverError
 from drivers.soundcard import SoundCard, SoundCardBlock
 
 DEMO = Path(__file__).resolve().parents[2] / "configs" / "demo-rig.toml"
@@ -193,6 +193,11 @@ def test_ceiling_refusal_halt_and_ramped_resume(card: LoopbackCard) -> None:
     quiet = [card.read_block(timeout_s=5.0) for _ in range(int(0.3 * FS / card.config.block_n))]
     # silent from (halt + output lead + delay) on: the last blocks are exactly zero
     assert np.max(np.abs(quiet[-1].channel("drv_ref"))) == 0.0
+    # the halt latches: nothing can bring the drive back until a new sweep arms the card
+    with pytest.raises(DriveHalted):
+        card.set_drive(500.0, 0.5)
+    assert np.max(np.abs(card.read_block(timeout_s=5.0).channel("drv_ref"))) == 0.0
+    card.arm(0.8)
     card.set_drive(500.0, 0.5)
     first_on: SoundCardBlock | None = None
     deadline = time.monotonic() + 5.0
