@@ -33,6 +33,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--backend", default="simulated", help="back-end to select (default: simulated)")
     p.add_argument("--fast", action="store_true", help="simulator only: run faster than real time")
     p.add_argument("--first-run", action="store_true", help=argparse.SUPPRESS)
+    # press Start once the window runs (tests, scripted rehearsals); same refusals as the button
+    p.add_argument("--start", action="store_true", help=argparse.SUPPRESS)
 
 
 def have_display() -> bool:
@@ -74,4 +76,4 @@ def run(args: argparse.Namespace) -> int:
             return headless_demo(args.runs_root)
         raise NoDisplay(message) from None
     return run_window(args.rig or DEMO_RIG, args.plan or DEMO_PLAN, run_dir=args.run, runs_root=args.runs_root,
-                      fast=args.fast, backend=args.backend)
+                      fast=args.fast, backend=args.backend, start=args.start)

@@ -12,6 +12,7 @@ Never Qt (the window hands these calls to its task runner).
 
 from __future__ import annotations
 
+import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -75,6 +76,20 @@ class SweepSession:
         self.plan: Plan | None = None
         self.closed = False
         self.final_drive_v: float | None = None
+        self.halt_why: str | None = None     # set by halt(): no engine may start afterwards
+        self._start_lock = threading.Lock()
+
+    # -------------------------------------------------------------- any thread
+    def halt(self, why: str = "emergency halt") -> None:
+        """Outputs to zero at once (``SweepEngine.halt``), from the caller's thread.
+
+        Also covers a sweep still being opened: once this has been called, ``open_and_start``
+        never starts the engine, and an engine started just before is halted here."""
+        with self._start_lock:
+            self.halt_why = self.halt_why or why
+            engine = self.engine
+        if engine is not None:
+            engine.halt(self.halt_why)
 
     # -------------------------------------------------------------- worker thread
     def open_and_start(self) -> "SweepSession":
@@ -83,6 +98,8 @@ class SweepSession:
         from drivers import safety
 
         req = self.request
+        if self.halt_why is not None:
+            raise SessionError(f"not started: halted before the sweep was opened ({self.halt_why})")
         self.rig = load_rig(req.rig_path)
         self.plan = load_plan(req.plan_path, self.rig)
         if req.existing_run:
@@ -100,9 +117,12 @@ class SweepSession:
             self.device = self._open_device()
             safety.register(self.device)      # harmless when the registry did it already
             label = time.strftime("w%Y%m%d-%H%M%S")
-            self.engine = SweepEngine(self.plan, self.rig, self.device, self.bus, backend_name=req.backend,
-                                      run_label=label, wait_for_store=True, points=req.points)
-            self.engine.start()
+            with self._start_lock:
+                if self.halt_why is not None:
+                    raise SessionError(f"not started: halted while the sweep was being opened ({self.halt_why})")
+                self.engine = SweepEngine(self.plan, self.rig, self.device, self.bus, backend_name=req.backend,
+                                          run_label=label, wait_for_store=True, points=req.points)
+                self.engine.start()
         except BaseException:
             self.close()
             raise
@@ -135,7 +155,7 @@ class SweepSession:
         self.closed = True
         try:
             if self.engine is not None and not self.engine.join(timeout_s):
-                self.engine.halt()
+                self.engine.halt(self.halt_why or f"the sweep did not end within {timeout_s:g} s of closing")
                 self.engine.join(10.0)
         finally:
             if self.writer is not None:

@@ -1,4 +1,4 @@
-"""The main window: set-up, the live sweep and review, with the run controls in one toolbar.
+"""The main window: set-up, the live sweep and review, with the run controls in one strip.
 
 The engine runs on its own thread; its events reach the window only through the one
 ``EventBridge`` (queued signals) and feed the Qt-free models in ``app.ui.models``. Acquired
@@ -7,6 +7,13 @@ engine's thread, and a ~30 Hz timer redraws the live traces from one snapshot pe
 file (opening the back-end, the run folder, saving an editor, accept/reject, reprocess,
 export, closing a sweep) goes to the ``TaskRunner``'s worker thread; the emergency halt
 gets a thread of its own so it never waits behind other work.
+
+The halt button sits in a plain strip above the tabs, never in a tool bar that could hide
+it in an overflow menu; the window's minimum size keeps the strip whole. F12 halts from any
+window of the application, a modal dialog included (an application event filter: Qt
+blocks shortcuts behind a modal dialog); Esc halts while the main window is the active
+window, so in a dialog it only closes the dialog. Closing the window halts a running sweep;
+SIGINT/SIGTERM/SIGHUP (routed by ``app.ui.stop_signals``) halt it and quit.
 
 Imports: PySide6, pyqtgraph (through the views), the engine's event types and states,
 storage readers and commands (in worker tasks), the driver registry and the simulator's
@@ -20,10 +27,10 @@ import time
 from pathlib import Path
 from typing import Any
 
-from PySide6.QtCore import Qt, QTimer
-from PySide6.QtGui import QAction, QCloseEvent, QKeySequence
-from PySide6.QtWidgets import (QFileDialog, QLabel, QMainWindow, QSizePolicy, QSplitter, QTabWidget, QToolBar,
-                               QToolButton, QVBoxLayout, QWidget)
+from PySide6.QtCore import QEvent, QObject, Qt, QTimer, Signal
+from PySide6.QtGui import QAction, QCloseEvent, QKeyEvent, QKeySequence, QShortcut
+from PySide6.QtWidgets import QApplication, QDialog, QFileDialog, QLabel, QMainWindow, QSplitter, QTabWidget, \
+    QVBoxLayout, QWidget
 
 from app.engine import states as S
 from app.engine.events import (DriveChanged, FaultRaised, PointSettled, StateChanged, SweepFinished,
@@ -32,12 +39,14 @@ from app.engine.events import (DriveChanged, FaultRaised, PointSettled, StateCha
 from .bridge import EventBridge, TaskResult, TaskRunner
 from .models import LiveTraces, PointTable, SweepStatus, TraceBuffer, TuningHistory, format_duration
 from .session import SweepRequest, SweepSession
+from .views.controls import ControlStrip
 from .views.fault_banner import FaultBanner
+from .views.halt_banner import HaltBanner
 from .views.points import PointListView
 from .views.response import ResponseView
 from .views.review import ReviewView
 from .views.setup import SetupView
-from .views.style import HALT_STYLE, SIM_STYLE, configure_pyqtgraph
+from .views.style import CAUTION_STYLE, configure_pyqtgraph
 from .views.traces import TracesView, channel_roles
 from .views.tuning import TuningView
 
@@ -49,6 +58,27 @@ STATE_WORDS = {S.IDLE: "ready", S.PREPARING: "preparing the point", S.TUNING: "t
                S.STORING: "storing", S.PAUSED: "paused (drive at zero)", S.WINDING_DOWN: "ramping the drive down",
                S.FINISHED: "finished", S.ABORTED: "aborted (drive at zero)",
                S.HALTED: "HALTED (outputs zeroed)", S.FAULTED: "stopped by a fault (drive at zero)"}
+NOT_LIVE = {"halted": "halted — outputs zeroed", "aborted": "aborted — drive ramped to zero",
+            "fault": "ended by a fault — drive at zero", "complete": "sweep complete", "stopped": "sweep stopped"}
+MIN_SIZE = (720, 540)             # the control strip and every tab fit (halt button whole) at this size
+HALT_WHY_WINDOW = "emergency halt in the window"
+HALT_WHY_CLOSED = "window closed during the sweep"
+REAL_RIG_CAUTION = ("Real rig: forcing is loud (hearing protection); the ceiling protects the speakers only if set "
+                    "from their ratings; flame, fuel and detector high voltage stay live — flamebode zeroes only "
+                    "the drive. Your lab's rules come first.")
+
+
+class HaltKeys(QObject):
+    """Application event filter: F12 anywhere in the application halts (a modal dialog
+    blocks ordinary shortcuts, so this looks at key presses before any widget)."""
+
+    pressed = Signal()
+
+    def eventFilter(self, watched: QObject, event: QEvent) -> bool:
+        if event.type() == QEvent.Type.KeyPress and isinstance(event, QKeyEvent) and event.key() == Qt.Key.Key_F12:
+            self.pressed.emit()
+            return True
+        return False
 
 
 class MainWindow(QMainWindow):
@@ -70,6 +100,8 @@ class MainWindow(QMainWindow):
         self.last_run_dir: Path | None = None
         self.sweeps_closed = 0            # sweeps whose engine, writer and back-end are closed
         self.roles: dict[str, str] = {}
+        self.exit_code: int | None = None   # set when a stop signal ends the application
+        self.quit_message = ""
         self._build_setup(rig_path, plan_path, runs_root, backend, fast, scenario_path, backends)
         self._build_sweep_tab()
         self.review = ReviewView()
@@ -78,8 +110,17 @@ class MainWindow(QMainWindow):
         self.tabs.addTab(self.setup, "Set-up")
         self.tabs.addTab(self.sweep_tab, "Sweep")
         self.tabs.addTab(self.review, "Review")
-        self.setCentralWidget(self.tabs)
-        self._build_toolbar()
+        self._build_controls()
+        central = QWidget()
+        lay = QVBoxLayout(central)
+        lay.setContentsMargins(4, 4, 4, 4)
+        lay.setSpacing(4)
+        lay.addWidget(self.controls)
+        lay.addWidget(self.halt_banner)
+        lay.addWidget(self.tabs, 1)
+        self.setCentralWidget(central)
+        hint = self.minimumSizeHint()      # every tab and the control strip whole, never clipped
+        self.setMinimumSize(max(hint.width(), MIN_SIZE[0]), max(hint.height(), MIN_SIZE[1]))
         self.timer = QTimer(self)
         self.timer.setTimerType(Qt.TimerType.PreciseTimer)   # a coarse timer may run 5 % slow: < 30 frames/s
         self.timer.setInterval(FRAME_MS)
@@ -116,6 +157,10 @@ class MainWindow(QMainWindow):
         self.point_list = PointListView(self.points)
         self.state_label = QLabel()
         self.state_label.setStyleSheet("font-size: 14px; padding: 2px 6px;")
+        self.state_label.setWordWrap(True)
+        self.caution = QLabel(REAL_RIG_CAUTION)
+        self.caution.setWordWrap(True)
+        self.caution.setStyleSheet(CAUTION_STYLE)
         left = QSplitter(Qt.Orientation.Vertical)
         left.addWidget(self.traces)
         left.addWidget(self.tuning)
@@ -131,28 +176,25 @@ class MainWindow(QMainWindow):
         split.addWidget(right)
         self.sweep_tab = QWidget()
         lay = QVBoxLayout(self.sweep_tab)
+        lay.setContentsMargins(4, 4, 4, 4)
         lay.addWidget(self.state_label)
+        lay.addWidget(self.caution)
         lay.addWidget(self.banner)
         lay.addWidget(split, 1)
         self.response.point_clicked.connect(lambda i: self.point_list.select_points([i]))
         self.point_list.selection_changed.connect(self.response.select)
 
-    def _action(self, text: str, keys: list[str], slot: Any, tip: str) -> QAction:
+    def _action(self, text: str, keys: list[str], slot: Any, tip: str,
+                context: Qt.ShortcutContext = Qt.ShortcutContext.ApplicationShortcut) -> QAction:
         act = QAction(text, self)
         act.setShortcuts([QKeySequence(k) for k in keys])
-        act.setShortcutContext(Qt.ShortcutContext.ApplicationShortcut)
-        act.setToolTip(f"{tip} ({', '.join(keys)})")
+        act.setShortcutContext(context)
+        act.setToolTip(f"{tip} ({', '.join(keys)})" if keys else tip)
         act.triggered.connect(slot)
         self.addAction(act)
         return act
 
-    def _build_toolbar(self) -> None:
-        bar = QToolBar("Run controls")
-        bar.setMovable(False)
-        bar.setToolButtonStyle(Qt.ToolButtonStyle.ToolButtonTextOnly)
-        self.addToolBar(Qt.ToolBarArea.TopToolBarArea, bar)
-        self.sim_label = QLabel()
-        bar.addWidget(self.sim_label)
+    def _build_controls(self) -> None:
         self.start_action = self._action("▶ Start", ["F5"], self.start_sweep, "start the sweep")
         self.pause_action = self._action("Pause", ["F6"], self.toggle_pause,
                                          "pause at the next step (drive to zero) / resume")
@@ -160,22 +202,27 @@ class MainWindow(QMainWindow):
                                         "finish the point in progress, then end")
         self.abort_action = self._action("Abort", ["F8"], self.abort_sweep,
                                          "ramp the drive down now; stored points are kept")
-        self.open_action = self._action("Open run…", ["Ctrl+O"], self.choose_run, "open a stored run for review")
-        self.export_action = self._action("Export", ["Ctrl+E"], self.export_run, "export the reviewed run")
-        for act in (self.start_action, self.pause_action, self.stop_action, self.abort_action):
-            bar.addAction(act)
-        bar.addSeparator()
-        bar.addAction(self.open_action)
-        spacer = QWidget()
-        spacer.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Preferred)
-        bar.addWidget(spacer)
-        self.halt_action = self._action("■ EMERGENCY HALT", ["Esc", "F12"], self.emergency_halt,
-                                        "outputs to zero at once")
-        self.halt_button = QToolButton()
-        self.halt_button.setDefaultAction(self.halt_action)
-        self.halt_button.setStyleSheet(HALT_STYLE)
-        self.halt_button.setMinimumHeight(44)
-        bar.addWidget(self.halt_button)
+        window_only = Qt.ShortcutContext.WindowShortcut
+        self.open_action = self._action("Open run…", ["Ctrl+O"], self.choose_run, "open a stored run for review",
+                                        window_only)
+        self.export_action = self._action("Export", ["Ctrl+E"], self.export_run, "export the reviewed run",
+                                          window_only)
+        # the halt's keys are not the action's shortcuts: F12 through the application filter
+        # (works behind a modal dialog), Esc only while this window is active
+        self.halt_action = self._action("■ EMERGENCY HALT", [], lambda: self.emergency_halt(),
+                                        "outputs to zero at once, without a ramp (F12 anywhere; Esc in this window)")
+        self.halt_keys = HaltKeys(self)
+        self.halt_keys.pressed.connect(lambda: self.emergency_halt())
+        app = QApplication.instance()
+        if app is not None:
+            app.installEventFilter(self.halt_keys)
+        self.esc_shortcut = QShortcut(QKeySequence("Esc"), self, lambda: self.emergency_halt(),
+                                      context=window_only)
+        self.controls = ControlStrip([self.start_action, self.pause_action, self.stop_action, self.abort_action,
+                                      None, self.open_action], self.halt_action)
+        self.sim_label = self.controls.sim_label
+        self.halt_button = self.controls.halt_button
+        self.halt_banner = HaltBanner()
 
     def _wire_review(self) -> None:
         r = self.review
@@ -230,6 +277,7 @@ class MainWindow(QMainWindow):
         return True
 
     def _launch(self, req: SweepRequest) -> None:
+        self.halt_banner.reset()
         self.session = SweepSession(req, self.bridge)
         self.status.state, self.status.finish_reason = "starting", None
         self.tabs.setCurrentWidget(self.sweep_tab)
@@ -268,12 +316,45 @@ class MainWindow(QMainWindow):
             self.engine.abort()
             self._say("Aborting: ramping the drive to zero; stored points are kept.")
 
-    def emergency_halt(self) -> None:
-        """Outputs to zero at once, on a thread of its own (never the GUI thread, never queued)."""
-        eng = self.engine
-        if eng is not None and self.running():
-            self.tasks.now("halt", eng.halt)
-            self._say("EMERGENCY HALT: outputs zeroed.")
+    def emergency_halt(self, why: str = HALT_WHY_WINDOW) -> bool:
+        """Outputs to zero at once, on a thread of its own (never the GUI thread, never queued).
+
+        Works while the sweep is still being opened, too (the engine then never starts).
+        False when no sweep runs (nothing is driven)."""
+        session = self.session
+        if session is None or not self.running():
+            self._say("No sweep is running: nothing is driven.")
+            return False
+        if session.halt_why is None:
+            self.tasks.now("halt", lambda: session.halt(why))
+        self.halt_banner.show_halt(session.halt_why or why)
+        self._say("EMERGENCY HALT: outputs zeroed.")
+        return True
+
+    def halt_now(self, why: str) -> bool:
+        """Any thread (the stop-signal router): halt the running sweep at once; False if none runs.
+        The GUI thread shows it later (``halt_and_quit`` or the sweep's end)."""
+        session = self.session
+        if session is None or session.closed:
+            return False
+        session.halt(why)
+        return True
+
+    def halt_and_quit(self, why: str, exit_code: int) -> None:
+        """A stop signal: halt as the halt button does, close any dialog and the window (which
+        waits for the engine, the writer and the back-end to close), then quit the application."""
+        if self.exit_code is not None:
+            return
+        self.exit_code = exit_code
+        session = self.session
+        halted_already = session is not None and session.halt_why == why     # by ``halt_now``, off this thread
+        halted = self.emergency_halt(why) or halted_already
+        self.quit_message = f"{why}: " + ("sweep halted, outputs zeroed" if halted else "no sweep was running")
+        for w in QApplication.topLevelWidgets():
+            if isinstance(w, QDialog) and w.isVisible():
+                w.reject()
+        self.close()
+        QApplication.quit()
 
     def _start_refusal(self) -> str:
         s = self.setup
@@ -310,6 +391,7 @@ class MainWindow(QMainWindow):
 
     def reset_live_view(self) -> None:
         self.banner.reset()
+        self.traces.mark_live()
         self.live.reset()
         self.tuning_model.steps, self.tuning_model.point_index = [], None
         self.tuning_model.notify()
@@ -320,6 +402,10 @@ class MainWindow(QMainWindow):
         if isinstance(ev, StateChanged):
             self.status.state, self.status.point_index = ev.new, ev.point_index
             self.points.on_state(ev)
+            if ev.new == S.PAUSED:
+                self.traces.mark_stopped("paused — not live (drive at zero)")
+            elif ev.old == S.PAUSED:
+                self.traces.mark_live()
             self._update_controls()
         elif isinstance(ev, DriveChanged):
             self.status.drive_v, self.status.freq_hz = ev.amplitude_v, ev.freq_hz
@@ -366,6 +452,9 @@ class MainWindow(QMainWindow):
     def _on_finished(self, ev: SweepFinished) -> None:
         self.status.finish_reason = ev.reason
         self.points.on_finished()
+        self.traces.mark_stopped(f"stopped — not live ({NOT_LIVE.get(ev.reason, ev.reason)})")
+        if ev.reason == "halted":
+            self.halt_banner.show_halt(getattr(ev, "detail", "") or "")
         self._update_controls()
         session = self.session
         if session is None:
@@ -426,9 +515,8 @@ class MainWindow(QMainWindow):
     def _update_controls(self) -> None:
         running = self.running()
         sim = self.setup.is_simulated()
-        self.sim_label.setText("SIMULATED BURNER — rehearsal, no hardware is driven" if sim else
-                               f"REAL HARDWARE: {self.setup.backend_name()}")
-        self.sim_label.setStyleSheet(SIM_STYLE if sim else SIM_STYLE.replace("#FFE08A", "#F4B6B0"))
+        self.controls.show_backend(sim, self.setup.backend_name())
+        self.caution.setVisible(not sim)
         can_start = not running and (sim or self.setup.checklist_done())
         self.start_action.setEnabled(can_start)
         for act in (self.pause_action, self.stop_action, self.abort_action):
@@ -579,20 +667,22 @@ class MainWindow(QMainWindow):
         return (run.info.get("backend", "simulated") or "simulated").startswith("sim")
 
     # ================================================================== closing
-    def shutdown(self) -> None:
-        """End any sweep safely (ramped abort), then wait for the worker threads."""
+    def shutdown(self, why: str = HALT_WHY_CLOSED) -> None:
+        """Halt any sweep (outputs to zero at once), close it, then wait for the worker threads."""
         self.timer.stop()
+        app = QApplication.instance()
+        if app is not None:
+            app.removeEventFilter(self.halt_keys)
         session = self.session
         if session is not None and not session.closed:
-            if session.engine is not None:
-                session.engine.abort()
+            if session.halt_why is None:
+                self.tasks.now("halt", lambda: session.halt(why))
 
-            def abort_and_close() -> None:   # after a queued start, too
-                if session.engine is not None:
-                    session.engine.abort()
+            def halt_and_close() -> None:   # after a queued start, too
+                session.halt(why)
                 session.close()
 
-            self.tasks.submit("close", abort_and_close)
+            self.tasks.submit("close", halt_and_close)
         self.tasks.shutdown()
 
     def closeEvent(self, event: QCloseEvent) -> None:

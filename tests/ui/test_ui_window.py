@@ -12,7 +12,6 @@ from pathlib import Path
 
 import numpy as np
 from PySide6.QtCore import Qt
-from PySide6.QtWidgets import QToolBar
 
 from app.storage.reader import open_run
 from conftest import CONFIGS, write_plan, write_scenario
@@ -21,9 +20,8 @@ LONG_MS = 60_000
 
 
 def _click(qtbot, win, action) -> None:
-    """Click the toolbar button of ``action`` (what an operator does)."""
-    bar = win.findChild(QToolBar)
-    button = bar.widgetForAction(action)
+    """Click the control strip's button of ``action`` (what an operator does)."""
+    button = win.controls.button_for(action)
     assert button is not None and button.isEnabled(), action.text()
     qtbot.mouseClick(button, Qt.MouseButton.LeftButton)
 
@@ -207,13 +205,15 @@ def test_real_hardware_needs_the_checklist_and_unavailable_backends_are_greyed(q
     assert win.start_action.isEnabled() and "SIMULATED" in win.sim_label.text()
 
 
-def test_closing_the_window_mid_sweep_ramps_down_and_leaves_no_thread(qtbot, make_window, tiny_plan) -> None:
+def test_closing_the_window_mid_sweep_halts_and_leaves_no_thread(qtbot, make_window, tiny_plan) -> None:
     win = make_window(tiny_plan, fast=False)
     win.start_sweep()
     qtbot.waitUntil(lambda: win.status.state == "tuning" and win.status.drive_v > 0, timeout=LONG_MS)
     session = win.session
-    win.close()                                    # waits for the ramped abort and the clean-up
-    assert session.closed and session.engine.finish_reason == "aborted"
+    win.close()                                    # halts (zero at once), waits for the clean-up
+    assert session.closed and session.engine.finish_reason == "halted"
+    info = open_run(session.request.run_dir).info
+    assert info["last_finish_reason"] == "halted" and info["last_finish_detail"] == "window closed during the sweep"
     status = session.device.drive_status()
     assert status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0
     # the autouse fixture then checks that no sweep, writer or worker thread is left

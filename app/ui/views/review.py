@@ -11,8 +11,8 @@ import math
 from typing import Any
 
 from PySide6.QtCore import Qt
-from PySide6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QLabel, QPushButton, QSplitter, QTextBrowser,
-                               QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLabel, QPushButton, QSplitter,
+                               QTextBrowser, QVBoxLayout, QWidget)
 
 from ..models import PointTable, TuningHistory
 from .points import PointListView
@@ -45,13 +45,17 @@ class ReviewView(QWidget):
         self.reacquire_button.setToolTip("Measure the selected points again; old attempts are kept")
         self.export_button.setToolTip("Write CSV, JSON summary and gain/phase plots into RUN/export (Ctrl+E)")
         self.attempt_box = QComboBox()
+        self.attempt_box.setSizeAdjustPolicy(QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
+        self.attempt_box.setMinimumContentsLength(20)
         self.attempt_box.setToolTip("The attempt that Accept / Reject act on, and whose record is drawn")
         grid = QGridLayout()
-        grid.addWidget(QLabel("Attempt:"), 2, 0)
-        grid.addWidget(self.attempt_box, 2, 1, 1, 2)
         for k, b in enumerate((self.accept_button, self.reject_button, self.reacquire_button,
                                self.reacquire_flagged_button, self.reprocess_button, self.export_button)):
-            grid.addWidget(b, k // 3, k % 3)
+            grid.addWidget(b, k // 2, k % 2)      # two columns: the tab fits a half-screen window
+        attempt_row = QHBoxLayout()
+        attempt_row.addWidget(QLabel("Attempt:"))
+        attempt_row.addWidget(self.attempt_box, 1)
+        grid.addLayout(attempt_row, 3, 0, 1, 2)
         actions = QGroupBox("Decisions and actions")
         actions.setLayout(grid)
         self.message = QLabel("")

@@ -16,9 +16,9 @@ from typing import Any, Callable
 
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QFont, QStandardItemModel
-from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QFormLayout, QGroupBox, QHBoxLayout, QLabel,
-                               QLineEdit, QListWidget, QListWidgetItem, QPlainTextEdit, QPushButton, QSplitter,
-                               QTabWidget, QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QFormLayout, QFrame, QGroupBox, QHBoxLayout, QLabel,
+                               QLineEdit, QListWidget, QListWidgetItem, QPlainTextEdit, QPushButton, QScrollArea,
+                               QSizePolicy, QSplitter, QTabWidget, QVBoxLayout, QWidget)
 
 from app.errors import ConfigError
 from app.plan import plan_from_dict
@@ -53,6 +53,8 @@ class ConfigEditor(QWidget):
         self.path: Path | None = None
         self.path_label = QLabel("(no file)")
         self.path_label.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
+        # a long path must not set the window's minimum width: it is cut at the right, whole in the tooltip
+        self.path_label.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Preferred)
         self.open_button, self.check_button, self.save_button = (QPushButton("Open…"), QPushButton("Check"),
                                                                  QPushButton("Save"))
         self.editor = QPlainTextEdit()
@@ -81,6 +83,7 @@ class ConfigEditor(QWidget):
         self.editor.setPlainText(self.path.read_text(encoding="utf-8"))
         self.editor.document().setModified(False)
         self.path_label.setText(str(self.path))
+        self.path_label.setToolTip(str(self.path))
         self.check()
 
     @property
@@ -145,6 +148,8 @@ class SetupView(QWidget):
         self.files = files
 
         self.backend = QComboBox()
+        self.backend.setSizeAdjustPolicy(QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
+        self.backend.setMinimumContentsLength(16)
         self.backend_reasons = QLabel()
         self.backend_reasons.setWordWrap(True)
         self.fast = QCheckBox("Run faster than real time (simulator only)")
@@ -155,7 +160,7 @@ class SetupView(QWidget):
         form.addRow("Back-end:", self.backend)
         form.addRow("", self.backend_reasons)
         form.addRow("Simulator scenario:", self.scenario)
-        form.addRow("", self.fast)
+        form.addRow(self.fast)
         form.addRow("Store runs under:", self.runs_root)
         back = QGroupBox("Back-end and storage")
         back.setLayout(form)
@@ -186,8 +191,15 @@ class SetupView(QWidget):
         left_lay.addWidget(back)
         left_lay.addWidget(safety)
         left_lay.addStretch(1)
+        # scrolls in a short window instead of squeezing the wrapped checklist lines onto each other
+        left_scroll = QScrollArea()
+        left_scroll.setWidget(left)
+        left_scroll.setWidgetResizable(True)
+        left_scroll.setFrameShape(QFrame.Shape.NoFrame)
+        left_scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+        left_scroll.setMinimumWidth(left.minimumSizeHint().width() + 16)
         split = QSplitter()
-        split.addWidget(left)
+        split.addWidget(left_scroll)
         split.addWidget(files)
         split.setStretchFactor(0, 2)
         split.setStretchFactor(1, 3)

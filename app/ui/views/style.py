@@ -19,6 +19,13 @@ HALT_STYLE = ("QToolButton { background: #C62828; color: white; font-weight: bol
               "padding: 8px 18px; border: 2px solid #7F0000; border-radius: 6px; } "
               "QToolButton:pressed { background: #8E0000; }")
 SIM_STYLE = "QLabel { background: #FFE08A; color: #3A2A00; padding: 4px 10px; font-weight: bold; border-radius: 4px; }"
+HALT_BANNER_STYLE = ("QFrame#haltBanner { background: #C62828; border: 2px solid #7F0000; border-radius: 6px; } "
+                     "QFrame#haltBanner QLabel { color: white; } "
+                     "QLabel#haltTitle { font-weight: bold; font-size: 16px; }")
+STOPPED_PEN = "#9E9E9E"           # live traces after the sweep ended: grey, no longer live
+STOPPED_STYLE = ("QLabel { background: rgba(255, 255, 255, 225); color: #424242; border: 1px solid #9E9E9E; "
+                 "border-radius: 4px; padding: 4px 12px; font-weight: bold; font-size: 14px; }")
+CAUTION_STYLE = "QLabel { color: #7A4A00; padding: 0px 6px; }"
 FAULT_FATAL_STYLE = "QFrame#faultBanner { background: #FBE3E0; border: 2px solid #C62828; border-radius: 6px; }"
 FAULT_FLAG_STYLE = "QFrame#faultBanner { background: #FFF4D6; border: 2px solid #B7791F; border-radius: 6px; }"
 
@@ -56,7 +63,18 @@ def new_plot(layout: pg.GraphicsLayoutWidget, title: str, y_label: str, x_label:
     if live:
         p.setDownsampling(auto=True, mode="peak")
         p.setClipToView(True)
+    hold_minimum_width(layout)
     return p
+
+
+def hold_minimum_width(layout: pg.GraphicsLayoutWidget) -> None:
+    """Give the widget its plots' minimum width (axes, labels): pyqtgraph does not pass it on,
+    so a splitter or a narrow window would squeeze the widget and clip the plots."""
+    from PySide6.QtCore import Qt
+
+    need = int(layout.ci.effectiveSizeHint(Qt.SizeHint.MinimumSize).width()) + 2
+    if need > layout.minimumWidth():
+        layout.setMinimumWidth(need)
 
 
 class Coalesced:

@@ -2,8 +2,9 @@
 
 Curves are created once per channel set; ``show_frame`` (called by the window's ~30 Hz
 timer) hands them a ``TraceFrame``: copies of the ring buffer's visible window, never the
-buffer itself. ``show_record``
-draws a stored record in review.
+buffer itself. ``show_record`` draws a stored record in review. ``mark_stopped`` greys the
+curves and lays a label over them once no new signal arrives (the sweep ended, was halted
+or paused), so the last frame cannot be taken for a live one; ``mark_live`` undoes it.
 
 Imports: PySide6, pyqtgraph, numpy, ``app.ui.models`` and ``.style`` only.
 """
@@ -12,10 +13,12 @@ from __future__ import annotations
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtWidgets import QVBoxLayout, QWidget
+from PySide6.QtCore import Qt
+from PySide6.QtGui import QResizeEvent
+from PySide6.QtWidgets import QLabel, QVBoxLayout, QWidget
 
 from ..models import TraceFrame
-from .style import CHANNEL_COLOURS, new_plot, pen
+from .style import CHANNEL_COLOURS, STOPPED_PEN, STOPPED_STYLE, new_plot, pen
 
 ROLE_TITLES = {"pressure": ("Pressures", "V at the ADC"), "light": ("Heat-release light", "V"),
                "drive": ("Drive reference", "V"), "other": ("Other channels", "V")}
@@ -38,6 +41,39 @@ class TracesView(QWidget):
         self._y_range: dict[str, tuple[float, float]] = {}
         self.drawn_state: object = None    # state of the last frame drawn
         self.frames = 0                  # redraws done (for the benchmark)
+        self.stopped_text = ""            # non-empty while the traces are marked as not live
+        self.overlay = QLabel(self)
+        self.overlay.setStyleSheet(STOPPED_STYLE)
+        self.overlay.setAlignment(Qt.AlignmentFlag.AlignCenter)
+        self.overlay.setAttribute(Qt.WidgetAttribute.WA_TransparentForMouseEvents)
+        self.overlay.hide()
+
+    # -------------------------------------------------------------- live or not
+    def mark_stopped(self, text: str) -> None:
+        """Grey every curve and show ``text`` over the plots (no new signal is coming)."""
+        self.stopped_text = text
+        for curve in self.curves.values():
+            curve.setPen(pen(STOPPED_PEN))
+        self.overlay.setText(text)
+        self.overlay.adjustSize()
+        self._place_overlay()
+        self.overlay.show()
+        self.overlay.raise_()
+
+    def mark_live(self) -> None:
+        self.stopped_text = ""
+        for i, ch in enumerate(self._channels):
+            if ch in self.curves:
+                self.curves[ch].setPen(pen(CHANNEL_COLOURS[i % len(CHANNEL_COLOURS)]))
+        self.overlay.hide()
+
+    def _place_overlay(self) -> None:
+        w, h = self.overlay.width(), self.overlay.height()
+        self.overlay.move(max(0, (self.width() - w) // 2), max(0, (self.height() - h) // 2))
+
+    def resizeEvent(self, event: QResizeEvent) -> None:
+        super().resizeEvent(event)
+        self._place_overlay()
 
     def configure(self, channels: tuple[str, ...], roles: dict[str, str], x_label: str = "time (s)",
                   window_s: float = 0.2) -> None:
@@ -79,6 +115,8 @@ class TracesView(QWidget):
             curve.setClipToView(True)
             self.curves[ch] = curve
         self.drawn_state = None
+        if self.stopped_text:                  # curves made after the mark are not live either
+            self.mark_stopped(self.stopped_text)
 
     def show_frame(self, frame: TraceFrame) -> None:
         """Draw a live frame (copies, owned by the curves from now on)."""
