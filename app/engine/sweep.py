@@ -276,7 +276,7 @@ class SweepEngine:
             reason = self._ending_reason() or self._fatal(exc.event)
         except BackendTimeout as exc:
             reason = self._ending_reason() or self._fatal(
-                fault_event("backend-timeout", f"{exc} (point {self._label()})", self._point_index))
+                fault_event("backend-timeout", f"{exc} ({self._label()})", self._point_index))
         except DriverError as exc:
             reason = self._ending_reason() or self._fatal(
                 fault_event("driver-error", f"{exc} ({self._label()})", self._point_index))

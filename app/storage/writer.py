@@ -361,7 +361,7 @@ class RunWriter:
         where = self.records_dir / name
         head = "storage-disk-full" if full else "storage-write-failed"
         what = "the disk is full or the file-size limit was reached" if full else f"{type(exc).__name__}: {text}"
-        return (f"{head}: could not store point {ev.point_index} (attempt {ev.attempt_id}, {ev.freq_hz:g} Hz) "
+        return (f"{head}: could not store point {ev.point_index + 1} (attempt {ev.attempt_id}, {ev.freq_hz:g} Hz) "
                 f"to {where}: {what}. Points stored before are intact; the sweep stops. "
                 f"Free at least {need_mb:.0f} MB on the disk holding {self.run_dir} ({free}) or fix the "
                 f"cause, then continue with `flamebode resume {self.run_dir}`.")

@@ -218,7 +218,7 @@ def test_file_size_limit_in_subprocess_gives_named_fault(tmp_path: Path, plan_fi
     assert proc.returncode == 0, proc.stderr
     acks = json.loads(proc.stdout.strip().splitlines()[-1])
     assert all(ok for ok, _ in acks) and all(err for _, err in acks)
-    assert acks[0][1].startswith("storage-disk-full: could not store point 1")
+    assert acks[0][1].startswith("storage-disk-full: could not store point 2")   # index 1: the second point, numbered from 1 as everywhere
     after = {p.name: p.read_bytes() for p in (run_dir / "records").iterdir()}
     assert after == before
     run = open_run(run_dir)
