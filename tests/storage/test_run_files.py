@@ -152,7 +152,7 @@ def test_failing_write_gives_named_fault_and_damages_nothing(tmp_path: Path, pla
                                 [settled(1, 200.0), settled(2, 300.0)])
     assert all(ok for ok, _ in acks) and all(err for _, err in acks)
     msg = acks[0][1]
-    assert msg.startswith("storage-disk-full") and "point 1" in msg and str(run_dir) in msg
+    assert msg.startswith("storage-disk-full") and "point 2 " in msg and str(run_dir) in msg
     assert "Free at least" in msg and "resume" in msg and writer.fault == msg
     monkeypatch.undo()
     after = {p.name: p.read_bytes() for p in (run_dir / "records").iterdir()}
