@@ -5,6 +5,12 @@ otherwise; ``--run`` opens a stored run for review. ``flamebode`` with no argume
 here with ``--first-run``: the window when a display is available, else the headless demo
 sweep (demo plan and rig, fast, into ./runs/<timestamp>) and where it was stored.
 
+Before Qt creates its application, a child process checks that it can (``app.ui.preflight``):
+Qt aborts the whole process (exit 134) when its platform plugin cannot load its libraries
+or reach the display. The check runs while the window code is being imported. When the
+window cannot start, the message names what is missing (libraries and the apt packages that
+provide them, or the display) and the first-run path falls back to the headless demo.
+
 Qt is imported only inside :func:`run` (through ``app.ui.app``), never at module level.
 """
 
@@ -44,12 +50,12 @@ def have_display() -> bool:
     return any(os.environ.get(k) for k in ("DISPLAY", "WAYLAND_DISPLAY", "QT_QPA_PLATFORM"))
 
 
-def headless_demo(runs_root: str | Path = "runs") -> int:
+def headless_demo(runs_root: str | Path = "runs", why: str = "no display here") -> int:
     """The demo sweep on the simulated burner, stored in runs_root/<timestamp>."""
     from ..cli import main as cli_main
 
     out = Path(runs_root) / time.strftime("%Y%m%d-%H%M%S")
-    print("flamebode: no display here, so running the demo sweep headless on the simulated burner "
+    print(f"flamebode: {why}, so running the demo sweep headless on the simulated burner "
           "(no hardware is driven).")
     code = cli_main(["sweep", str(DEMO_PLAN), "--rig", str(DEMO_RIG), "--fast", "--out", str(out)])
     print(f"flamebode: the demo run is in {out}\n"
@@ -59,21 +65,43 @@ def headless_demo(runs_root: str | Path = "runs") -> int:
     return code
 
 
+def cannot_start(args: argparse.Namespace, message: str) -> int:
+    """The window cannot start: the first run falls back to the headless demo, else a plain error."""
+    if args.first_run:
+        print(f"flamebode: {message}", flush=True)
+        return headless_demo(args.runs_root, why="the window cannot start here")
+    raise NoDisplay(message)
+
+
+def import_error_message(exc: ImportError) -> str:
+    from ..ui.preflight import missing_from_output, package_for
+
+    missing = missing_from_output(str(exc))
+    packages = [p for p in (package_for(lib) for lib in missing) if p]
+    hint = (f"On Debian/Ubuntu: sudo apt-get install {' '.join(dict.fromkeys(packages))}" if packages else
+            "See the README for Qt's runtime libraries")
+    return f"the window cannot start: {exc}. {hint}"
+
+
 def run(args: argparse.Namespace) -> int:
     if not have_display():
         if args.first_run:
             return headless_demo(args.runs_root)
         raise NoDisplay("no display: set DISPLAY (X11) or WAYLAND_DISPLAY, or QT_QPA_PLATFORM=offscreen; "
                         "for a headless sweep use 'flamebode sweep PLAN'")
+    from ..ui import app as ui_app          # Qt-free until load_window_code()
+    from ..ui.preflight import Probe
+
+    probe = None if ui_app.application_exists() else Probe()   # runs during the imports below
+    import_error: ImportError | None = None
     try:
-        from ..ui.app import run_window
-    except ImportError as exc:   # Qt's runtime libraries are missing (e.g. libEGL.so.1)
-        message = (f"the window cannot start: {exc}. On Debian/Ubuntu install Qt's runtime libraries "
-                   "(apt-get install libegl1 libgl1 libfontconfig1 libxkbcommon0 libxkbcommon-x11-0 "
-                   "libxcb-cursor0 libdbus-1-3)")
-        if args.first_run:
-            print(f"flamebode: {message}")
-            return headless_demo(args.runs_root)
-        raise NoDisplay(message) from None
-    return run_window(args.rig or DEMO_RIG, args.plan or DEMO_PLAN, run_dir=args.run, runs_root=args.runs_root,
-                      fast=args.fast, backend=args.backend, start=args.start)
+        ui_app.load_window_code()
+    except ImportError as exc:   # e.g. libEGL.so.1 missing: PySide6 itself cannot load
+        import_error = exc
+    verdict = probe.verdict() if probe is not None else None
+    if verdict is not None and not verdict.ok:
+        return cannot_start(args, verdict.message())
+    if import_error is not None:
+        return cannot_start(args, import_error_message(import_error))
+    return ui_app.run_window(args.rig or DEMO_RIG, args.plan or DEMO_PLAN, run_dir=args.run,
+                             runs_root=args.runs_root, fast=args.fast, backend=args.backend, start=args.start)

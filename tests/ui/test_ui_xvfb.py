@@ -1,6 +1,7 @@
 """One check under a real X server (Xvfb, xcb platform) besides the offscreen tests: the
 window opens, runs a short fast sweep to its end and closes (the offscreen platform hides
-some X-only problems, e.g. missing xcb libraries; pytest-qt documentation)."""
+some X-only problems, e.g. missing xcb libraries; pytest-qt documentation). The start-up
+probe must find that the window can start there, on the xcb platform."""
 
 from __future__ import annotations
 
@@ -14,6 +15,9 @@ import pytest
 
 SCRIPT = """
 import sys
+from app.ui.preflight import Probe
+verdict = Probe().verdict()
+print("probe", verdict.ok, verdict.platform)
 from PySide6.QtCore import QTimer
 from PySide6.QtWidgets import QApplication
 from app.ui.window import MainWindow
@@ -44,3 +48,4 @@ def test_window_runs_a_sweep_under_xvfb(tiny_plan: Path, tmp_path: Path) -> None
                          timeout=120)
     assert out.returncode == 0, out.stderr[-2000:]
     assert out.stdout.split()[-3:] == ["xcb", "complete", "3"], out.stdout + out.stderr[-2000:]
+    assert "probe True xcb" in out.stdout
