@@ -29,6 +29,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from app.storage.record import read_record
 from drivers.drive_log import read_log
 from run_watch import committed_attempts, short_plan_text
 
@@ -103,13 +104,18 @@ def _stop_and_check(proc: subprocess.Popen, sig: int, t_signal: float, log: Path
     assert drive.size and drive["peak_v"].max() > 0.0, "the drive log saw no drive at all"
     late = drive[drive["wall_time_s"] > t_signal + BLOCK_S]
     assert np.all(late["peak_v"] == 0.0), f"drive after {name}: {late['peak_v'].max():.3g} V"
-    # nothing stored after the signal is accepted; the run says it was halted, and by what
+    # nothing recorded after the signal is accepted (a record whose last block arrived just
+    # before it may be committed just after it, whole: docs/run-layout.md, recorded_wall_s);
+    # a record caught by the signal is kept as interrupted, rejected
     attempts, info = _index(run_dir)
     assert attempts, "no point was stored before the signal"
     for a in attempts:
-        if a["stored_wall_s"] > t_signal:
+        recorded = read_record(run_dir / a["record_file"]).attrs["recorded_wall_s"]
+        if recorded > t_signal:
             assert a["decision"] != "accepted", a
             assert "interrupted" in a["flags"], a
+        if "interrupted" in a["flags"]:
+            assert a["decision"] == "rejected", a
     assert info["last_finish_reason"] == "halted"
     assert info["last_finish_detail"] == f"{name} received"
     return attempts
