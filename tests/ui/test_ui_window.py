@@ -63,12 +63,15 @@ def test_pause_resume_then_abort_mid_point(qtbot, make_window, tiny_plan) -> Non
     assert win.session.device.drive_status().amplitude_v == 0.0     # paused means drive at zero
     assert win.status.drive_v == 0.0
     assert win.pause_action.text() == "Resume"
+    assert win.traces.stopped_text.startswith("paused — not live")   # no new signal while paused
     qtbot.keyClick(win, Qt.Key.Key_F6)                               # resume by shortcut
     qtbot.waitUntil(lambda: win.points.row(1).status == "measuring", timeout=LONG_MS)
+    assert not win.traces.stopped_text and not win.traces.overlay.isVisible()
     assert win.points.row(0).status == "kept"
     qtbot.keyClick(win, Qt.Key.Key_F8)                               # abort by shortcut, mid-point 2
     qtbot.waitUntil(lambda: _finished(win), timeout=LONG_MS)
     assert win.status.finish_reason == "aborted"
+    assert "aborted" in win.traces.stopped_text and not win.halt_banner.isVisible()
     status = win.session.device.drive_status()
     assert status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0
     run = open_run(win.last_run_dir)
@@ -83,6 +86,7 @@ def test_injected_fault_shows_its_banner(qtbot, make_window, tmp_path: Path) -> 
     qtbot.waitUntil(lambda: _finished(win), timeout=LONG_MS)
     assert win.status.finish_reason == "fault"
     assert win.banner.isVisible()
+    assert win.traces.stopped_text == "stopped — not live (ended by a fault — drive at zero)"
     assert "flame-out" in win.banner.title.text()
     assert "zero" in win.banner.action.text()                        # what the tool did
     assert win.banner.advice.text().startswith("What you can do:")
