@@ -63,9 +63,9 @@ NOT_LIVE = {"halted": "halted — outputs zeroed", "aborted": "aborted — drive
 MIN_SIZE = (720, 540)             # the control strip and every tab fit (halt button whole) at this size
 HALT_WHY_WINDOW = "emergency halt in the window"
 HALT_WHY_CLOSED = "window closed during the sweep"
-REAL_RIG_CAUTION = ("Real rig: forcing is loud (hearing protection); the ceiling protects the speakers only if set "
-                    "from their ratings; flame, fuel and detector high voltage stay live — flamebode zeroes only "
-                    "the drive. Your lab's rules come first.")
+REAL_RIG_CAUTION = ("Real rig: forcing is loud — hearing protection on. The ceiling protects the speakers only if "
+                    "set from their ratings. Flame, fuel and photomultiplier high voltage stay live: flamebode "
+                    "zeroes only the drive. Your lab's rules come first.")
 
 
 class HaltKeys(QObject):

@@ -38,7 +38,8 @@ CHECKLIST = (
     ("hearing", "Hearing: everyone near the rig wears hearing protection; the forcing amplitude is no higher "
                 "than the test needs."),
     ("ceiling", "Speaker ceiling: the drive ceiling in the rig file (and the plan) is set from the speaker's "
-                "and the amplifier's ratings."),
+                "and the amplifier's ratings; a speaker driven above its rating burns out, sometimes only after "
+                "minutes."),
 )
 
 
