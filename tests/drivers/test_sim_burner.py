@@ -205,6 +205,7 @@ def test_stop_ramps_down_and_halt_zeroes(rig):
     run(sim, 0.5)
     sim.halt()
     assert np.all(sim.read_block().channel("drv_ref") == pytest.approx(0.0, abs=1e-3))
+    sim.arm(rig.drive.ceiling)  # a halt latches until the next sweep arms the guard
     sim.set_drive(300.0, 0.4)
     sim.read_block()
     sim.stop()
