@@ -13,6 +13,11 @@ Elements:
   J. Sound Vib. 39:1-33), written here for e^{+iωt}.
 * compact area change at low Mach: p̂ continuous, A₁û₁ = A₂û₂.
 * lumped volume (plenum as a compliance): p̂ continuous, A₂û₂ = A₁û₁ - iωV/(ρc²) p̂.
+* compact burner pressure loss (nozzle, flame holder, perforated plate) at the reference
+  plane: a mean drop Δp = ζ ½ρū² linearised quasi-steadily to Δp̂ = ζ ρ ū û, û continuous
+  (common practice in low-order network models, from memory). It absorbs the acoustic
+  power ½ ζ ρ ū |û|² A and is the rig's main acoustic damping besides the walls and the
+  chamber exit.
 * compact flame at low Mach (Dowling 1995, J. Sound Vib. 180:557-581; Polifke's network
   models, e.g. Polifke 2020, Prog. Energy Combust. Sci. 79:100845): p̂ continuous,
   û_d = û_u + (T_d/T_u - 1) ū_u Q̂'/Q̄ with Q̂'/Q̄ = F û_u/ū_u, i.e. û_d = û_u (1 + (θ-1)F).
@@ -48,18 +53,38 @@ class Medium:
         return self.density_kg_m3 * self.speed_of_sound_m_s
 
 
-def kirchhoff_factor(freq_hz: np.ndarray | float, medium: Medium, radius_m: float) -> np.ndarray:
-    """Kirchhoff's wide-duct propagation factor K (e^{+iωt}); 1 at zero frequency."""
-    omega = TWO_PI * np.asarray(freq_hz, dtype=float)
-    shear = radius_m * np.sqrt(np.maximum(omega, 1e-300) / medium.kinematic_viscosity_m2_s)
+def as_frequency(freq_hz: np.ndarray | complex | float) -> np.ndarray:
+    """Frequencies as a float array, or a complex array when any is complex.
+
+    A complex frequency f = (ω_r + iω_i)/2π is used to find the network's modes: with
+    e^{+iωt} a mode grows when Im ω < 0. Every element below is analytic in ω off the
+    negative real axis, so the same code serves real and complex frequencies.
+    """
+    a = np.asarray(freq_hz)
+    return a.astype(complex) if np.iscomplexobj(a) else a.astype(float)
+
+
+def kirchhoff_factor(freq_hz: np.ndarray | complex | float, medium: Medium, radius_m: float) -> np.ndarray:
+    """Kirchhoff's wide-duct propagation factor K (e^{+iωt}); 1 at zero frequency.
+
+    For a complex frequency the principal branch of √ω continues the real-axis formula
+    analytically (Re ω > 0).
+    """
+    omega = TWO_PI * as_frequency(freq_hz)
+    positive = omega.real > 0.0
+    safe = np.where(positive, omega, 1.0)
+    if np.iscomplexobj(omega):
+        shear = radius_m * np.sqrt(safe / medium.kinematic_viscosity_m2_s)
+    else:
+        shear = radius_m * np.sqrt(np.maximum(safe, 1e-300) / medium.kinematic_viscosity_m2_s)
     loss = (1.0 + (medium.gamma - 1.0) / np.sqrt(medium.prandtl)) / (np.sqrt(2.0) * shear)
-    return np.where(omega > 0.0, 1.0 + (1.0 - 1j) * loss, 1.0 + 0j)
+    return np.where(positive, 1.0 + (1.0 - 1j) * loss, 1.0 + 0j)
 
 
 def wavenumbers(freq_hz: np.ndarray | float, medium: Medium, mach: float, radius_m: float,
                 damping: bool = True) -> tuple[np.ndarray, np.ndarray]:
     """Downstream and upstream wavenumbers k⁺, k⁻ (rad/m, complex; Im k⁺ < 0 means decay)."""
-    k0 = TWO_PI * np.asarray(freq_hz, dtype=float) / medium.speed_of_sound_m_s
+    k0 = TWO_PI * as_frequency(freq_hz) / medium.speed_of_sound_m_s
     factor = kirchhoff_factor(freq_hz, medium, radius_m) if damping else np.ones_like(k0, dtype=complex)
     return factor * k0 / (1.0 + mach), factor * k0 / (1.0 - mach)
 
@@ -87,9 +112,14 @@ def area_change_matrix(area_up_m2: float, area_down_m2: float) -> np.ndarray:
 def volume_matrix(freq_hz: np.ndarray | float, volume_m3: float, medium: Medium,
                   area_up_m2: float, area_down_m2: float) -> np.ndarray:
     """Lumped compliance between two ducts: A_d û_d = A_u û_u - iωV/(ρc²) p̂."""
-    omega = TWO_PI * np.asarray(freq_hz, dtype=float)
+    omega = TWO_PI * as_frequency(freq_hz)
     compliance = volume_m3 / (medium.density_kg_m3 * medium.speed_of_sound_m_s**2)
     return _stack(np.ones_like(omega), 0.0, -1j * omega * compliance / area_down_m2, area_up_m2 / area_down_m2)
+
+
+def loss_matrix(resistance_pa_s_m: float) -> np.ndarray:
+    """Compact resistive element: p̂_d = p̂_u - r û, û continuous (r = ζ ρ ū, Pa s/m)."""
+    return _stack(1.0, -resistance_pa_s_m, 0.0, 1.0)
 
 
 def flame_matrix(temperature_ratio: float, flame_response: np.ndarray | complex) -> np.ndarray:
@@ -142,6 +172,7 @@ class BurnerGeometry:
     chamber_length_m: float
     chamber_radius_m: float
     end_reflection: complex
+    burner_loss_coefficient: float = 0.0  # ζ of the compact pressure loss at the reference plane
 
 
 @dataclass(frozen=True)
@@ -167,7 +198,7 @@ class BurnerNetwork:
 
     def __init__(self, geometry: BurnerGeometry, flow: FlowState, freq_hz: np.ndarray | float,
                  sensor_positions_m: np.ndarray) -> None:
-        g, f = geometry, np.asarray(freq_hz, dtype=float)
+        g, f = geometry, as_frequency(freq_hz)
         self.geometry, self.flow, self.freq_hz = g, flow, f
         a_duct = np.pi * g.duct_radius_m**2
         a_ch = np.pi * g.chamber_radius_m**2
@@ -182,8 +213,9 @@ class BurnerNetwork:
         self._plenum = plenum
         duct = lambda length: duct_matrix(f, length, flow.cold, flow.mach_duct, g.duct_radius_m)  # noqa: E731
         self._sensor = [chain(plenum, duct(x - g.duct_start_m)) for x in np.asarray(sensor_positions_m)]
+        loss = g.burner_loss_coefficient * flow.cold.density_kg_m3 * flow.velocity_reference_m_s
         self._upstream = chain(plenum, duct(g.reference_plane_m - g.duct_start_m),
-                               area_change_matrix(a_duct, g.reference_area_m2))
+                               area_change_matrix(a_duct, g.reference_area_m2), loss_matrix(loss))
         after = chain(area_change_matrix(g.reference_area_m2, a_ch),
                       duct_matrix(f, g.chamber_length_m, flow.hot, flow.mach_chamber, g.chamber_radius_m))
         self._end_w = np.einsum("i,...ij->...j", end_row(g.end_reflection, flow.hot), after)
@@ -197,6 +229,18 @@ class BurnerNetwork:
         den = w[..., 0] * up[..., 0, 0] + w[..., 1] * m * up[..., 1, 0]
         p0 = -u0 * num / den
         return np.stack([p0, u0 * np.ones_like(p0)], axis=-1)
+
+    def characteristic(self, flame_response: np.ndarray | complex) -> np.ndarray:
+        """D(f) = w·diag(1, m)·U·[1, 0]ᵀ: zero at a mode of the network with the speaker at rest.
+
+        With the source volume velocity zero the upstream end is a rigid wall (û₀ = 0), and
+        a non-trivial p̂₀ needs D = 0; D is the denominator of :meth:`source_state`, so the
+        forced response is finite exactly where D ≠ 0. For complex frequencies (see
+        :func:`as_frequency`) the zeros are the complex eigenfrequencies.
+        """
+        m = 1.0 + (self.flow.temperature_ratio - 1.0) * np.asarray(flame_response, dtype=complex)
+        up, w = self._upstream, self._end_w
+        return w[..., 0] * up[..., 0, 0] + w[..., 1] * m * up[..., 1, 0]
 
     def reference_velocity_scalar(self, flame_response: complex, volume_velocity: complex) -> complex:
         """û at the reference plane for one frequency (plain-Python fast path of the fixed point)."""

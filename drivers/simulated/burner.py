@@ -7,6 +7,12 @@ physics (loudspeaker → acoustic network with flame feedback → sensors, light
 ADC), with coloured noise, slow drift of temperature and flow, and the scenario's faults.
 The true FTF is never handed out here; see ``drivers.simulated.truth``.
 
+Rig-side behaviour that a real rig has whatever the scenario says: the flame blows off
+when the true peak |û_ref|/ū_ref reaches 1 (flow reversal; ``faults``), and a rig that is
+linearly unstable with its flame (``stability``) is self-excited (``selfexcited``). What
+happened to the rig is listed in ``rig_events`` (and logged as a warning); what the
+scenario's physics implies before any drive is in ``stability`` and ``warnings``.
+
 How to get the blocks of a 2 s record at one frequency and drive voltage::
 
     from app.rig import load_rig
@@ -31,6 +37,7 @@ drivers.errors, drivers.guard and this package. Never the core's estimators.
 
 from __future__ import annotations
 
+import logging
 import time
 from pathlib import Path
 
@@ -41,10 +48,14 @@ from drivers.errors import BackendTimeout, DriverError
 from drivers.guard import CeilingGuard
 from drivers.protocols import Availability, Block, DriveStatus
 
-from .faults import FaultClock, active_mask
-from .model import BurnerModel
+from .faults import FaultClock, RigEvent, active_mask
+from .model import BurnerModel, Oscillation
 from .noise import ColouredNoise, adc, shot_noise
 from .scenario import Scenario, load_scenario
+from .selfexcited import self_excitation
+from .stability import Stability, stability
+
+LOG = logging.getLogger("drivers.simulated")
 
 DEMO_SCENARIO = Path(__file__).resolve().parents[2] / "configs" / "demo-scenario.toml"
 TWO_PI = 2.0 * np.pi
@@ -101,6 +112,14 @@ class SimulatedBurner:
         self._p_noise = ColouredNoise(n_p, self._fs, ns.pressure_corner, ns.pressure_correlation, rng)
         self._l_noise = ColouredNoise(1, self._fs, ns.light_corner, 0.0, rng)
         self._rng = rng
+        self.stability: Stability = stability(self.scenario, rig)
+        self.warnings: tuple[str, ...] = self.stability.warnings
+        for text in self.warnings:
+            LOG.warning("simulated burner: %s", text)
+        phase = float(np.random.default_rng([self.seed, 4]).uniform(0.0, TWO_PI))
+        self._excitation = self_excitation(self.model, self.stability, phase)
+        if self._excitation is not None:
+            self.model.flame_factor_cap = self._excitation.incremental_factor
         self._index = 0
         self._prev_drive_v = 0.0
         self._started = False
@@ -135,6 +154,11 @@ class SimulatedBurner:
     @property
     def flame_on(self) -> bool:
         return self._index <= self._faults.flame_out_index
+
+    @property
+    def rig_events(self) -> tuple[RigEvent, ...]:
+        """What happened to the simulated rig itself, in order ("blow-off", "flame-out")."""
+        return tuple(self._faults.events)
 
     def set_real_time(self, real_time: bool) -> None:
         self._real_time = bool(real_time)
@@ -219,8 +243,10 @@ class SimulatedBurner:
     def _synthesise(self) -> tuple[np.ndarray, DriveStatus]:
         n, i0, fs = self._block_n, self._index, self._fs
         drive_v, cps, status = self._render()
-        z = analytic_drive(drive_v, self._prev_drive_v, cps)
-        self._prev_drive_v = float(drive_v[-1])
+        factor = self._faults.drive_factor(i0, n)  # output_gain: the chain delivers factor × the guard's samples
+        delivered_v = drive_v if factor is None else drive_v * factor
+        z = analytic_drive(delivered_v, self._prev_drive_v, cps)
+        self._prev_drive_v = float(delivered_v[-1])
         state = self.model.drift_state(i0 / fs + 0.5 * n / fs)
         disconnected = active_mask(self._faults.disconnect, i0, n)
         if disconnected is not None:
@@ -229,16 +255,30 @@ class SimulatedBurner:
             flame_mask = np.zeros(n, dtype=bool)
             forced = self.model.forced(z, cps * fs, state, flame=False)
         else:
-            hot = self.model.forced(z, cps * fs, state, flame=True)
+            hot = self.model.forced(z, cps * fs, state, flame=True, oscillation=self._oscillation(i0, n))
+            known = len(self._faults.events)
             out_at = self._faults.flame_out_in_block(i0, n, hot.amplitude_ratio)
+            for event in self._faults.events[known:]:
+                LOG.warning("simulated burner: %s at t = %.3f s (true peak |u'|/u_mean = %.3g): %s",
+                            event.name, event.time_s, event.amplitude_ratio, event.detail)
             flame_mask = np.arange(i0, i0 + n) < out_at
             if flame_mask.all():
                 forced = hot
             else:
                 forced = hot.where(flame_mask, self.model.forced(z, cps * fs, state, flame=False))
-        return self._channels_volts(drive_v, forced, flame_mask, state), status
+        return self._channels_volts(delivered_v, forced, flame_mask, state), status
+
+    def _oscillation(self, start_index: int, n_samples: int) -> Oscillation | None:
+        """The self-excited oscillation over this block (None on a linearly stable rig)."""
+        ex = self._excitation
+        if ex is None:
+            return None
+        t = np.arange(start_index, start_index + n_samples) / self._fs
+        u = ex.velocity_ratio(t)
+        return Oscillation(u, np.real(ex.flame_linear * u), np.multiply.outer(ex.pressure_per_ratio, u))
 
     def _channels_volts(self, drive_v, forced, flame_mask, state) -> np.ndarray:
+        """Every channel in volts; ``drive_v`` is what the drive chain delivers (the reference sees it)."""
         n, i0 = self._block_n, self._index
         rig, sc, m = self.rig, self.scenario, self.model
         ns = sc.noise

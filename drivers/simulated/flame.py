@@ -25,35 +25,44 @@ import numpy as np
 TWO_PI = 2.0 * np.pi
 
 
+def _omega(freq_hz: np.ndarray | complex | float) -> np.ndarray:
+    """Angular frequency, complex when the frequency is (the models are analytic in ω)."""
+    a = np.asarray(freq_hz)
+    return TWO_PI * (a.astype(complex) if np.iscomplexobj(a) else a.astype(float))
+
+
 def n_tau(freq_hz: np.ndarray | float, n: float, tau_s: float) -> np.ndarray:
     """Crocco's n–τ model, e^{+iωt} convention."""
-    omega = TWO_PI * np.asarray(freq_hz, dtype=float)
+    omega = _omega(freq_hz)
     return n * np.exp(-1j * omega * tau_s)
 
 
 def gaussian_delay(freq_hz: np.ndarray | float, n: float, tau_s: float, sigma_s: float) -> np.ndarray:
     """One Gaussian distributed-delay term, F = n exp(-iωτ - ω²σ²/2)."""
-    omega = TWO_PI * np.asarray(freq_hz, dtype=float)
+    omega = _omega(freq_hz)
     return n * np.exp(-1j * omega * tau_s - 0.5 * (omega * sigma_s) ** 2)
 
 
 def conical_reduced_frequency(freq_hz: np.ndarray | float, radius_m: float, flame_speed_m_s: float,
                               half_angle_rad: float) -> np.ndarray:
     """ω* = ωR / (S_L cos α) of the uniform-velocity conical flame."""
-    return TWO_PI * np.asarray(freq_hz, dtype=float) * radius_m / (flame_speed_m_s * np.cos(half_angle_rad))
+    return _omega(freq_hz) * radius_m / (flame_speed_m_s * np.cos(half_angle_rad))
 
 
 def conical_from_reduced(omega_star: np.ndarray | float) -> np.ndarray:
     """Conical-flame FTF as a function of ω*, already conjugated to e^{+iωt}.
 
     Near ω* = 0 the closed form loses digits (1 - e^{iω*} + iω* ~ ω*²/2); a series is used.
+    For real ω* the conjugate of the paper's G(ω*) equals G(-ω*), which is the form used
+    here: G(-ω*) is analytic, so it also holds at a complex ω* (mode finding).
     """
-    w = np.asarray(omega_star, dtype=float)
+    a = np.asarray(omega_star)
+    w = -(a.astype(complex) if np.iscomplexobj(a) else a.astype(float))  # conj G(ω*) = G(-ω*) for real ω*
     small = np.abs(w) < 1e-3
     safe = np.where(small, 1.0, w)
     closed = 2.0 / safe**2 * (1.0 - np.exp(1j * safe) + 1j * safe)  # paper's e^{-iωt} form
     series = 1.0 + 1j * w / 3.0 - w**2 / 12.0  # Taylor expansion of the same expression
-    return np.conj(np.where(small, series, closed))
+    return np.where(small, series, closed)
 
 
 def conical(freq_hz: np.ndarray | float, radius_m: float, flame_speed_m_s: float,

@@ -6,6 +6,11 @@ an analytic drive signal into analytic pressures, the heat-release ratio and the
 reference-plane velocity amplitude. Flame saturation enters through the describing
 function of a clip, found by bisection on the amplitude fixed point.
 
+The steady forced response is physical only for a rig that is linearly stable with its
+flame (``stability``). For an unstable one the burner adds the self-excited oscillation
+(``selfexcited``) to the forced signals (``Oscillation``) and caps the flame factor of the
+forced response at ``flame_factor_cap`` (the flame gain the oscillation leaves).
+
 Imports: numpy, app.rig, app.core.gas (gas properties only) and this package. Never the
 core's estimators (multimic, harmonic, response, quality).
 """
@@ -57,6 +62,15 @@ class Forced:
         return Forced(np.where(mask, self.pressure_pa, other.pressure_pa),
                       np.where(mask, self.heat_release_ratio, other.heat_release_ratio),
                       np.where(mask, self.amplitude_ratio, other.amplitude_ratio))
+
+
+@dataclass(frozen=True)
+class Oscillation:
+    """Signals of a self-excited oscillation over one block, added to the forced ones."""
+
+    velocity_ratio: np.ndarray  # (n,) analytic û_ref/ū_ref
+    heat_release_linear: np.ndarray  # (n,) Re{F û_ref/ū_ref}, before the flame's clip
+    pressure_pa: np.ndarray  # (n_sensors, n) analytic pressure
 
 
 def _clip_df(saturation: float | None, heat_release_amplitude: float) -> float:
@@ -117,7 +131,7 @@ class BurnerModel:
             plenum_volume_m3=sc.plenum.volume, duct_radius_m=duct.radius_m, duct_start_m=duct.upstream_end,
             reference_plane_m=duct.reference_plane, reference_area_m2=duct.area_m2 / duct.area_ratio,
             chamber_length_m=sc.chamber.length, chamber_radius_m=sc.chamber.diameter / 2.0,
-            end_reflection=sc.chamber.end_reflection)
+            end_reflection=sc.chamber.end_reflection, burner_loss_coefficient=sc.burner.loss_coefficient)
         self.sensor_positions_m = np.array([s.position for s in rig.pressure_sensors])
         gains, phases = true_sensor_errors(scenario, rig, seed)
         self.true_sensitivity_v_pa = gains * np.array([s.sensitivity for s in rig.pressure_sensors])
@@ -129,6 +143,17 @@ class BurnerModel:
         self._drift_phase = rng.uniform(0.0, TWO_PI, 2)
         self._networks: dict[tuple, BurnerNetwork] = {}
         self._responses: dict[tuple, PointResponse] = {}
+        self._factor_cap = 1.0
+
+    @property
+    def flame_factor_cap(self) -> float:
+        """Largest describing-function factor of the forced response (1: the flame's own clip only)."""
+        return self._factor_cap
+
+    @flame_factor_cap.setter
+    def flame_factor_cap(self, value: float) -> None:
+        self._factor_cap = float(min(max(value, 0.0), 1.0))
+        self._responses.clear()
 
     # ------------------------------------------------------------------ state
     def drift_state(self, time_s: float) -> DriftState:
@@ -189,15 +214,15 @@ class BurnerModel:
         source = complex(self.speaker.volume_velocity_per_volt(freq_hz) * self.speaker.compression(drive_v))
         f_lin = complex(self.flame.linear(freq_hz)) if flame else 0j
 
-        gain, sat = abs(f_lin), self.flame.saturation
+        gain, sat, cap = abs(f_lin), self.flame.saturation, self._factor_cap
 
         def n_of(factor: float) -> float:
             """Describing-function factor at the amplitude reached with F = f_lin · factor."""
             u = net.reference_velocity_scalar(f_lin * factor, source)
-            return _clip_df(sat, gain * abs(u) * drive_v / u_bar)
+            return cap * _clip_df(sat, gain * abs(u) * drive_v / u_bar)
 
         factor = 1.0
-        if sat is not None and n_of(1.0) < 1.0 - 1e-12:  # saturated: bisection on N = N(a(N))
+        if flame and sat is not None and n_of(1.0) < 1.0 - 1e-12:  # saturated: bisection on N = N(a(N))
             lo, hi = 0.0, 1.0
             for _ in range(48):
                 mid = 0.5 * (lo + hi)
@@ -214,19 +239,30 @@ class BurnerModel:
         return net.sensor_pressures(net.source_state(f_lin, 1.0))
 
     # ------------------------------------------------------------------ time series
-    def forced(self, z: np.ndarray, freq_hz: np.ndarray, state: DriftState, flame: bool) -> Forced:
-        """Forced signals for an analytic drive ``z`` (volts) with per-sample frequency."""
+    def forced(self, z: np.ndarray, freq_hz: np.ndarray, state: DriftState, flame: bool,
+               oscillation: Oscillation | None = None) -> Forced:
+        """Forced signals for an analytic drive ``z`` (volts) with per-sample frequency.
+
+        ``oscillation`` (a self-excited one, with the flame lit) is added before the flame's
+        clip, so the light and the amplitude envelope carry the sum.
+        """
         n_s, n = len(self.sensor_positions_m), z.size
         pressure = np.zeros((n_s, n), dtype=complex)
         heat = np.zeros(n)
-        amplitude = np.zeros(n)
+        velocity = np.zeros(n, dtype=complex)
         for f in np.unique(freq_hz):
             idx = np.flatnonzero(freq_hz == f)
             if f <= 0.0:
                 continue
-            p, q, a = self._forced_at(z[idx], float(f), state, flame)
-            pressure[:, idx], heat[idx], amplitude[idx] = p, q, a
-        return Forced(pressure, heat, amplitude)
+            p, q, u = self._forced_at(z[idx], float(f), state, flame)
+            pressure[:, idx], heat[idx], velocity[idx] = p, q, u
+        if oscillation is not None and flame:
+            pressure += oscillation.pressure_pa
+            heat += oscillation.heat_release_linear
+            velocity += oscillation.velocity_ratio
+        if flame and self.flame.saturation is not None:
+            np.clip(heat, -self.flame.saturation, self.flame.saturation, out=heat)
+        return Forced(pressure, heat, np.abs(velocity))
 
     def _forced_at(self, z: np.ndarray, freq_hz: float, state: DriftState, flame: bool):
         env = np.abs(z)
@@ -244,10 +280,8 @@ class BurnerModel:
             pressure = np.stack([interp(row) for row in h_p]) * z[None, :]
             u = interp(h_u) * z
         pressure += self._harmonics(z, env, freq_hz, state, flame)
-        q = np.real(resp[0].flame_linear * u) / u_bar
-        if self.flame.saturation is not None:
-            np.clip(q, -self.flame.saturation, self.flame.saturation, out=q)
-        return pressure, q, np.abs(u) / u_bar
+        q = np.real(resp[0].flame_linear * u) / u_bar  # before the clip (see forced)
+        return pressure, q, u / u_bar
 
     def _harmonics(self, z, env, freq_hz: float, state: DriftState, flame: bool) -> np.ndarray:
         """Pressures of the loudspeaker's 2nd and 3rd harmonics (linear flame at k f)."""

@@ -65,6 +65,12 @@ class Chamber(_Strict):
                                                        math.sin(self.end_reflection_phase))
 
 
+class BurnerSpec(_Strict):
+    """The burner between the sensor duct and the flame (nozzle, flame holder)."""
+
+    loss_coefficient: Annotated[float, Field(ge=0.0)] = 20.0  # ζ: mean pressure drop / (½ρū_ref²)
+
+
 class DelayTerm(_Strict):
     n: float
     tau: Time
@@ -160,12 +166,19 @@ class TimedFault(_Strict):
     time: Time = 0.0
 
 
+class OutputGainFault(_Strict):
+    enabled: bool = False
+    time: Time = 0.0
+    factor: Annotated[float, Field(gt=0.0, le=100.0)] = 2.0  # delivered / commanded drive voltage
+
+
 class Faults(_Strict):
     flame_out: FlameOutFault = FlameOutFault()
     sensor_dropout: DropoutFault = DropoutFault()
     light_saturation: LightSaturationFault = LightSaturationFault()
     drive_disconnect: TimedFault = TimedFault()
     stops_answering: TimedFault = TimedFault()
+    output_gain: OutputGainFault = OutputGainFault()
 
 
 class Scenario(_Strict):
@@ -173,6 +186,7 @@ class Scenario(_Strict):
     seed: int = 1
     plenum: Plenum = Plenum()
     chamber: Chamber = Chamber()
+    burner: BurnerSpec = BurnerSpec()
     flame: FlameSpec = FlameSpec()
     loudspeaker: LoudspeakerSpec = LoudspeakerSpec()
     noise: NoiseSpec = NoiseSpec()
@@ -201,6 +215,16 @@ class Scenario(_Strict):
     def default_for(cls, rig: Rig) -> "Scenario":
         """Plausible default physics for any rig (all sections at their defaults)."""
         return cls(rig=rig.source_path or "<rig>", source_path="")
+
+    def warnings(self, rig: Rig | None = None) -> tuple[str, ...]:
+        """What a dry run or the window should tell about this simulated rig before it runs.
+
+        Today: whether it is linearly unstable with its flame lit, at which frequencies
+        (``drivers.simulated.stability``). ``rig`` defaults to the rig this file names.
+        """
+        from .stability import stability  # local: the network code is not needed to load a file
+
+        return stability(self, rig).warnings
 
     def check_against(self, rig: Rig) -> None:
         """Raise ConfigError if the scenario names channels the rig does not have."""

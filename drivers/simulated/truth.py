@@ -2,7 +2,9 @@
 
 The measurement code never reads this module (it lives in drivers, which the core may
 not import). All complex values use e^{+iωt}; amplitude ratios a = |û_ref|/ū_ref and
-drive voltages are PEAK values.
+drive voltages are PEAK values. On a rig that is linearly unstable (``true_stability``) the
+self-excited oscillation saturates the flame, so what a measurement finds there is not
+``true_ftf``; the velocity and pressure functions give the forced line only.
 
 Imports: numpy, app.rig and this package only.
 """
@@ -16,6 +18,7 @@ import numpy as np
 from .burner import SimulatedBurner
 from .model import BurnerModel, DriftState, build_flame
 from .scenario import Scenario, load_scenario
+from .stability import Stability, stability
 
 Source = SimulatedBurner | Scenario | str | Path
 
@@ -27,6 +30,14 @@ def _model(source: Source) -> tuple[BurnerModel, DriftState]:
     scenario = source if isinstance(source, Scenario) else load_scenario(source)
     model = BurnerModel(scenario.load_rig(), scenario, scenario.seed)
     return model, model.nominal_state()
+
+
+def true_stability(source: Source) -> Stability:
+    """Modes of the simulated rig with its linear flame (e^{+iωt}: growth σ = -Im ω > 0)."""
+    if isinstance(source, SimulatedBurner):
+        return source.stability
+    scenario = source if isinstance(source, Scenario) else load_scenario(source)
+    return stability(scenario)
 
 
 def true_ftf(source: Source, freq_hz: float | np.ndarray, amplitude_ratio: float | np.ndarray = 0.0):
