@@ -172,9 +172,13 @@ class WaveFit:
         return complex(self._g(x_m) @ self.amplitudes)
 
     def velocity_variance_at(self, x_m: float) -> float:
-        """E|δû(x)|² = gᴴ cov_a g from the sensors' random noise, in (m/s)²."""
+        """E|δû(x)|² from the sensors' random noise, in (m/s)².
+
+        û = gᵀa and cov_a = E[δa δaᴴ], so E|δû|² = gᵀ cov_a ḡ. (The form gᴴ cov_a g is wrong
+        unless g is real, i.e. x = 0: it would change with the axis origin.)
+        """
         g = self._g(x_m)
-        return float(np.real(np.conj(g) @ self.cov_a @ g))
+        return float(np.real(g @ self.cov_a @ np.conj(g)))
 
     def pair_velocities_at(self, x_m: float) -> dict[Pair, complex]:
         """û(x) from the exact two-sensor solution of every sensor pair (NaN if singular)."""
