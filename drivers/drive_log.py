@@ -4,10 +4,13 @@ When the environment variable ``FLAMEBODE_DRIVE_LOG`` names a file (or :func:`op
 called), every block rendered by a :class:`drivers.guard.CeilingGuard` and every amplitude
 schedule of an instrument set by commands adds one CSV line::
 
-    wall_time_s,peak_v,n_samples,rate_hz,ceiling_v,latched
+    wall_time_s,peak_v,n_samples,rate_hz,ceiling_v,latched,end_v
 
 ``wall_time_s`` is ``time.time()`` when the guard produced the block, ``peak_v`` the
-largest |sample| (peak volts at the amplifier input), ``latched`` 1 after an emergency halt.
+largest |sample| (peak volts at the amplifier input), ``latched`` 1 after an emergency halt,
+``end_v`` the |last sample| (a ramp to zero that ends inside a block shows 0 there). A
+halt taking effect adds a line of its own with ``peak_v`` 0 and ``n_samples`` 0 (the
+output is at zero from then on, whether or not the back-end renders another block).
 A lab can keep it beside the run as evidence of what reached the speakers; the safety tests
 read it from outside the process (a signal at time t: no non-zero line after t).
 
@@ -29,7 +32,7 @@ from pathlib import Path
 import numpy as np
 
 ENV = "FLAMEBODE_DRIVE_LOG"
-HEADER = "wall_time_s,peak_v,n_samples,rate_hz,ceiling_v,latched\n"
+HEADER = "wall_time_s,peak_v,n_samples,rate_hz,ceiling_v,latched,end_v\n"
 FLUSH_S = 0.05
 
 _lock = threading.Lock()
@@ -59,11 +62,22 @@ def note(samples: np.ndarray, rate_hz: float, ceiling_v: float, latched: bool) -
     if _path is None or samples.size == 0:
         return
     peak = float(np.max(np.abs(samples)))
-    line = f"{time.time():.6f},{peak:.9g},{samples.size},{rate_hz:.9g},{ceiling_v:.9g},{int(bool(latched))}\n"
+    end = float(abs(samples[-1]))
+    line = (f"{time.time():.6f},{peak:.9g},{samples.size},{rate_hz:.9g},{ceiling_v:.9g},{int(bool(latched))},"
+            f"{end:.9g}\n")
     with _lock:
         _lines.append(line)
     if time.monotonic() - _last_flush >= FLUSH_S:
         flush()
+
+
+def note_halt(rate_hz: float, ceiling_v: float) -> None:
+    """A halt has taken effect: the output is at zero from now (a line with 0 samples)."""
+    if _path is None:
+        return
+    with _lock:
+        _lines.append(f"{time.time():.6f},0,0,{rate_hz:.9g},{ceiling_v:.9g},1,0\n")
+    flush()
 
 
 def flush() -> None:

@@ -274,6 +274,7 @@ class CeilingGuard:
             self._amp_v = 0.0
             self._target_v = 0.0
             self._pending = None
+            drive_log.note_halt(self._fs_hz, self._ceiling_v)
 
     def _settled_locked(self) -> bool:
         return self._pending is None and self._amp_v == self._target_v

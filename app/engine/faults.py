@@ -98,7 +98,9 @@ class Finding:
 OVER_CEILING = 1.05          # sine amplitude above 105 % of the ceiling
 OVER_CEILING_PEAK = 1.25     # or any raw peak above 125 % of it
 ABOVE_COMMAND = 1.3          # sine amplitude above 130 % of the command ...
-ABOVE_COMMAND_FLOOR = 0.02   # ... plus 2 % of the ceiling (noise, zero command)
+ABOVE_COMMAND_FLOOR = 0.02   # ... plus 2 % of the ceiling (noise, zero command) until the noise is known
+ABOVE_COMMAND_MIN_FLOOR = 0.002  # once the reference's noise is measured: at least 0.2 % of the ceiling
+ABOVE_COMMAND_NOISE = 8.0    # ... or this many times the reference's rms with the drive off
 # flat tops: samples piled up at one extreme value
 PILE_MIN_SAMPLES = 16
 PILE_MIN_FRACTION = 2e-3
@@ -158,6 +160,7 @@ class SignalChecks:
         self.light_channel = rig.light.channel
         self.reference_channel = rig.drive.reference_channel
         self.baseline_light_v: float | None = None   # mean light above dark, drive off, at the start
+        self.reference_noise_v: float | None = None  # rms of the drive reference, drive off, at the start
 
     # ---------------------------------------------------------------- per block
     def check_block(self, data: np.ndarray, channels: tuple[str, ...], where: str,
@@ -195,12 +198,20 @@ class SignalChecks:
             return [Finding("output-over-ceiling", f"drive reference '{name}' measured {amplitude_v:.3g} V "
                             f"amplitude ({peak_v:.3g} V peak), above the {ceiling_v:g} V ceiling; commanded "
                             f"{commanded_v:.3g} V ({where})")]
-        floor_v = ABOVE_COMMAND_FLOOR * ceiling_v
+        floor_v = self.above_command_floor_v(ceiling_v)
         if amplitude_v > ABOVE_COMMAND * commanded_v + floor_v:
             return [Finding("output-above-command", f"drive reference '{name}' measured {amplitude_v:.3g} V "
                             f"amplitude while {commanded_v:.3g} V was commanded ({amplitude_v / max(commanded_v, 1e-12):.2g}"
                             f" times; ceiling {ceiling_v:g} V) ({where})")]
         return []
+
+    def above_command_floor_v(self, ceiling_v: float) -> float:
+        """Allowance on top of 1.3 x the command: the reference's own noise (the amplitude estimate
+        rms x sqrt 2 reads sqrt(A^2 + 2 sigma^2)), once measured at the start; before that 2 % of
+        the ceiling."""
+        if self.reference_noise_v is None:
+            return ABOVE_COMMAND_FLOOR * ceiling_v
+        return max(ABOVE_COMMAND_MIN_FLOOR * ceiling_v, ABOVE_COMMAND_NOISE * self.reference_noise_v)
 
     # ---------------------------------------------------------------- per window/record
     def set_baseline(self, data: np.ndarray, channels: tuple[str, ...]) -> list[Finding]:
@@ -210,6 +221,8 @@ class SignalChecks:
         (``light.min_flame_signal``), or by more than a margin that a dark offset mis-stated
         within its stated uncertainty cannot reach (see ``Light.lit_threshold_v``)."""
         findings = self.check_window(data, channels, drive_v=0.0, where="at the start, drive off")
+        if self.reference_channel in channels:
+            self.reference_noise_v = float(data[channels.index(self.reference_channel)].std())
         light_cfg = self.rig.light
         light = data[channels.index(self.light_channel)]
         above_dark = float(light.mean()) - light_cfg.dark_offset

@@ -420,7 +420,26 @@ def test_drive_log_notes_every_block_with_its_peak(tmp_path):
     finally:
         drive_log.open_log(None)
     log = drive_log.read_log(path)
-    assert log.size == 3
-    assert log["peak_v"][1] == pytest.approx(0.8, abs=1e-3) and log["peak_v"][2] == 0.0
-    assert list(log["latched"]) == [0.0, 0.0, 1.0] and np.all(log["n_samples"] == 100)
+    assert log.size == 4       # two blocks, the halt taking effect (0 samples), the zero block
+    assert log["peak_v"][1] == pytest.approx(0.8, abs=1e-3) and log["peak_v"][2] == 0.0 == log["peak_v"][3]
+    assert list(log["latched"]) == [0.0, 0.0, 1.0, 1.0]
+    assert list(log["n_samples"]) == [100, 100, 0, 100]
     assert np.all(np.diff(log["wall_time_s"]) >= 0)
+
+
+def test_the_drive_log_shows_a_halt_even_when_no_block_follows(tmp_path):
+    # a back-end that stops rendering after a fault still leaves the zero on record
+    from drivers import drive_log
+
+    path = tmp_path / "drive.csv"
+    drive_log.open_log(path)
+    try:
+        guard = CeilingGuard(1.0, 1000.0, 0.01)
+        guard.request(50.0, 0.5)
+        guard.render(100)
+        guard.halt()
+        assert guard.status().amplitude_v == 0.0
+    finally:
+        drive_log.open_log(None)
+    log = drive_log.read_log(path)
+    assert list(log["peak_v"][-1:]) == [0.0] and log["n_samples"][-1] == 0 and log["latched"][-1] == 1
