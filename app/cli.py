@@ -53,13 +53,35 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 0
     try:
-        return int(args._run(args) or 0)
+        code = int(args._run(args) or 0)
+        sys.stdout.flush()         # a closed pipe shows here, not at interpreter exit
+        return code
+    except BrokenPipeError:
+        return _pipe_closed()
     except FlamebodeError as exc:
         print(f"flamebode {args.command}: {exc}", file=sys.stderr)
         return int(getattr(exc, "exit_code", 2))
     except KeyboardInterrupt:
         print(f"flamebode {args.command}: interrupted", file=sys.stderr)
         return 130
+
+
+def _pipe_closed() -> int:
+    """The reader of our output went away (``flamebode review RUN | head -1``): stop quietly.
+
+    Python's own advice for SIGPIPE: point stdout at devnull so the flush at exit cannot
+    fail again, and exit as a process killed by SIGPIPE would (128 + 13)."""
+    import os
+
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
+    return EXIT_PIPE_CLOSED
+
+
+EXIT_PIPE_CLOSED = 141
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -28,8 +28,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     from ..storage import index
 
-    path = Path(args.run_dir) / index.INDEX_NAME
-    if not path.exists():
+    path = index.require_run_folder(args.run_dir) / index.INDEX_NAME
+    if not path.is_file():
         raise DecisionError(f"{path}: no run index here; is {args.run_dir} a run folder?")
     verb = "rejected" if args.reject else "accepted"
     try:
@@ -44,7 +44,7 @@ def run(args: argparse.Namespace) -> int:
                     except KeyError:
                         raise DecisionError(f"{path}: no attempt '{attempt_id}' in this run (see 'flamebode "
                                             f"review {args.run_dir} --attempts')") from None
-                    print(f"point {point}: attempt {attempt_id} {verb}")
+                    print(f"point {point + 1}: attempt {attempt_id} {verb}")
         finally:
             conn.close()
     except sqlite3.OperationalError as exc:

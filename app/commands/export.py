@@ -15,8 +15,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from ..storage import index
     from ..storage.export import export_run
 
+    index.require_run_folder(args.run_dir)
     for path in export_run(args.run_dir, args.out, plots=not args.no_plots):
         print(f"wrote {path}")
     return 0

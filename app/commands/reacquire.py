@@ -2,7 +2,8 @@
 
 New attempts are added and old ones kept; the newest good attempt becomes the accepted
 one unless the user accepted another (see docs/run-layout.md). Uses the run's own rig,
-plan and scenario snapshots and its back-end. Must not import Qt.
+plan and scenario snapshots and its back-end; a changed snapshot is refused unless
+``--accept-changed-snapshot`` is given (as for ``resume``). Must not import Qt.
 """
 
 from __future__ import annotations
@@ -19,15 +20,20 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     which.add_argument("--flagged", action="store_true", help="every point whose accepted attempt is flagged")
     p.add_argument("--fast", action="store_true", default=None,
                    help="simulated runs: run faster than real time (default: as the run was started)")
+    from .resume import add_snapshot_option
+
+    add_snapshot_option(p)
 
 
 def run(args: argparse.Namespace) -> int:
     from ..plan import load_plan
+    from ..storage import index
     from ..storage.reader import open_run
     from .reprocess_run import parse_points
-    from .resume import continue_run
+    from .resume import check_snapshots, continue_run
 
-    r = open_run(args.run_dir, verify=False)
+    run_dir = index.require_run_folder(args.run_dir)
+    r = open_run(run_dir, verify=False)
     if not r.index_readable:
         raise FlamebodeError(f"{r.run_dir}: cannot reacquire while the index is unreadable: {r.problems[0]}")
     planned = [p.index for p in load_plan(r.plan_path).points()]
@@ -39,6 +45,7 @@ def run(args: argparse.Namespace) -> int:
     if not wanted:
         print(f"{r.run_dir}: no point to reacquire")
         return 0
+    check_snapshots(r.run_dir, args.accept_changed_snapshot, "reacquire")
     print(f"reacquiring point(s) {', '.join(str(i + 1) for i in wanted)} of {r.run_dir}")
     reason = continue_run(r.run_dir, [i for i in planned if i in set(wanted)], fast=args.fast)
     return 0 if reason == "complete" else 1

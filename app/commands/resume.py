@@ -4,7 +4,12 @@ Every planned point without a usable accepted attempt is measured again, in plan
 (so the sweep restarts at the first such point), with the run's own rig, plan and
 scenario snapshots and the back-end the run recorded. New attempts are added to the
 run; nothing stored is changed. ``continue_run`` is shared with ``reacquire``.
-Must not import Qt.
+
+Before anything is measured: the folder must be a run folder; a snapshot that differs
+from the one the run was created with is refused (named key by key) unless
+``--accept-changed-snapshot`` is given, and then the change is recorded in the run;
+leftover ``.part`` files and record files no index row names are moved into
+``RUN_DIR/set-aside/`` (never deleted). Must not import Qt.
 """
 
 from __future__ import annotations
@@ -25,6 +30,28 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("run_dir", help="run folder to continue")
     p.add_argument("--fast", action="store_true", default=None,
                    help="simulated runs: run faster than real time (default: as the run was started)")
+    add_snapshot_option(p)
+
+
+def add_snapshot_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--accept-changed-snapshot", action="store_true",
+                   help="continue although the run's rig.toml, plan.toml or scenario snapshot was edited since "
+                        "the run was created; the change (old and new sha256, keys, time) is recorded in the run")
+
+
+def check_snapshots(run_dir: Path, accept: bool, command: str) -> None:
+    """Refuse a changed snapshot (naming file and keys) unless ``accept``; then record and print it."""
+    from ..storage import index
+    from ..storage.writer import refusal_message
+
+    changes = index.snapshot_changes(run_dir)
+    if not changes:
+        return
+    if not accept:
+        raise index.SnapshotChanged(refusal_message(run_dir, changes))
+    index.accept_snapshot_changes(run_dir, changes, command)
+    for c in changes:
+        print(f"changed snapshot accepted (--accept-changed-snapshot) and recorded in the run: {c.describe()}")
 
 
 def open_backend(info: dict[str, str], rig: Any, run_dir: Path, fast: bool | None) -> tuple[Any, str]:
@@ -45,10 +72,14 @@ def continue_run(run_dir: str | Path, point_indices: list[int], fast: bool | Non
     from ..engine.sweep import SweepEngine
     from ..plan import load_plan
     from ..rig import load_rig
+    from ..storage import index
     from ..storage.reader import open_run
-    from ..storage.writer import writer_for_existing_run
+    from ..storage.writer import refusal_message, writer_for_existing_run
     from .running import run_engine
 
+    changes = index.snapshot_changes(index.require_run_folder(run_dir))
+    if changes:                    # before the back-end is opened: nothing is driven with a changed file
+        raise index.SnapshotChanged(refusal_message(Path(run_dir), changes))
     run = open_run(run_dir, verify=False)
     rig = load_rig(run.rig_path)
     plan = load_plan(run.plan_path, rig)
@@ -77,9 +108,18 @@ def continue_run(run_dir: str | Path, point_indices: list[int], fast: bool | Non
 
 def run(args: argparse.Namespace) -> int:
     from ..plan import load_plan
+    from ..storage import index
     from ..storage.reader import open_run
+    from ..storage.writer import set_aside_leftovers
 
-    r = open_run(args.run_dir, verify=True)
+    run_dir = index.require_run_folder(args.run_dir)
+    if not (run_dir / index.INDEX_NAME).is_file():
+        raise ResumeError(f"{run_dir}: cannot resume: the index {index.INDEX_NAME} is missing (the record "
+                          f"files are still there; 'flamebode review {run_dir}' lists them)")
+    check_snapshots(run_dir, args.accept_changed_snapshot, "resume")
+    for src, dst, why in set_aside_leftovers(run_dir):
+        print(f"set aside {src.relative_to(run_dir)} -> {dst.relative_to(run_dir)}: {why}")
+    r = open_run(run_dir, verify=True)
     for p in r.problems:
         print(f"problem: {p}")
     if not r.index_readable:

@@ -23,14 +23,21 @@ def _fmt(v: float | None, spec: str) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
+    from ..storage import index
     from ..storage.export import point_rows
     from ..storage.reader import open_run
 
-    r = open_run(args.run_dir, verify=not args.no_verify)
+    r = open_run(index.require_run_folder(args.run_dir), verify=not args.no_verify)
     print(f"run {r.run_dir}  ({r.kind}, back-end {r.info.get('backend', '?')}, "
           f"{len(r.points)} points, {len(r.attempts)} attempts)")
     for p in r.problems:
         print(f"problem: {p}")
+    for c in index.snapshot_changes(r.run_dir):
+        print(f"problem: snapshot changed since the run was created: {c.describe()} (resume and reacquire "
+              f"refuse it without --accept-changed-snapshot)")
+    for c in _accepted_changes(r.run_dir):
+        print(f"snapshot change accepted by {c['command']} at {_utc(c['wall_time_s'])}: {c['name']}: "
+              f"{'; '.join(c['keys']) or 'content changed'} (sha256 {c['old_sha256'][:12]} → {c['new_sha256'][:12]})")
     for f in r.faults:
         print(f"fault at point {_num(f['point_index'])}: {f['name']}: {f['message']} ({f['action']})")
     head = (f"{'pt':>4} {'freq_hz':>9} {'target':>7} {'achieved':>8} {'gain':>7} {'±95%':>6} "
@@ -53,6 +60,27 @@ def run(args: argparse.Namespace) -> int:
         print(f"{len(pending)} point(s) without an accepted attempt: {', '.join(str(i + 1) for i in pending)} "
               f"(continue with 'flamebode resume {r.run_dir}')")
     return 0
+
+
+def _accepted_changes(run_dir) -> list[dict]:
+    import sqlite3
+
+    from ..storage import index
+
+    try:
+        conn = index.connect(run_dir / index.INDEX_NAME, read_only=True, timeout_s=0.5)
+        try:
+            return index.snapshot_change_log(conn)
+        finally:
+            conn.close()
+    except sqlite3.Error:
+        return []
+
+
+def _utc(wall_s: float) -> str:
+    from datetime import datetime, timezone
+
+    return datetime.fromtimestamp(wall_s, timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC")
 
 
 def _num(index: object) -> str:

@@ -19,6 +19,7 @@ from typing import Any
 import numpy as np
 
 from .. import __version__
+from .index import require_run_folder
 from .reader import Run, open_run
 
 CSV_COLUMNS = ("point_index", "frequency_hz", "amplitude_ratio_target", "amplitude_ratio_achieved",
@@ -123,7 +124,7 @@ def plot(run: Run, rows: list[dict[str, Any]], out_dir: Path, stem: str) -> list
 
 def export_run(run_dir: str | Path, out_dir: str | Path | None = None, plots: bool = True) -> list[Path]:
     """Write ``points.csv``, ``summary.json`` and ``gain-phase.png/.pdf``; returns the paths written."""
-    run = open_run(run_dir)
+    run = open_run(require_run_folder(run_dir))     # nothing is written unless it is a run folder
     out = Path(out_dir) if out_dir is not None else run.run_dir / "export"
     out.mkdir(parents=True, exist_ok=True)
     rows = point_rows(run)

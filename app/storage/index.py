@@ -13,20 +13,33 @@ record was cut short (flag ``interrupted``: a halt, an abort or a fatal fault su
 flame-out during the record) is stored as evidence, marked rejected, and can never be
 accepted.
 
+Guards for run folders (used by every command that takes one): :func:`require_run_folder`
+refuses a path that is not a run folder before anything is read or written;
+:func:`record_path` refuses a record path from the index that does not name a regular
+file inside the run's ``records/`` folder; :func:`snapshot_changes` compares the rig, plan
+and scenario snapshots with the hashes fixed when the run was created (or last accepted
+with ``--accept-changed-snapshot``, see :func:`accept_snapshot_changes`).
+
 Imports: standard library and ``app.errors`` only (no Qt, no drivers, no h5py).
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
+import os
 import sqlite3
+import stat
 import time
+import tomllib
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterable
 
 from app.errors import FlamebodeError
 
 INDEX_NAME = "index.sqlite"
+RECORDS_DIR = "records"
 SCHEMA_VERSION = 1
 NEVER_ACCEPTED = frozenset({"interrupted"})   # attempt flags that keep an attempt out of every result
 
@@ -91,6 +104,22 @@ CREATE TABLE IF NOT EXISTS faults (
     advice       TEXT NOT NULL,
     point_index  INTEGER,
     fatal        INTEGER NOT NULL
+);
+CREATE TABLE IF NOT EXISTS snapshots (
+    name           TEXT PRIMARY KEY,
+    sha256         TEXT NOT NULL,
+    content        BLOB NOT NULL,
+    created_wall_s REAL NOT NULL
+);
+CREATE TABLE IF NOT EXISTS snapshot_changes (
+    change_id    INTEGER PRIMARY KEY AUTOINCREMENT,
+    wall_time_s  REAL NOT NULL,
+    name         TEXT NOT NULL,
+    old_sha256   TEXT NOT NULL,
+    new_sha256   TEXT NOT NULL,
+    keys         TEXT NOT NULL,
+    content      BLOB NOT NULL,
+    command      TEXT NOT NULL
 );
 """
 
@@ -244,3 +273,256 @@ def points(conn: sqlite3.Connection) -> list[dict[str, Any]]:
 
 def faults(conn: sqlite3.Connection) -> list[dict[str, Any]]:
     return [dict(r) for r in conn.execute("SELECT * FROM faults ORDER BY fault_id")]
+
+
+# -- guards for run folders --------------------------------------------------------------
+
+
+class NotARunFolder(FlamebodeError):
+    """The path given to a run command is not a run folder (nothing was read or written)."""
+
+
+class UnsafeRecordPath(FlamebodeError):
+    """An index row names a record path outside the run's records folder, or not a regular file."""
+
+
+class SnapshotChanged(FlamebodeError):
+    """A rig, plan or scenario snapshot differs from the one the run was created (or last accepted) with."""
+
+
+def _has_run_tables(idx: Path) -> tuple[bool, str]:
+    """(looks like a run index, why not); a locked index counts as one (a sweep holds it)."""
+    try:
+        conn = sqlite3.connect(f"{idx.resolve().as_uri()}?mode=ro", uri=True, timeout=0.5)
+        try:
+            names = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+        finally:
+            conn.close()
+    except sqlite3.OperationalError as exc:
+        if "locked" in str(exc) or "busy" in str(exc):
+            return True, ""
+        return False, f"{INDEX_NAME} cannot be read: {exc}"
+    except sqlite3.DatabaseError as exc:
+        return False, f"{INDEX_NAME} is not an SQLite index: {exc}"
+    missing = [t for t in ("run_info", "attempts") if t not in names]
+    if missing:
+        return False, f"{INDEX_NAME} has no {' and no '.join(missing)} table"
+    return True, ""
+
+
+def _has_records(run_dir: Path) -> bool:
+    records = run_dir / RECORDS_DIR
+    return records.is_dir() and any(f.is_file() for f in records.glob("*.h5"))
+
+
+def require_run_folder(run_dir: str | Path) -> Path:
+    """``run_dir`` as a Path if it is a run folder, else :class:`NotARunFolder` naming what is missing.
+
+    A run folder holds ``index.sqlite`` with the run tables; a folder whose index was lost or
+    damaged still counts when ``records/`` holds record files (they are self-describing).
+    Only reads: nothing in the folder is created or changed."""
+    p = Path(run_dir)
+    if not p.exists():
+        raise NotARunFolder(f"{p}: not a run folder (no such file or folder)")
+    if not p.is_dir():
+        raise NotARunFolder(f"{p}: not a run folder (a file, not a folder; give the folder a sweep wrote "
+                            f"with --out)")
+    idx = p / INDEX_NAME
+    if idx.exists() and not idx.is_file():
+        raise NotARunFolder(f"{p}: not a run folder ({INDEX_NAME} is not a regular file)")
+    if idx.is_file():
+        ok, why = _has_run_tables(idx)
+        if ok or _has_records(p):
+            return p
+        raise NotARunFolder(f"{p}: not a run folder ({why}, and no record files in {RECORDS_DIR}/)")
+    if _has_records(p):
+        return p
+    raise NotARunFolder(f"{p}: not a run folder (no index: {INDEX_NAME} is missing, and no record files "
+                        f"in {RECORDS_DIR}/); give the folder a sweep wrote with --out")
+
+
+def record_path(run_dir: str | Path, record_file: Any, attempt_id: Any) -> Path:
+    """The record file an index row names, checked before anything reads it.
+
+    It must be a relative path ``records/<name>`` that stays inside the run folder after
+    symbolic links are resolved, and, if it exists, a regular file (not a device, pipe or
+    folder). Otherwise :class:`UnsafeRecordPath` names the attempt and the path; a missing
+    file is returned as is (the caller reports it missing)."""
+    run = Path(run_dir)
+    where = f"{run / INDEX_NAME}: attempt {attempt_id}: record path {record_file!r}"
+    if not isinstance(record_file, str) or not record_file.strip() or "\x00" in record_file:
+        raise UnsafeRecordPath(f"{where} is not a file name; not read")
+    rel = Path(record_file)
+    if rel.is_absolute() or record_file.startswith(("\\", "~")) or (len(record_file) > 1 and record_file[1] == ":"):
+        raise UnsafeRecordPath(f"{where} is absolute; record paths are relative to the run folder "
+                               f"({RECORDS_DIR}/<name>.h5); not read")
+    if ".." in rel.parts or "\\" in record_file:
+        raise UnsafeRecordPath(f"{where} climbs out of the run folder (..); not read")
+    if len(rel.parts) != 2 or rel.parts[0] != RECORDS_DIR:
+        raise UnsafeRecordPath(f"{where} is not in the run's {RECORDS_DIR}/ folder; not read")
+    full = run / rel
+    try:
+        real = full.resolve(strict=False)
+        root = run.resolve(strict=True)
+    except (OSError, RuntimeError) as exc:       # a symbolic-link loop
+        raise UnsafeRecordPath(f"{where} cannot be resolved ({exc}); not read") from None
+    if not real.is_relative_to(root / RECORDS_DIR):
+        raise UnsafeRecordPath(f"{where} leads outside the run's {RECORDS_DIR}/ folder (to {real}, through a "
+                               f"symbolic link); not read")
+    try:
+        mode = os.stat(real).st_mode
+    except FileNotFoundError:
+        return full
+    except OSError as exc:
+        raise UnsafeRecordPath(f"{where} cannot be examined ({exc}); not read") from None
+    if not stat.S_ISREG(mode):
+        raise UnsafeRecordPath(f"{where} is not a regular file (a device, pipe or folder); not read")
+    return full
+
+
+# -- snapshot hashes ---------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SnapshotChange:
+    """One snapshot that differs from the version the run accepts (creation or last accepted)."""
+
+    name: str                   # file name in the run folder, e.g. rig.toml
+    old_sha256: str
+    new_sha256: str             # empty when the file is missing
+    keys: tuple[str, ...]       # e.g. "drive.ceiling: 2.0 V → 9 V"; empty when unknown or none
+    content: bytes = b""
+
+    def describe(self) -> str:
+        if not self.new_sha256:
+            return f"{self.name}: the snapshot is missing (sha256 {self.old_sha256[:12]} expected)"
+        if self.keys:
+            what = "; ".join(self.keys)
+        else:
+            what = "content changed"
+        return f"{self.name}: {what} (sha256 {self.old_sha256[:12]} → {self.new_sha256[:12]})"
+
+
+def _flatten(value: Any, prefix: str = "") -> dict[str, Any]:
+    if isinstance(value, dict):
+        out: dict[str, Any] = {}
+        for k, v in value.items():
+            out.update(_flatten(v, f"{prefix}.{k}" if prefix else str(k)))
+        return out
+    if isinstance(value, list) and value and all(isinstance(v, dict) for v in value):
+        out = {}
+        for i, v in enumerate(value):
+            out.update(_flatten(v, f"{prefix}[{i + 1}]"))
+        return out
+    return {prefix: value}
+
+
+def _show(value: Any) -> str:
+    if value is _ABSENT:
+        return "(absent)"
+    return value if isinstance(value, str) else json.dumps(value, default=str)
+
+
+_ABSENT = object()
+
+
+def changed_keys(name: str, old: bytes, new: bytes) -> tuple[str, ...]:
+    """``key: old → new`` for every key that differs between two TOML texts (dotted names)."""
+    if not name.endswith(".toml"):
+        return ()
+    try:
+        a = _flatten(tomllib.loads(old.decode("utf-8")))
+    except (UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return ()
+    try:
+        b = _flatten(tomllib.loads(new.decode("utf-8")))
+    except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        return (f"not valid TOML now ({exc})",)
+    out = [f"{k}: {_show(a.get(k, _ABSENT))} → {_show(b.get(k, _ABSENT))}"
+           for k in list(a) + [k for k in b if k not in a] if a.get(k, _ABSENT) != b.get(k, _ABSENT)]
+    return tuple(out) or ("no key changed (comments or layout only)",)
+
+
+def _accepted_snapshots(conn: sqlite3.Connection) -> dict[str, tuple[str, bytes | None]]:
+    """name -> (sha256, content or None) the run accepts: the newest accepted change, else creation."""
+    info = get_info(conn)
+    out: dict[str, tuple[str, bytes | None]] = {}
+    for key in ("rig", "plan", "scenario"):
+        name, digest = info.get(f"{key}_snapshot"), info.get(f"{key}_sha256")
+        if name and digest:
+            out[name] = (digest, None)
+    tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    if "snapshots" in tables:
+        for r in conn.execute("SELECT name, sha256, content FROM snapshots"):
+            if r[0] in out and out[r[0]][0] == r[1]:
+                out[r[0]] = (r[1], bytes(r[2]))
+    if "snapshot_changes" in tables:
+        for r in conn.execute("SELECT name, new_sha256, content FROM snapshot_changes ORDER BY change_id"):
+            out[r[0]] = (r[1], bytes(r[2]))
+    return out
+
+
+def snapshot_changes(run_dir: str | Path) -> list[SnapshotChange]:
+    """Snapshots of the run that differ from the accepted version; [] when the index cannot be read
+    (the caller reports an unreadable index and refuses to continue anyway)."""
+    run = Path(run_dir)
+    try:
+        conn = connect(run / INDEX_NAME, read_only=True, timeout_s=2.0)
+        try:
+            accepted = _accepted_snapshots(conn)
+        finally:
+            conn.close()
+    except sqlite3.Error:
+        return []
+    out = []
+    for name, (digest, old) in accepted.items():
+        f = run / name
+        if not f.is_file():
+            out.append(SnapshotChange(name, digest, "", ()))
+            continue
+        now = f.read_bytes()
+        new_digest = hashlib.sha256(now).hexdigest()
+        if new_digest != digest:
+            keys = changed_keys(name, old, now) if old is not None else (
+                "(the run's index holds no copy of the accepted text, so the changed keys are unknown)",)
+            out.append(SnapshotChange(name, digest, new_digest, keys, now))
+    return out
+
+
+def accept_snapshot_changes(run_dir: str | Path, changes: list[SnapshotChange], command: str) -> float:
+    """Record accepted snapshot changes (old and new hash, keys, time, command) in ``snapshot_changes``;
+    the creation hashes in ``run_info`` are never overwritten. Returns the time recorded."""
+    missing = [c for c in changes if not c.new_sha256]
+    if missing:
+        raise SnapshotChanged("; ".join(c.describe() for c in missing) + ": a missing snapshot cannot be accepted")
+    path = Path(run_dir) / INDEX_NAME
+    create(path)
+    now = time.time()
+    conn = connect(path)
+    try:
+        with conn:
+            conn.executemany(
+                "INSERT INTO snapshot_changes(wall_time_s, name, old_sha256, new_sha256, keys, content, command) "
+                "VALUES (?, ?, ?, ?, ?, ?, ?)",
+                [(now, c.name, c.old_sha256, c.new_sha256, json.dumps(list(c.keys), ensure_ascii=False),
+                  c.content, command) for c in changes])
+    finally:
+        conn.close()
+    return now
+
+
+def record_creation_snapshots(conn: sqlite3.Connection, contents: dict[str, bytes]) -> None:
+    """Keep the text of each snapshot as created (for naming changed keys later); never replaces a row."""
+    now = time.time()
+    conn.executemany("INSERT OR IGNORE INTO snapshots(name, sha256, content, created_wall_s) VALUES (?, ?, ?, ?)",
+                     [(name, hashlib.sha256(data).hexdigest(), data, now) for name, data in contents.items()])
+
+
+def snapshot_change_log(conn: sqlite3.Connection) -> list[dict[str, Any]]:
+    """Accepted snapshot changes, oldest first (without the texts)."""
+    tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    if "snapshot_changes" not in tables:
+        return []
+    rows = conn.execute("SELECT change_id, wall_time_s, name, old_sha256, new_sha256, keys, command "
+                        "FROM snapshot_changes ORDER BY change_id").fetchall()
+    return [{**dict(r), "keys": tuple(json.loads(r["keys"]))} for r in rows]

@@ -72,7 +72,8 @@ class Run:
         return [i for i, a in sorted(self.accepted().items()) if a["flags"] or a["analysis"].get("warnings")]
 
     def read_record(self, attempt_id: str) -> RawRecord:
-        return read_record(self.run_dir / self.attempt(attempt_id)["record_file"])
+        a = self.attempt(attempt_id)
+        return read_record(index.record_path(self.run_dir, a["record_file"], attempt_id))
 
     @property
     def kind(self) -> str:
@@ -85,9 +86,10 @@ class Run:
 
 def open_run(run_dir: str | Path, verify: bool = True) -> Run:
     """Read a run; ``verify`` re-hashes each record file against the index (sha256)."""
-    run_dir = Path(run_dir)
-    if not run_dir.is_dir():
-        raise RunNotFound(f"{run_dir}: no such run folder")
+    try:
+        run_dir = index.require_run_folder(run_dir)
+    except index.NotARunFolder as exc:
+        raise RunNotFound(str(exc)) from None
     records = run_dir / RECORDS_DIR
     problems = _leftover_temp_files(run_dir)
     idx = run_dir / index.INDEX_NAME
@@ -144,8 +146,12 @@ def _read_index(run_dir: Path, idx: Path, problems: list[str]) -> Run | None:
 
 
 def _check_file(run_dir: Path, a: dict[str, Any], verify: bool, problems: list[str]) -> str:
-    path = run_dir / a["record_file"]
-    where = f"{path} (point {a['point_index']}, attempt {a['attempt_id']})"
+    try:
+        path = index.record_path(run_dir, a["record_file"], a["attempt_id"])
+    except index.UnsafeRecordPath as exc:
+        problems.append(f"{exc} (point {_point_number(a['point_index'])})")
+        return "refused"
+    where = f"{path} (point {_point_number(a['point_index'])}, attempt {a['attempt_id']})"
     if not path.exists():
         problems.append(f"{where}: record file is missing; the point needs a new attempt (reacquire)")
         return "missing"
@@ -159,6 +165,11 @@ def _check_file(run_dir: Path, a: dict[str, Any], verify: bool, problems: list[s
                         f"not used")
         return "damaged"
     return "ok"
+
+
+def _point_number(point_index: Any) -> str:
+    """A stored point index as users see it (from 1)."""
+    return str(int(point_index) + 1) if isinstance(point_index, int) else "?"
 
 
 def _rebuild_from_records(run_dir: Path, problems: list[str]) -> Run:

@@ -18,6 +18,7 @@ from __future__ import annotations
 import errno
 import hashlib
 import json
+import os
 import platform
 import queue
 import re
@@ -35,6 +36,11 @@ from ..engine.events import Event, EventBus, FaultRaised, PointSettled, SweepFin
 from ..errors import FlamebodeError
 from . import index
 from .record import fsync_dir, write_record
+
+try:
+    import fcntl          # POSIX: the writer lock; without it (Windows) the lock is not taken
+except ImportError:       # pragma: no cover
+    fcntl = None  # type: ignore[assignment]
 
 RECORDS_DIR = "records"
 SNAPSHOT_RIG = "rig.toml"
@@ -155,6 +161,7 @@ class RunWriter:
         self._thread: threading.Thread | None = None
         self._fault: str | None = None
         self._fault_lock = threading.Lock()
+        self._lock_fd: int | None = None
         self.stored: list[str] = []
         try:
             self.records_dir.mkdir(parents=True, exist_ok=True)
@@ -162,26 +169,44 @@ class RunWriter:
             if scenario_path is not None:
                 src = Path(scenario_path)
                 snapshots["scenario"] = (src, f"{SNAPSHOT_SCENARIO}{src.suffix or '.txt'}")
+            self._lock_fd = hold_writer_lock(self.run_dir)
             info: dict[str, Any] = {"tool_version": __version__}
+            contents: dict[str, bytes] = {}
             for key, (src, name) in snapshots.items():
                 _copy_snapshot(src, self.run_dir / name)
+                contents[name] = (self.run_dir / name).read_bytes()
                 info[f"{key}_snapshot"] = name
                 info.setdefault(f"{key}_source", str(src.resolve()))
-                info[f"{key}_sha256"] = sha256_file(self.run_dir / name)
+                info[f"{key}_sha256"] = hashlib.sha256(contents[name]).hexdigest()
             fsync_dir(self.run_dir)
             index.create(self.index_path)
             conn = index.connect(self.index_path)
             try:
                 with conn:
                     old = index.get_info(conn)
-                    info = {k: v for k, v in info.items() if not (k.endswith("_source") and k in old)}
+                    # the snapshots' names, sources and hashes are fixed when the run is created:
+                    # a changed snapshot is only ever recorded as a change (index.accept_snapshot_changes)
+                    keep = ("_source", "_sha256", "_snapshot")
+                    info = {k: v for k, v in info.items() if not (k.endswith(keep) and k in old)}
                     if "created_wall_s" not in old:
                         info["created_wall_s"] = repr(time.time())
                     index.set_info(conn, {**info, **{k: str(v) for k, v in (options or {}).items()}})
+                    # the creation text, kept so that a later change can be named key by key
+                    # (a run made before this table existed gets it while its snapshot is unchanged)
+                    created = {}
+                    for key, (_, name) in snapshots.items():
+                        fixed = old.get(f"{key}_sha256") or info.get(f"{key}_sha256")
+                        if fixed == hashlib.sha256(contents[name]).hexdigest():
+                            created[name] = contents[name]
+                    index.record_creation_snapshots(conn, created)
             finally:
                 conn.close()
         except OSError as exc:
+            self._release_lock()
             raise RunFolderError(f"{self.run_dir}: cannot create the run folder ({exc})") from None
+        except BaseException:
+            self._release_lock()
+            raise
         self.rig_sha256 = sha256_file(self.run_dir / SNAPSHOT_RIG)
         self._channel_map = self._load_channel_map()
         self._versions = library_versions()
@@ -209,13 +234,21 @@ class RunWriter:
     def close(self, timeout_s: float = 30.0) -> None:
         """Store everything queued, then stop the thread (waits at most ``timeout_s``)."""
         if self._thread is None:
+            self._release_lock()
             return
         self._queue.put(_STOP)
         self._thread.join(timeout_s)
         if self._thread.is_alive():
             self._set_fault(f"storage-writer-stuck: the run writer for {self.run_dir} did not finish "
                             f"within {timeout_s:.0f} s; points still queued may not be stored")
+        else:
+            self._release_lock()
         self._thread = None
+
+    def _release_lock(self) -> None:
+        if self._lock_fd is not None:
+            os.close(self._lock_fd)      # closing the descriptor releases the lock
+            self._lock_fd = None
 
     def note(self, values: dict[str, Any]) -> None:
         """Record extra run facts (back-end, scenario, fast flag) in run_info (caller's thread)."""
@@ -368,13 +401,110 @@ class RunWriter:
 
 
 def writer_for_existing_run(run_dir: str | Path, bus: EventBus) -> RunWriter:
-    """A writer that appends to an existing run, using its own snapshots (resume, reacquire)."""
-    run = Path(run_dir)
+    """A writer that appends to an existing run, using its own snapshots (resume, reacquire).
+
+    Refuses (:class:`index.SnapshotChanged`) while a snapshot differs from the version the run
+    accepts; the command accepts a change first when the user asks for it."""
+    run = index.require_run_folder(run_dir)
+    changes = index.snapshot_changes(run)
+    if changes:
+        raise index.SnapshotChanged(refusal_message(run, changes))
     scenarios = sorted(run.glob(f"{SNAPSHOT_SCENARIO}.*"))
     return RunWriter(run, run / SNAPSHOT_RIG, run / SNAPSHOT_PLAN, bus,
                      scenario_path=scenarios[0] if scenarios else None)
 
 
+def refusal_message(run: Path, changes: list[index.SnapshotChange]) -> str:
+    lines = "\n".join(f"  - {c.describe()}" for c in changes)
+    return (f"{run}: {len(changes)} snapshot(s) changed since the run was created; nothing was measured:\n{lines}\n"
+            f"A run keeps the files it was started with. Restore the snapshot, start a new run with the changed "
+            f"file, or pass --accept-changed-snapshot to continue with it (the change is recorded in the run).")
+
+
+# -- the writer lock and leftovers --------------------------------------------------------
+
+LOCK_NAME = "writer.lock"
+SET_ASIDE_DIR = "set-aside"
+
+
+class RunBusy(FlamebodeError):
+    """Another process is writing the run."""
+
+
+def hold_writer_lock(run_dir: Path) -> int:
+    """A shared lock on RUN_DIR/writer.lock held by every writer while it is open (released at
+    close or when the process dies); :func:`set_aside_leftovers` needs it exclusively."""
+    fd = os.open(run_dir / LOCK_NAME, os.O_RDWR | os.O_CREAT, 0o644)
+    deadline = time.monotonic() + 5.0
+    while fcntl is not None:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_SH | fcntl.LOCK_NB)
+            return fd
+        except BlockingIOError:
+            if time.monotonic() > deadline:
+                os.close(fd)
+                raise RunBusy(f"{run_dir}: another command is setting aside leftover files of this run; "
+                              f"try again") from None
+            time.sleep(0.05)
+    return fd
+
+
+def set_aside_leftovers(run_dir: str | Path) -> list[tuple[Path, Path, str]]:
+    """Move unfinished ``.part`` files and record files no index row names into RUN_DIR/set-aside/.
+
+    Nothing is deleted: a leftover keeps its name without the leading dot (so it is not hidden),
+    with ``-2``, ``-3``... added before the suffix if the name is taken. Refuses
+    (:class:`RunBusy`) while a writer holds the run, and moves nothing when the index cannot be
+    read. Returns (from, to, what it was) for every file moved."""
+    run = Path(run_dir)
+    lock = run / LOCK_NAME
+    fd = os.open(lock, os.O_RDWR | os.O_CREAT, 0o644)
+    try:
+        try:
+            if fcntl is not None:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            raise RunBusy(f"{run}: a sweep, resume or re-acquire is still writing this run (it holds "
+                          f"{lock}); wait for it to end or stop it first") from None
+        try:
+            conn = index.connect(run / index.INDEX_NAME, read_only=True, timeout_s=2.0)
+            try:
+                known = {r["record_file"] for r in conn.execute("SELECT record_file FROM attempts")}
+            finally:
+                conn.close()
+        except index.sqlite3.Error:
+            return []
+        leftovers = [(f, "unfinished temporary file from an interrupted write (not data)")
+                     for f in sorted(run.rglob(".tmp-*")) if f.is_file() and f.name.endswith(".part")
+                     and SET_ASIDE_DIR not in f.relative_to(run).parts]
+        records = run / RECORDS_DIR
+        leftovers += [(f, "record file no index row names (written just before an interruption; its point "
+                          "was never acknowledged)")
+                      for f in (sorted(records.glob("*.h5")) if records.is_dir() else ())
+                      if f.is_file() and f"{RECORDS_DIR}/{f.name}" not in known]
+        moved = []
+        if leftovers:
+            dest_dir = run / SET_ASIDE_DIR
+            dest_dir.mkdir(exist_ok=True)
+            for f, why in leftovers:
+                name = f.name.lstrip(".") or "leftover"
+                dest = dest_dir / name
+                n = 1
+                while dest.exists():
+                    n += 1
+                    stem, dot, suffix = name.partition(".")
+                    dest = dest_dir / f"{stem}-{n}{dot}{suffix}"
+                os.rename(f, dest)
+                moved.append((f, dest, why))
+            fsync_dir(dest_dir)
+            for folder in {f.parent for f, _ in leftovers}:
+                fsync_dir(folder)
+        return moved
+    finally:
+        os.close(fd)
+
+
 __all__ = ["RunWriter", "RunFolderError", "writer_for_existing_run", "analysis_from_result",
            "record_file_name", "RECORDS_DIR", "SNAPSHOT_RIG", "SNAPSHOT_PLAN", "SNAPSHOT_SCENARIO",
-           "library_versions", "sha256_file"]
+           "library_versions", "sha256_file", "set_aside_leftovers", "RunBusy", "SET_ASIDE_DIR", "LOCK_NAME",
+           "refusal_message"]
