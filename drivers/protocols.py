@@ -134,6 +134,14 @@ class OutputConfirmation(Protocol):
 
 
 @runtime_checkable
+class Advisories(Protocol):
+    @property
+    def warnings(self) -> tuple[str, ...]:
+        """Plain-language warnings about the back-end as it was opened (empty when all is well),
+        e.g. the simulated burner's rig being linearly unstable with its flame lit."""
+
+
+@runtime_checkable
 class Paced(Protocol):
     """A back-end whose time base can run faster than real time (the simulator)."""
 

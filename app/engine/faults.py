@@ -69,6 +69,9 @@ FAULTS: dict[str, FaultKind] = {f.name: f for f in (
     FaultKind("output-over-ceiling", True, _ABORT,
               "switch the amplifier off; check the generator's output mode (50 ohm / high-Z), the amplifier "
               "gain and the drive reference wiring before driving again"),
+    FaultKind("backend-warning", False, "sweep goes on",
+              "read the warning: on the simulated burner, docs/scenario-file.md says what it means and "
+              "which scenario keys change it"),
     FaultKind("output-above-command", True, _ABORT,
               "check the generator's output load setting (a 50 ohm setting into a high-impedance input doubles "
               "the voltage) and the drive reference channel's wiring and scale"),

@@ -39,7 +39,8 @@ import numpy as np
 from app.core.quality import quality_flags
 from app.errors import FlamebodeError
 from drivers.errors import BackendTimeout, DriverError
-from drivers.protocols import Acquirer, Armable, EmergencyHalt, Identified, OutputConfirmation, SineDrive
+from drivers.protocols import (Acquirer, Advisories, Armable, EmergencyHalt, Identified, OutputConfirmation,
+                               SineDrive)
 
 from . import states as S
 from .controller import AmplitudeController, ControllerSettings, Decision, PointTuner
@@ -311,6 +312,8 @@ class SweepEngine:
                                       plan=self.plan, rig=self.rig))
         self._identity = dict(identity)
         self._set_state(S.PREPARING)
+        for text in (self.drive.warnings if isinstance(self.drive, Advisories) else ()):
+            self.bus.publish(fault_event("backend-warning", text, None))
         if isinstance(self.drive, Armable):     # clear a halt latch; the guard takes this sweep's ceiling
             self.drive.arm(self.ceiling_v)
         self.acquirer.start()
