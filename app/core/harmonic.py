@@ -85,6 +85,10 @@ class HarmonicFit:
     distortion: np.ndarray       # sqrt(Σ|h_k|²)/|â| over fitted harmonics; NaN if none
     rms_residual: np.ndarray     # rms of x − model over the record
     halves: tuple["HarmonicFit", "HarmonicFit"] | None = None  # same model fitted to each half (drift figure)
+    cov_amplitude: np.ndarray | None = None  # complex (n_ch, n_ch): E[δâ δâᴴ]; its diagonal is var_amplitude
+    noise_csd: np.ndarray | None = None      # complex (n_ch, n_ch) one-sided noise cross-spectral density near f,
+                                             # [i, j] = E[X_i X̄_j] (scipy.signal.csd(x[j], x[i])), units²/Hz
+    noise_dof: float = float("inf")          # effective degrees of freedom of the noise estimate (Satterthwaite)
 
     @property
     def duration_s(self) -> float:
@@ -134,7 +138,7 @@ def fit_harmonics(x: np.ndarray, sample_rate_hz: float, freq_hz: float, n_harmon
     gram_inv = np.linalg.inv(gram)
     beta = b @ gram_inv                                                # (n_ch, P)
 
-    var_amp, psd = _noise(hann_proj, rot, beta, template, hann, gram_inv, fs)
+    var_amp, psd, cov_amp, csd, dof = _noise(hann_proj, rot, beta, template, hann, gram_inv, fs, seg.hop)
     rss = np.maximum(sum_sq - np.einsum("cp,cp->c", b, beta), 0.0)
     halves = None
     split = seg.n_full // 2
@@ -149,20 +153,25 @@ def fit_harmonics(x: np.ndarray, sample_rate_hz: float, freq_hz: float, n_harmon
             g_h_inv = np.linalg.inv(g_h)
             beta_h = b_h @ g_h_inv
             # Noise density as in the full record; the variance scales with the part's own Gram matrix.
-            var_h = var_amp / (gram_inv[1, 1] + gram_inv[2, 2]) * (g_h_inv[1, 1] + g_h_inv[2, 2])
-            parts.append(_assemble(beta_h, orders, n_harm, var_h, psd, np.full(beta.shape[0], np.nan), f, fs, n_h))
+            scale = (g_h_inv[1, 1] + g_h_inv[2, 2]) / (gram_inv[1, 1] + gram_inv[2, 2])
+            parts.append(_assemble(beta_h, orders, n_harm, var_amp * scale, psd, np.full(beta.shape[0], np.nan),
+                                   f, fs, n_h, cov=(cov_amp * scale, csd, dof)))
         halves = (parts[0], parts[1])
-    return _assemble(beta, orders, n_harm, var_amp, psd, rss, f, fs, n, halves)
+    return _assemble(beta, orders, n_harm, var_amp, psd, rss, f, fs, n, halves, cov=(cov_amp, csd, dof))
 
 
 def _noise(hann_proj: np.ndarray, rot: np.ndarray, beta: np.ndarray, template: np.ndarray,
-           hann: np.ndarray, gram_inv: np.ndarray, fs: float) -> tuple[np.ndarray, np.ndarray]:
-    """(var_amplitude, one-sided noise PSD at f) from the scatter of Hann-segment fits.
+           hann: np.ndarray, gram_inv: np.ndarray, fs: float, hop: int
+           ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, float]:
+    """(var_amplitude, PSD, amplitude covariance, CSD, degrees of freedom) from Hann-segment fits.
 
     Segment s fits [1, cos ωt, sin ωt] with Hann weights to the residual x − Dβ; its
     projection of the full-record model is subtracted exactly through the cross-Gram
     matrix, so offset and harmonics never leak in. For white noise of density P the
-    fundamental's scatter has E|c_s|² = P (κ_seg − κ_cross,s) exactly (see module notes).
+    fundamental's scatter has E|c_s|² = P (κ_seg − κ_cross,s) exactly (see module notes),
+    and for noise of cross-density P_ij, E[c_s,i c̄_s,j] = P_ij (κ_seg − κ_cross,s): the outer
+    products of the residual phasors give the whole cross-spectral matrix (Bendat & Piersol,
+    Random Data, ch. 9: a cross-spectrum averaged over segments).
     """
     local = template[:, :3]
     gram_h_inv = np.linalg.inv(local.T @ (local * hann[:, None]))
@@ -175,13 +184,42 @@ def _noise(hann_proj: np.ndarray, rot: np.ndarray, beta: np.ndarray, template: n
     cov_cross = seen @ gram_inv @ seen.transpose(0, 2, 1)
     kappa_seg = cov_seg[1, 1] + cov_seg[2, 2]
     kappa_cross = cov_cross[:, 1, 1] + cov_cross[:, 2, 2]
-    density = sum_sq / np.sum(kappa_seg - kappa_cross)                 # two-sided, per sample
-    return density * (gram_inv[1, 1] + gram_inv[2, 2]), 2.0 * density / fs
+    norm = np.sum(kappa_seg - kappa_cross)
+    density = sum_sq / norm                                            # two-sided, per sample
+    phasors = scatter[..., 0] - 1j * scatter[..., 1]                   # (count, n_ch) residual phasors
+    cross_density = phasors.T @ phasors.conj() / norm                  # [i, j] = Σ_s c_i c̄_j / Σκ
+    kappa_full = gram_inv[1, 1] + gram_inv[2, 2]
+    dof = _satterthwaite_dof(cov_seg, seen, gram_inv, gram_h_inv, local * hann[:, None], hop)
+    return density * kappa_full, 2.0 * density / fs, cross_density * kappa_full, 2.0 * cross_density / fs, dof
+
+
+def _satterthwaite_dof(cov_seg: np.ndarray, seen: np.ndarray, gram_inv: np.ndarray,
+                       gram_h_inv: np.ndarray, weighted: np.ndarray, hop: int) -> float:
+    """Effective degrees of freedom ν = (tr C)²/tr C² of the noise estimate Σ_s|c_s|² for white noise.
+
+    C is the exact covariance of the stacked real (cos, sin) residual coefficients of all segments:
+    per segment the Hann fit's own covariance, between half-overlapping neighbours their shared
+    samples, minus the part of the full-record model each pair sees. A quadratic form rᵀr with
+    r ~ N(0, C) is matched to a scaled χ²_ν by its first two moments (Satterthwaite 1946; the
+    Welch–Satterthwaite form of JCGM 100:2008 Annex G).
+    """
+    count = seen.shape[0]
+    stacked = seen[:, 1:3].reshape(2 * count, -1)                    # row 2s + j: coefficient j of segment s
+    c = -(stacked @ gram_inv @ stacked.T)
+    own = cov_seg[1:3, 1:3]
+    overlap = (gram_h_inv @ weighted[hop:].T @ weighted[:hop] @ gram_h_inv)[1:3, 1:3]
+    blocks = c.reshape(count, 2, count, 2)                              # a view: [s, j, t, k]
+    idx = np.arange(count)
+    blocks[idx, :, idx, :] += own
+    blocks[idx[:-1], :, idx[1:], :] += overlap
+    blocks[idx[1:], :, idx[:-1], :] += overlap.T
+    return float(np.trace(c) ** 2 / np.sum(c * c))
 
 
 def _assemble(beta: np.ndarray, orders: np.ndarray, n_harm: int, var_amp: np.ndarray, psd: np.ndarray,
               rss: np.ndarray, f: float, fs: float, n: int,
-              halves: tuple[HarmonicFit, HarmonicFit] | None = None) -> HarmonicFit:
+              halves: tuple[HarmonicFit, HarmonicFit] | None = None,
+              cov: tuple[np.ndarray, np.ndarray, float] | None = None) -> HarmonicFit:
     phasors = beta[:, 1::2] - 1j * beta[:, 2::2]                    # (n_ch, fitted orders)
     amp = phasors[:, 0]
     n_ch = beta.shape[0]
@@ -200,7 +238,9 @@ def _assemble(beta: np.ndarray, orders: np.ndarray, n_harm: int, var_amp: np.nda
     return HarmonicFit(freq_hz=f, sample_rate_hz=fs, n_samples=n, amplitude=amp, offset=beta[:, 0].copy(),
                        harmonics=harmonics, noise_psd=psd, var_amplitude=var_amp, sigma_abs=sigma_abs,
                        sigma_phase_rad=sigma_phase, snr_db=snr_db, distortion=distortion,
-                       rms_residual=np.sqrt(rss / n), halves=halves)
+                       rms_residual=np.sqrt(rss / n), halves=halves,
+                       cov_amplitude=None if cov is None else cov[0], noise_csd=None if cov is None else cov[1],
+                       noise_dof=float("inf") if cov is None else cov[2])
 
 
 def _template(n_idx: np.ndarray, cycles: float, orders: np.ndarray) -> np.ndarray:

@@ -155,6 +155,10 @@ class WaveFit:
     any_pair_in_band: bool
     cov_a: np.ndarray
     pressures_pa: np.ndarray = field(default_factory=lambda: np.zeros(0, complex))
+    estimator: np.ndarray = field(default_factory=lambda: np.zeros((2, 0), complex))  # a = estimator @ p
+    cov_dof: float = float("inf")     # effective degrees of freedom of cov_a
+    generalised: bool = False         # True: weighted by the estimated noise covariance (GLS)
+    variance_inflation: float = 1.0   # factor already in cov_a for weights estimated from the same noise
 
     @property
     def amplitudes(self) -> np.ndarray:
@@ -249,14 +253,26 @@ def decompose(
     weights: np.ndarray | None = None,
     noise_var: np.ndarray | float | None = None,
     damping: bool = True,
+    noise_cov: np.ndarray | None = None,
+    noise_dof: float = float("inf"),
 ) -> WaveFit:
     """Fit A⁺, A⁻ to calibrated pressures ``p_hat`` (Pa) at axial ``positions_m`` (m).
 
     ``weights`` gives a weighted least-squares fit (default: equal weights); ``noise_var`` is
-    each sensor's E|δp|² in Pa² (scalar or per sensor). The covariance of (A⁺, A⁻) is the
-    sandwich (HᴴWH)⁻¹HᴴWΣWH(HᴴWH)⁻¹, which is σ²(HᴴH)⁻¹ for equal noise and weights and
-    (HᴴΣ⁻¹H)⁻¹ for weights = 1/noise_var (the minimum-variance choice). ``cond`` is that of
-    the weighted system (cond(H) for equal weights); ``residual`` is ‖p − Ha‖/‖p‖.
+    each sensor's E|δp|² in Pa² (scalar or per sensor), ``noise_cov`` instead the full
+    covariance Σ = E[δp δpᴴ] (Pa², sensors correlated) estimated with ``noise_dof`` effective
+    (real) degrees of freedom. The covariance of (A⁺, A⁻) is the sandwich
+    (HᴴWH)⁻¹HᴴWΣWH(HᴴWH)⁻¹, which is σ²(HᴴH)⁻¹ for equal noise and weights and (HᴴΣ⁻¹H)⁻¹
+    for W = Σ⁻¹ (generalised least squares, the minimum-variance choice; JCGM 102:2011).
+
+    With ``noise_cov`` estimated from m = noise_dof/2 complex segments and m ≥ 5n (n sensors),
+    the fit is generalised: W = D Σ̂⁻¹ D with D = diag(√weights). Weights estimated from the
+    same noise make the plug-in covariance too small and the estimate noisier, together by
+    (m/(m − n + 2))² for complex Wishart Σ̂ (from the complex Wishart moments, from memory;
+    tests/core check it by Monte Carlo), so cov_a carries that factor and cov_dof = 2(m − n + 2).
+    Below that the rig weights are used with the full Σ̂ in the sandwich (cov_dof = noise_dof).
+    ``cond`` is that of the rig-weighted system (cond(H) for equal weights); ``residual`` is
+    ‖p − Ha‖/‖p‖.
     """
     p = np.asarray(p_hat, dtype=complex)
     x = np.asarray(positions_m, dtype=float)
@@ -267,19 +283,28 @@ def decompose(
     w = _per_sensor(1.0 if weights is None else weights, n, "weights")
     if np.count_nonzero(w) < 2:
         raise MultimicInputError("at least 2 sensors need a weight > 0")
-    sqrt_w = np.sqrt(w)[:, None]
-    hw = sqrt_w * h
-    a, *_ = np.linalg.lstsq(hw, sqrt_w[:, 0] * p, rcond=None)
-    cond = float(np.linalg.cond(hw))
+    sqrt_w = np.sqrt(w)
+    cond = float(np.linalg.cond(sqrt_w[:, None] * h))
+    sigma = _noise_matrix(noise_var, noise_cov, n)
+    weight_matrix, generalised, inflation, dof = np.diag(w).astype(complex), False, 1.0, float(noise_dof)
+    m = noise_dof / 2.0
+    if noise_cov is not None and np.all(w > 0) and m >= 5 * n and n > 2:
+        try:
+            weight_matrix = sqrt_w[:, None] * np.linalg.inv(sigma) * sqrt_w[None, :]
+            generalised = True
+            inflation = (m / (m - n + 2)) ** 2
+            dof = 2.0 * (m - n + 2)
+        except np.linalg.LinAlgError:
+            pass
+    hw = h.conj().T @ weight_matrix
+    bread = np.linalg.pinv(hw @ h)
+    estimator = bread @ hw                                  # a = E p
+    a = estimator @ p
     p_norm = float(np.linalg.norm(p))
     residual = float(np.linalg.norm(p - h @ a)) / p_norm if p_norm > 0 else 0.0
-
     cov = np.zeros((2, 2), dtype=complex)
-    if noise_var is not None:
-        sigma2 = _per_sensor(noise_var, n, "noise_var")
-        bread = np.linalg.pinv(h.conj().T @ (w[:, None] * h))
-        meat = h.conj().T @ ((w**2 * sigma2)[:, None] * h)
-        cov = bread @ meat @ bread
+    if sigma is not None:
+        cov = inflation * (estimator @ sigma @ estimator.conj().T)
 
     in_band = {
         (i, j): pair_in_band(freq_hz, x[j] - x[i], medium) for i, j in combinations(range(n), 2)
@@ -291,8 +316,23 @@ def decompose(
         freq_hz=float(freq_hz), a_plus=complex(a[0]), a_minus=complex(a[1]), cond=cond,
         residual=residual, positions_m=x_ro, k_plus=complex(k_plus), k_minus=complex(k_minus),
         medium=medium, radius_m=float(radius_m), pair_in_band=in_band,
-        any_pair_in_band=any(in_band.values()), cov_a=cov, pressures_pa=p_ro,
+        any_pair_in_band=any(in_band.values()), cov_a=cov, pressures_pa=p_ro, estimator=estimator,
+        cov_dof=dof if sigma is not None else float("inf"), generalised=generalised, variance_inflation=inflation,
     )
+
+
+def _noise_matrix(noise_var: np.ndarray | float | None, noise_cov: np.ndarray | None, n: int) -> np.ndarray | None:
+    """Σ = E[δp δpᴴ] from per-sensor variances or a full covariance (checked Hermitian, n × n)."""
+    if noise_cov is not None:
+        sigma = np.asarray(noise_cov, dtype=complex)
+        if sigma.shape != (n, n) or not np.all(np.isfinite(sigma)):
+            raise MultimicInputError(f"noise_cov must be a finite {n} × {n} matrix, got shape {sigma.shape}")
+        if not np.allclose(sigma, sigma.conj().T, rtol=1e-9, atol=1e-300):
+            raise MultimicInputError("noise_cov must be Hermitian (E[δp δpᴴ])")
+        return 0.5 * (sigma + sigma.conj().T)
+    if noise_var is not None:
+        return np.diag(_per_sensor(noise_var, n, "noise_var")).astype(complex)
+    return None
 
 
 def velocity_at_reference(fit: WaveFit, reference_x_m: float, area_ratio: float) -> tuple[complex, float]:
