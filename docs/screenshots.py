@@ -60,10 +60,16 @@ def _window(runs: Path, scenario: Path | None = None):
     return win
 
 
+def _save(win, path: Path) -> None:
+    if not win.grab().save(str(path)):
+        raise SystemExit(f"could not write {path}")
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--out", default=str(ROOT / "docs"))
     out = Path(parser.parse_args(argv).out)
+    out.mkdir(parents=True, exist_ok=True)
     from PySide6.QtWidgets import QApplication
 
     app = QApplication.instance() or QApplication(sys.argv[:1])
@@ -76,28 +82,28 @@ def main(argv: list[str] | None = None) -> int:
         ed.editor.setPlainText(ed.text().replace('record = "4 s"', 'record = "4 sec"'))
         ed.check()
         _settle(app)
-        win.grab().save(str(out / "setup.png"))
+        _save(win, out / "setup.png")
         ed.load(ed.path)                                # back to the saved text
         # sweep: part-way through, the truth overlay on
         win.start_sweep()
         win.response.truth_box.setChecked(True)
         _wait(app, lambda: win.points.n_done >= 9 and win.status.state == "tuning"
               and len(win.tuning.amp_curve.getData()[0] if win.tuning.amp_curve.getData()[0] is not None else []) >= 2)
-        win.grab().save(str(out / "sweep.png"))       # at once: the views show that state now
+        _save(win, out / "sweep.png")       # at once: the views show that state now
         _wait(app, lambda: win.sweeps_closed >= 1 and win.review.run is not None)
         # review: one point selected, its record and figures shown
         win.tabs.setCurrentWidget(win.review)
         win.review.point_list.select_points([6])
         _wait(app, lambda: "p1" in win.review.record.curves)
         _settle(app, 0.5)
-        win.grab().save(str(out / "review.png"))
+        _save(win, out / "review.png")
         win.close()
         # fault: the flame blows out part-way through
         win = _window(runs, _fault_scenario(Path(tmp)))
         win.start_sweep()
         _wait(app, lambda: win.sweeps_closed >= 1)
         _settle(app)
-        win.grab().save(str(out / "fault.png"))
+        _save(win, out / "fault.png")
         win.close()
         from PySide6.QtCore import QEvent
 

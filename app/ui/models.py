@@ -21,6 +21,7 @@ from typing import Any, Callable
 import numpy as np
 
 from app.engine.events import BlockAcquired, FaultRaised, PointSettled, StateChanged, TuningStep
+from app.storage.index import NEVER_ACCEPTED
 
 
 class Observable:
@@ -257,6 +258,14 @@ class PointTable(Observable):
             return
         res = ev.result
         r.attempts += 1
+        if NEVER_ACCEPTED & set(ev.flags):
+            # a record cut short (halt, abort, fatal fault) is stored as evidence and never
+            # accepted: it must not show as a result; an earlier accepted attempt stays shown
+            if r.status != FAILED:     # a fatal fault at this point is shown as such
+                r.status = (FLAGGED if r.flags else KEPT) if r.decision == "accepted" else REJECTED
+            r.faults.append("interrupted")
+            self.notify()
+            return
         r.flags = tuple(ev.flags)
         r.status = FLAGGED if ev.flags else KEPT
         r.gain, r.phase_rad = float(getattr(res, "gain", math.nan)), float(getattr(res, "phase_rad", math.nan))
