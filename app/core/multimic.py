@@ -255,6 +255,7 @@ def decompose(
     damping: bool = True,
     noise_cov: np.ndarray | None = None,
     noise_dof: float = float("inf"),
+    generalised: bool = True,
 ) -> WaveFit:
     """Fit A⁺, A⁻ to calibrated pressures ``p_hat`` (Pa) at axial ``positions_m`` (m).
 
@@ -270,7 +271,8 @@ def decompose(
     same noise make the plug-in covariance too small and the estimate noisier, together by
     (m/(m − n + 2))² for complex Wishart Σ̂ (from the complex Wishart moments, from memory;
     tests/core check it by Monte Carlo), so cov_a carries that factor and cov_dof = 2(m − n + 2).
-    Below that the rig weights are used with the full Σ̂ in the sandwich (cov_dof = noise_dof).
+    Below that, or with ``generalised`` False, the rig weights are used with the full Σ̂ in the
+    sandwich (cov_dof = noise_dof).
     ``cond`` is that of the rig-weighted system (cond(H) for equal weights); ``residual`` is
     ‖p − Ha‖/‖p‖.
     """
@@ -286,12 +288,12 @@ def decompose(
     sqrt_w = np.sqrt(w)
     cond = float(np.linalg.cond(sqrt_w[:, None] * h))
     sigma = _noise_matrix(noise_var, noise_cov, n)
-    weight_matrix, generalised, inflation, dof = np.diag(w).astype(complex), False, 1.0, float(noise_dof)
+    weight_matrix, used_gls, inflation, dof = np.diag(w).astype(complex), False, 1.0, float(noise_dof)
     m = noise_dof / 2.0
-    if noise_cov is not None and np.all(w > 0) and m >= 5 * n and n > 2:
+    if generalised and noise_cov is not None and np.all(w > 0) and m >= 5 * n and n > 2:
         try:
             weight_matrix = sqrt_w[:, None] * np.linalg.inv(sigma) * sqrt_w[None, :]
-            generalised = True
+            used_gls = True
             inflation = (m / (m - n + 2)) ** 2
             dof = 2.0 * (m - n + 2)
         except np.linalg.LinAlgError:
@@ -317,7 +319,7 @@ def decompose(
         residual=residual, positions_m=x_ro, k_plus=complex(k_plus), k_minus=complex(k_minus),
         medium=medium, radius_m=float(radius_m), pair_in_band=in_band,
         any_pair_in_band=any(in_band.values()), cov_a=cov, pressures_pa=p_ro, estimator=estimator,
-        cov_dof=dof if sigma is not None else float("inf"), generalised=generalised, variance_inflation=inflation,
+        cov_dof=dof if sigma is not None else float("inf"), generalised=used_gls, variance_inflation=inflation,
     )
 
 

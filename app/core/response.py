@@ -4,8 +4,12 @@ Pipeline: harmonic fit of every channel at the forcing frequency → calibrated 
 pressures → multi-microphone plane-wave fit → velocity at the reference plane over the
 mean velocity there → light fluctuation over mean light (dark offset removed) →
 FTF = (Q̂'/Q̄) / (û'_ref/ū_ref), convention x(t) = Re{x̂ e^{+iωt}} (a delay gives a
-falling phase). Uncertainties are propagated from each channel's noise near f and are
-reported as 95 % half-widths; quality figures go with every point.
+falling phase). Uncertainty travels as one covariance (app.core.uncertainty.PhasorCovariance):
+the harmonic fit's noise cross-spectral covariance of all channels, with its degrees of
+freedom, is carried through calibration, the plane-wave fit and the ratios to the means to
+the 2 × 2 covariance of (Q̂'/Q̄, û'/ū); the rig file's systematic terms enter as complex
+directions. Intervals are 95 % half-widths with a Student-t coverage factor; quality figures
+go with every point.
 
 Amplitude ratios here are PEAK values (|û'|/ū with û' the peak amplitude).
 
@@ -24,8 +28,9 @@ from ..rig import Rig
 from . import gas, quality
 from .harmonic import HarmonicFit, fit_harmonics
 from .multimic import Medium, WaveFit, decompose, velocity_at_reference
+from .uncertainty import PhasorCovariance, RatioInterval, ratio_interval
 
-Z95 = 1.959963984540054  # two-sided 95 % quantile of the normal distribution
+Z95 = 1.959963984540054  # two-sided 95 % quantile of the normal distribution (ν = ∞)
 
 
 @dataclass(frozen=True)
@@ -45,6 +50,7 @@ class VelocityEstimate:
     any_pair_in_band: bool
     pressure_peak_pa: float        # largest sensor pressure amplitude
     wave_fit: WaveFit = field(repr=False)
+    dof: float = float("inf")      # effective degrees of freedom of var_velocity_ref
 
 
 @dataclass(frozen=True)
@@ -61,6 +67,8 @@ class FtfPoint:
     phase_ci95_rad: float          # 95 % half-width of the phase
     quality: dict[str, float]
     warnings: tuple[str, ...] = ()
+    covariance: PhasorCovariance | None = field(default=None, repr=False)  # of (Q̂'/Q̄, û'/ū)
+    interval: RatioInterval | None = None  # standard uncertainties, dof, coverage factors
 
     @property
     def amplitude_ratio(self) -> float:
@@ -132,33 +140,53 @@ def _fit(arr: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_h
         raise RecordError(text) from None
 
 
+def channel_covariance(fit: HarmonicFit) -> PhasorCovariance:
+    """The harmonic fit's E[δa δaᴴ] over all channels (volts²) with its degrees of freedom."""
+    matrix = fit.cov_amplitude if fit.cov_amplitude is not None else np.diag(fit.var_amplitude).astype(complex)
+    return PhasorCovariance(np.asarray(matrix, dtype=complex), float(fit.noise_dof))
+
+
 def _velocity_from_fit(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow,
-                       medium: Medium, harmonic: int = 1) -> tuple[complex, float, WaveFit]:
-    """û_ref and its variance at ``harmonic`` × the forcing frequency from one harmonic fit."""
+                       medium: Medium, harmonic: int = 1, generalised: bool = True
+                       ) -> tuple[complex, float, WaveFit, np.ndarray]:
+    """û_ref, its variance, the wave fit and the row r with δû_ref = r·δa over all channels.
+
+    At the forcing frequency the pressures' full noise covariance goes into the plane-wave fit
+    (generalised least squares when it is well estimated and ``generalised``); r includes the fit's inflation for
+    weights estimated from the same noise, so var = r Σ r̄ᵀ. At harmonics only û is wanted.
+    """
     freq = fit.freq_hz * harmonic
     corr = np.array([s.correction(freq) for s in rig.pressure_sensors])
     if harmonic == 1:
         volts = fit.amplitude[prep.pressure_rows]
     else:
         volts = fit.harmonics[prep.pressure_rows, harmonic - 2]
-    p_hat = volts / prep.sensitivities * corr
-    noise_var = fit.var_amplitude[prep.pressure_rows] * np.abs(corr / prep.sensitivities) ** 2
+    scale = corr / prep.sensitivities                              # volts → calibrated pascals
+    p_hat = volts * scale
+    noise_cov = None
+    if harmonic == 1:
+        cov = channel_covariance(fit)
+        noise_cov = cov.matrix[np.ix_(prep.pressure_rows, prep.pressure_rows)] * np.outer(scale, scale.conj())
     wf = decompose(p_hat, prep.positions_m, freq, rig.duct.radius_m, medium,
-                   weights=prep.weights, noise_var=noise_var)
+                   weights=prep.weights, noise_cov=noise_cov, noise_dof=fit.noise_dof, generalised=generalised)
     u_ref, var_u = velocity_at_reference(wf, rig.duct.reference_plane, rig.duct.area_ratio)
-    return complex(u_ref), float(var_u), wf
+    row = np.zeros(fit.amplitude.size, dtype=complex)
+    row[prep.pressure_rows] = (np.sqrt(wf.variance_inflation) * rig.duct.area_ratio
+                               * (wf._g(rig.duct.reference_plane) @ wf.estimator) * scale)
+    return complex(u_ref), float(var_u), wf, row
 
 
-def _systematic_variance(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow,
-                         vel_ratio: complex) -> float:
-    """E|δ(û/ū)|² from the rig file's stated standard uncertainties of the gas temperature and
-    of each sensor's position (GUM type B), by finite differences through the same fit.
+def _systematic_directions(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow,
+                           vel_ratio: complex) -> np.ndarray:
+    """Complex shifts δ_k of û/ū for one standard uncertainty of each systematic input.
 
-    A wrong temperature shifts the speed of sound, the density and the metered mean velocity;
-    a wrong position shifts the plane-wave fit. The errors are small, so each contribution is
-    linear in its error and they add as independent variances.
+    The inputs are the rig file's stated standard uncertainties of the gas temperature and of
+    each sensor's position (GUM type B), taken by finite differences through the same fit. A
+    wrong temperature shifts the speed of sound, the density and the metered mean velocity; a
+    wrong position shifts the plane-wave fit. Each moves û/ū in a definite complex direction,
+    so gain and phase get Σ Re(δ_k/U)² and Σ Im(δ_k/U)² (JCGM 100:2008 §5.1.2), not |δ|²/2 each.
     """
-    total = 0.0
+    shifts: list[complex] = []
     d_t = rig.gas.temperature_uncertainty
     if d_t > 0:
         g = rig.gas
@@ -166,16 +194,16 @@ def _systematic_variance(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.
         warm = rig.model_copy(update={"gas": g.model_copy(update={"temperature": g.temperature + d_t,
                                                                     "temperature_at_reference": t_ref})})
         mean_w = gas.mean_flow(warm)
-        u_w, _, _ = _velocity_from_fit(fit, prep, warm, mean_w, medium_from(mean_w))
-        total += abs(u_w / mean_w.velocity_reference_m_s - vel_ratio) ** 2
+        u_w = _velocity_from_fit(fit, prep, warm, mean_w, medium_from(mean_w))[0]
+        shifts.append(u_w / mean_w.velocity_reference_m_s - vel_ratio)
     medium = medium_from(mean)
     for i, sensor in enumerate(rig.pressure_sensors):
         if sensor.position_uncertainty > 0:
             moved = prep.positions_m.copy()
             moved[i] += sensor.position_uncertainty
-            u_m, _, _ = _velocity_from_fit(fit, replace(prep, positions_m=moved), rig, mean, medium)
-            total += abs(u_m / mean.velocity_reference_m_s - vel_ratio) ** 2
-    return float(total)
+            u_m = _velocity_from_fit(fit, replace(prep, positions_m=moved), rig, mean, medium)[0]
+            shifts.append(u_m / mean.velocity_reference_m_s - vel_ratio)
+    return np.array(shifts, dtype=complex)
 
 
 def _mean_flow(rig: Rig, mean_flow: gas.MeanFlow | None) -> gas.MeanFlow:
@@ -193,14 +221,24 @@ def _fit_record(data: np.ndarray, channels: Sequence[str], sample_rate_hz: float
 
 def measure_velocity(data: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float,
                      rig: Rig, mean_flow: gas.MeanFlow | None = None) -> VelocityEstimate:
-    """Velocity amplitude at the reference plane from one window (used while tuning)."""
+    """Velocity amplitude at the reference plane from one window (used while tuning).
+
+    Tuning windows use the rig's sensor weights, not weights estimated from the window's own
+    noise: the controller compares successive short windows and wants the steadier estimate.
+    Its variance still carries the full noise covariance.
+    """
     _, prep, mean, fit = _fit_record(data, channels, sample_rate_hz, freq_hz, rig, mean_flow, 1)
-    return _velocity_estimate(fit, prep, rig, mean)
+    return _velocity_and_row(fit, prep, rig, mean, generalised=False)[0]
 
 
 def _velocity_estimate(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow) -> VelocityEstimate:
+    return _velocity_and_row(fit, prep, rig, mean)[0]
+
+
+def _velocity_and_row(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow, generalised: bool = True
+                      ) -> tuple[VelocityEstimate, np.ndarray]:
     medium = medium_from(mean)
-    u_ref, var_u, wf = _velocity_from_fit(fit, prep, rig, mean, medium)
+    u_ref, var_u, wf, row = _velocity_from_fit(fit, prep, rig, mean, medium, generalised=generalised)
     u_mean = mean.velocity_reference_m_s
     ratio = abs(u_ref) / u_mean
     p_peak = float(np.max(np.abs(fit.amplitude[prep.pressure_rows] / prep.sensitivities)))
@@ -210,14 +248,14 @@ def _velocity_estimate(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.Me
         sigma_ratio=float(np.sqrt(var_u / 2.0) / u_mean), var_velocity_ref=var_u,
         mean_velocity_ref_m_s=u_mean, drive_phasor=drive, cond=float(wf.cond), residual=float(wf.residual),
         pair_spread=float(wf.pair_spread_at(rig.duct.reference_plane)), any_pair_in_band=bool(wf.any_pair_in_band),
-        pressure_peak_pa=p_peak, wave_fit=wf)
+        pressure_peak_pa=p_peak, wave_fit=wf, dof=float(wf.cov_dof)), row
 
 
 def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float,
                    rig: Rig, mean_flow: gas.MeanFlow | None = None) -> FtfPoint:
     """Evaluate one record into an FTF point with 95 % intervals and quality figures."""
     arr, prep, mean, fit = _fit_record(data, channels, sample_rate_hz, freq_hz, rig, mean_flow, 3)
-    vel = _velocity_estimate(fit, prep, rig, mean)
+    vel, row_u = _velocity_and_row(fit, prep, rig, mean)
     medium = medium_from(mean)
 
     light_mean = float(fit.offset[prep.light_row]) - rig.light.dark_offset
@@ -229,24 +267,27 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
                           f"forcing: no flame, a flame going out or re-lighting during the record, or a wrong "
                           f"dark offset")
     light_ratio = complex(fit.amplitude[prep.light_row]) / light_mean
-    var_light_ratio = float(fit.var_amplitude[prep.light_row]) / light_mean**2
 
     vel_ratio = vel.velocity_ref / vel.mean_velocity_ref_m_s
-    var_vel_ratio = vel.var_velocity_ref / vel.mean_velocity_ref_m_s**2
     if vel_ratio == 0:
         raise RecordError("velocity amplitude at the reference plane is zero: no forcing in this record")
     ftf = light_ratio / vel_ratio
-    sys_var = _systematic_variance(fit, prep, rig, mean, vel_ratio)
-    # First-order propagation of independent complex errors: δF/F = δL/L − δU/U; the random
-    # part from each channel's noise near f, the systematic part from the rig file's stated
-    # temperature and position uncertainties.
-    rel_var_random = var_light_ratio / max(abs(light_ratio) ** 2, 1e-300) + var_vel_ratio / abs(vel_ratio) ** 2
-    rel_var_sys = sys_var / abs(vel_ratio) ** 2
-    sigma_rel = float(np.sqrt((rel_var_random + rel_var_sys) / 2.0))
+    # One covariance from the channels to (Q̂'/Q̄, û'/ū): rows of the linear maps from the channel
+    # phasors; the light's and the pressures' noise correlations enter through the cross term.
+    row_light = np.zeros(fit.amplitude.size, dtype=complex)
+    row_light[prep.light_row] = 1.0 / light_mean
+    cov_ch = channel_covariance(fit)
+    pair = cov_ch.propagate(np.vstack([row_light, row_u / vel.mean_velocity_ref_m_s]))
+    pair = PhasorCovariance(pair.matrix, min(cov_ch.dof, vel.dof))
+    directions = -_systematic_directions(fit, prep, rig, mean, vel_ratio) / vel_ratio   # δF/F = −δU/U
+    interval = ratio_interval(light_ratio, vel_ratio, pair, directions)
+    rel_var_random = interval.random_rel_var
+    rel_var_sys = interval.systematic_gain_var + interval.systematic_phase_var
+    sigma_rel = float(np.sqrt(0.5 * (interval.sigma_gain_rel**2 + interval.sigma_phase_rad**2)))
     gain = abs(ftf)
 
-    u2, _, _ = _velocity_from_fit(fit, prep, rig, mean, medium, harmonic=2)
-    u3, _, _ = _velocity_from_fit(fit, prep, rig, mean, medium, harmonic=3)
+    u2 = _velocity_from_fit(fit, prep, rig, mean, medium, harmonic=2)[0]
+    u3 = _velocity_from_fit(fit, prep, rig, mean, medium, harmonic=3)[0]
     figures = {
         "snr_db_pressure_min": float(np.min(fit.snr_db[prep.pressure_rows])),
         "snr_db_light": float(fit.snr_db[prep.light_row]),
@@ -260,6 +301,13 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
         "relative_uncertainty": sigma_rel,
         "relative_uncertainty_random": float(np.sqrt(rel_var_random / 2.0)),
         "relative_uncertainty_systematic": float(np.sqrt(rel_var_sys / 2.0)),
+        "sigma_gain_rel": interval.sigma_gain_rel,
+        "sigma_phase_rad": interval.sigma_phase_rad,
+        "dof_gain": interval.dof_gain,
+        "dof_phase": interval.dof_phase,
+        "coverage_factor_gain": interval.k_gain,
+        "coverage_factor_phase": interval.k_phase,
+        "interval_linear": float(interval.linear),
     }
     # SNR of every channel at the forcing frequency, by channel name.
     figures.update({f"snr_db_ch_{name}": float(db) for name, db in zip(channels, fit.snr_db)})
@@ -268,8 +316,8 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
         warnings.append(f"at {freq_hz:g} Hz no sensor pair lies in its usable band (0.1π < ks < 0.8π)")
     return FtfPoint(freq_hz=float(freq_hz), velocity=vel, light_ratio=light_ratio, ftf=complex(ftf),
                     gain=float(gain), phase_rad=float(np.angle(ftf)),
-                    gain_ci95=Z95 * sigma_rel * gain, phase_ci95_rad=Z95 * sigma_rel,
-                    quality=figures, warnings=tuple(warnings))
+                    gain_ci95=interval.gain_ci95, phase_ci95_rad=interval.phase_ci95_rad,
+                    quality=figures, warnings=tuple(warnings), covariance=pair, interval=interval)
 
 
 def point_summary(point: FtfPoint) -> Mapping[str, object]:
