@@ -2,11 +2,17 @@
 
 Shared by the rig file, the sweep plan and the simulator's scenario: a syntax error names
 the line, a validation problem names the key (``duct.diametre: unknown key``), and every
-message starts with the file. Imports: standard library, pydantic, ``app.errors``.
+message starts with the file. A file is validated with ``units_required`` (a bare number
+where a unit is ambiguous is refused, see ``app.units``); a dict built by a program is SI.
+A file whose every table has defaults (the scenario) is also checked for being cut short:
+it must end with a line break and have no empty table, so a truncated file is an error
+naming the line instead of a silent fall-back to defaults.
+Imports: standard library, pydantic, ``app.errors``.
 """
 
 from __future__ import annotations
 
+import re
 import tomllib
 from pathlib import Path
 from typing import Any, TypeVar
@@ -18,8 +24,11 @@ from .errors import ConfigError
 M = TypeVar("M", bound=BaseModel)
 
 
-def read_toml(path: str | Path) -> dict[str, Any]:
-    """Read a TOML file or raise ConfigError naming the file and the line."""
+def read_toml(path: str | Path, complete: bool = False) -> dict[str, Any]:
+    """Read a TOML file or raise ConfigError naming the file and the line.
+
+    With ``complete``, a file that ends in the middle of a line or holds an empty table is
+    refused as possibly cut short (for files whose missing keys would silently default)."""
     p = Path(path)
     try:
         text = p.read_text(encoding="utf-8")
@@ -28,9 +37,57 @@ def read_toml(path: str | Path) -> dict[str, Any]:
     except (OSError, UnicodeDecodeError) as exc:
         raise ConfigError(str(p), [f"cannot read file: {exc}"]) from None
     try:
-        return tomllib.loads(text)
+        data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(str(p), [f"not valid TOML: {exc}"]) from None
+        why = str(exc)
+        if why.endswith("(at end of document)"):   # tomllib names no line there: name the last one
+            why = why.removesuffix("(at end of document)") + (
+                f"(at line {text.count(chr(10)) + (0 if text.endswith(chr(10)) else 1)}, the end of the file: "
+                f"it may have been cut short)")
+        raise ConfigError(str(p), [f"not valid TOML: {why}"]) from None
+    if complete:
+        problems = _cut_short(text, data)
+        if problems:
+            raise ConfigError(str(p), problems)
+    return data
+
+
+def _cut_short(text: str, data: dict[str, Any]) -> list[str]:
+    """Signs that a file was truncated: no final line break, or a table with nothing in it."""
+    problems = []
+    if text and not text.endswith(("\n", "\r")):
+        n = text.count("\n") + 1
+        problems.append(f"line {n}: the file ends in the middle of a line, so it may have been cut short "
+                        f"(a complete file ends with a line break)")
+    for key in _empty_tables(data):
+        line = _header_line(text, key)
+        where = f"line {line}: " if line else ""
+        problems.append(f"{where}table [{key}] is empty, so the file may have been cut short "
+                        f"(give its keys or remove the table)")
+    return problems
+
+
+def _empty_tables(data: Any, prefix: str = "") -> list[str]:
+    out: list[str] = []
+    items = data.items() if isinstance(data, dict) else enumerate(data) if isinstance(data, list) else ()
+    for k, v in items:
+        key = f"{prefix}[{k}]" if isinstance(k, int) else (f"{prefix}.{k}" if prefix else str(k))
+        if isinstance(v, dict) and not v:
+            out.append(key)
+        elif isinstance(v, (dict, list)):
+            out += _empty_tables(v, key)
+    return out
+
+
+def _header_line(text: str, key: str) -> int | None:
+    """Line number of ``[key]`` (or ``key = {}``) in ``text``, if it can be found."""
+    dotted = re.escape(re.sub(r"\[\d+\]", "", key)).replace(r"\.", r"[ \t]*\.[ \t]*")
+    last = re.escape(key.rsplit(".", 1)[-1])
+    for pattern in (rf"^[ \t]*\[+[ \t]*{dotted}[ \t]*\]+", rf"^[ \t]*{last}[ \t]*=[ \t]*\{{[ \t]*\}}"):
+        m = re.search(pattern, text, flags=re.MULTILINE)
+        if m:
+            return text.count("\n", 0, m.start()) + 1
+    return None
 
 
 def format_validation_error(path: str, err: ValidationError, reference: str = "docs/rig-file.md") -> ConfigError:
@@ -43,21 +100,31 @@ def format_validation_error(path: str, err: ValidationError, reference: str = "d
             msg = f"unknown key (check spelling; see {reference})"
         elif e["type"] == "missing":
             msg = "required key is missing"
+        elif e["type"] != "value_error" and isinstance(e.get("input"), (str, int, float, bool)):
+            msg = f"{msg} (got {e['input']!r})"
         problems.append(f"{loc or '(top level)'}: {msg}")
     return ConfigError(path, problems)
 
 
-def model_from_dict(model: type[M], data: dict[str, Any], path: str, reference: str) -> M:
-    """Validate ``data`` as ``model`` (its ``source_path`` set to ``path``) or raise a named ConfigError."""
+def model_from_dict(model: type[M], data: dict[str, Any], path: str, reference: str,
+                    units_required: bool = False) -> M:
+    """Validate ``data`` as ``model`` (its ``source_path`` set to ``path``) or raise a named ConfigError.
+
+    ``units_required``: ``data`` was read from a file, so a bare number where a unit is
+    ambiguous is refused (``app.units.UNIT_REQUIRED``)."""
     try:
-        return model.model_validate({**data, "source_path": str(path)})
+        return model.model_validate({**data, "source_path": str(path)},
+                                    context={"units_required": units_required})
     except ValidationError as err:
         raise format_validation_error(str(path), err, reference) from None
 
 
-def load_model(model: type[M], path: str | Path, reference: str, source_path: str | None = None) -> M:
-    """Read and validate a TOML file as ``model``; ``reference`` names the doc of its keys."""
-    data = read_toml(path)
+def load_model(model: type[M], path: str | Path, reference: str, source_path: str | None = None,
+               complete: bool = False, units_required: bool = True) -> M:
+    """Read and validate a TOML file as ``model``; ``reference`` names the doc of its keys.
+
+    ``complete``: refuse a file that looks cut short (see :func:`read_toml`)."""
+    data = read_toml(path, complete=complete)
     if "source_path" in data:
         raise ConfigError(str(path), [f"source_path: unknown key (check spelling; see {reference})"])
-    return model_from_dict(model, data, source_path or str(path), reference)
+    return model_from_dict(model, data, source_path or str(path), reference, units_required=units_required)
