@@ -7,8 +7,11 @@ key). ``Plan.points()`` lists the points in measuring order and
 ``Plan.estimated_duration_s()`` estimates the run time, so a plan can be printed, checked
 and tested without hardware. Forcing amplitudes are |u'|/u_mean at the reference plane,
 stated as peak or rms values (``amplitude.basis``); the engine tunes on the peak value.
+Every number is finite and within the bounds stated key by key in docs/plan-file.md
+(``app.bounds``), and a plan whose estimated run time exceeds :data:`MAX_RUN_S` is refused.
 
-Imports: standard library, numpy, pydantic, ``app.units``, ``app.errors`` and ``app.rig`` only.
+Imports: standard library, numpy, pydantic, ``app.units``, ``app.bounds``, ``app.configfile``,
+``app.errors`` and ``app.rig`` only.
 """
 
 from __future__ import annotations
@@ -16,27 +19,23 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated, Any, Literal
+from typing import Any, Literal
 
 import numpy as np
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from .errors import ConfigError
+from .bounds import number, quantity
 from .configfile import load_model, model_from_dict
-from .rig import Rig
-from .units import parse_quantity
+from .errors import ConfigError
+from .rig import MAX_CEILING_V, Rig
 
-
-def _q(kind: str):
-    return BeforeValidator(lambda v: parse_quantity(v, kind))
-
-
-Frequency = Annotated[float, _q("frequency"), Field(gt=0.0)]
-Duration = Annotated[float, _q("time"), Field(ge=0.0)]
-PositiveDuration = Annotated[float, _q("time"), Field(gt=0.0)]
-Voltage = Annotated[float, _q("voltage"), Field(gt=0.0)]
-SmallVoltage = Annotated[float, _q("voltage"), Field(ge=0.0)]
-Pressure = Annotated[float, _q("pressure"), Field(gt=0.0)]
+# Bounds (SI; docs/plan-file.md states them key by key)
+Frequency = quantity("frequency", 1.0, 1e5, unit="Hz")
+Ceiling = quantity("voltage", 0.0, MAX_CEILING_V, lo_open=True, unit="V")
+Decibels = number(-100.0, 200.0)
+MAX_FREQUENCIES = 10000
+MAX_POINTS = 10000
+MAX_RUN_S = 3 * 86400.0      # a sweep estimated to take longer than three days is refused
 
 RMS_TO_PEAK = math.sqrt(2.0)
 
@@ -45,20 +44,20 @@ PLAN_DOC = "docs/plan-file.md"
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
 class LinearRange(_Strict):
     start: Frequency
     stop: Frequency
-    step: Frequency
+    step: quantity("frequency", 0.0, 1e5, lo_open=True, unit="Hz")
 
     @model_validator(mode="after")
     def _order(self) -> "LinearRange":
         if self.stop < self.start:
             raise ValueError("'stop' must not be below 'start'")
-        if (self.stop - self.start) / self.step > 10000:
-            raise ValueError("more than 10000 frequencies; use a larger 'step'")
+        if (self.stop - self.start) / self.step >= MAX_FREQUENCIES:
+            raise ValueError(f"more than {MAX_FREQUENCIES} frequencies; use a larger 'step'")
         return self
 
     def values(self) -> np.ndarray:
@@ -69,8 +68,8 @@ class LinearRange(_Strict):
 class LogRange(_Strict):
     start: Frequency
     stop: Frequency
-    count: int | None = Field(default=None, ge=2, le=10000)
-    per_decade: int | None = Field(default=None, ge=1, le=1000)
+    count: number(2, MAX_FREQUENCIES, integer=True) | None = None
+    per_decade: number(1, 1000, integer=True) | None = None
 
     @model_validator(mode="after")
     def _one(self) -> "LogRange":
@@ -88,7 +87,7 @@ class LogRange(_Strict):
 
 
 class Frequencies(_Strict):
-    values: tuple[Frequency, ...] = ()
+    values: tuple[Frequency, ...] = Field(default=(), max_length=MAX_FREQUENCIES)
     linear: LinearRange | None = None
     log: LogRange | None = None
 
@@ -109,7 +108,7 @@ class Frequencies(_Strict):
 
 
 class Amplitude(_Strict):
-    values: tuple[Annotated[float, Field(gt=0.0, lt=2.0)], ...] = Field(min_length=1)
+    values: tuple[number(0.0, 2.0, lo_open=True, hi_open=True), ...] = Field(min_length=1, max_length=100)
     basis: Literal["peak", "rms"]
 
     @property
@@ -124,11 +123,11 @@ class Order(_Strict):
 
 
 class Timing(_Strict):
-    record: PositiveDuration
-    settle: Duration = 0.5
-    settle_periods: float = Field(default=0.0, ge=0.0)
-    tuning_window: PositiveDuration = 0.3
-    tuning_discard: Duration = 0.1
+    record: quantity("time", 0.01, 3600.0, unit="s")
+    settle: quantity("time", 0.0, 3600.0, unit="s") = 0.5
+    settle_periods: number(0.0, 1e5) = 0.0
+    tuning_window: quantity("time", 0.01, 60.0, unit="s") = 0.3
+    tuning_discard: quantity("time", 0.0, 60.0, unit="s") = 0.1
 
     def settle_s(self, freq_hz: float) -> float:
         """Settle time: the longer of the seconds and the periods given."""
@@ -136,33 +135,33 @@ class Timing(_Strict):
 
 
 class Tuning(_Strict):
-    tolerance: float = Field(default=0.05, gt=0.0, lt=0.5)
-    max_steps: int = Field(default=8, ge=1, le=100)
-    ceiling: Voltage | None = None
-    first_drive_fraction: float = Field(default=0.002, gt=0.0, le=1.0)
-    max_step_factor: float = Field(default=4.0, gt=1.0, le=100.0)
+    tolerance: number(0.0, 0.5, lo_open=True, hi_open=True) = 0.05
+    max_steps: number(1, 100, integer=True) = 8
+    ceiling: Ceiling | None = None
+    first_drive_fraction: number(0.0, 1.0, lo_open=True) = 0.002
+    max_step_factor: number(1.0, 100.0, lo_open=True) = 4.0
     when_unreachable: Literal["record-at-ceiling", "skip"] = "record-at-ceiling"
-    prior: tuple[tuple[Frequency, Annotated[float, Field(gt=0.0)]], ...] = ()
+    prior: tuple[tuple[Frequency, number(0.0, 1e6, lo_open=True)], ...] = Field(default=(), max_length=MAX_FREQUENCIES)
 
 
 class Quality(_Strict):
-    snr_db_min: float = 20.0
-    residual_max: float = Field(default=0.2, gt=0.0)
-    pair_spread_max: float = Field(default=0.2, gt=0.0)
-    distortion_max: float = Field(default=0.1, gt=0.0)
-    drift_max: float = Field(default=0.05, gt=0.0)
-    cond_max: float = Field(default=10.0, gt=1.0)
+    snr_db_min: Decibels = 20.0
+    residual_max: number(0.0, 10.0, lo_open=True) = 0.2
+    pair_spread_max: number(0.0, 10.0, lo_open=True) = 0.2
+    distortion_max: number(0.0, 10.0, lo_open=True) = 0.1
+    drift_max: number(0.0, 10.0, lo_open=True) = 0.05
+    cond_max: number(1.0, 1e6, lo_open=True) = 10.0
 
 
 class FaultLimits(_Strict):
-    pressure_max: Pressure = 2000.0
-    clip_fraction: float = Field(default=0.98, gt=0.5, le=1.0)
-    flame_out_fraction: float = Field(default=0.3, gt=0.0, lt=1.0)
-    light_drift_max: float = Field(default=0.15, gt=0.0)
-    dead_rms: SmallVoltage = 2e-5
-    noisy_snr_db_min: float = 0.0
-    backend_timeout: PositiveDuration = 5.0
-    store_timeout: PositiveDuration = 30.0
+    pressure_max: quantity("pressure", 1.0, 1e5, unit="Pa") = 2000.0
+    clip_fraction: number(0.5, 1.0, lo_open=True) = 0.98
+    flame_out_fraction: number(0.0, 1.0, lo_open=True, hi_open=True) = 0.3
+    light_drift_max: number(0.0, 10.0, lo_open=True) = 0.15
+    dead_rms: quantity("voltage", 0.0, 1.0, unit="mV") = 2e-5
+    noisy_snr_db_min: Decibels = 0.0
+    backend_timeout: quantity("time", 0.1, 600.0, unit="s") = 5.0
+    store_timeout: quantity("time", 1.0, 3600.0, unit="s") = 30.0
 
 
 @dataclass(frozen=True)
@@ -187,6 +186,25 @@ class Plan(_Strict):
     quality: Quality = Quality()
     faults: FaultLimits = FaultLimits()
     source_path: str = ""
+
+    @model_validator(mode="after")
+    def _size(self) -> "Plan":
+        n = self.frequencies.all_hz().size * len(set(self.amplitude.values))
+        if n > MAX_POINTS:
+            raise ValueError(f"{n} points (frequencies x amplitudes); at most {MAX_POINTS} in one plan")
+        problem = self.duration_problem()
+        if problem:
+            raise ValueError(problem)
+        return self
+
+    def duration_problem(self, ramp_time_s: float = 0.3) -> str | None:
+        """Why the estimated run time is too long, or None (at most :data:`MAX_RUN_S`)."""
+        est = self.estimated_duration_s(ramp_time_s=ramp_time_s)
+        if est <= MAX_RUN_S:
+            return None
+        return (f"the sweep would take about {est / 86400:.1f} days (estimated: {len(self.points())} points, "
+                f"timing.record {self.timing.record:g} s, settle up to {self.timing.settle_s(self.frequencies.all_hz().min()):g} s); "
+                f"at most {MAX_RUN_S / 86400:g} days per run: use fewer points or shorter records and settle times")
 
     def points(self) -> list[PlanPoint]:
         freqs = self.frequencies.all_hz()
@@ -214,6 +232,9 @@ class Plan(_Strict):
         f_max = float(self.frequencies.all_hz().max())
         if f_max >= 0.8 * nyquist:
             problems.append(f"frequencies: {f_max:g} Hz is too close to half the sample rate ({nyquist:g} Hz)")
+        too_long = self.duration_problem(ramp_time_s=rig.drive.ramp_time)
+        if too_long:
+            problems.append(too_long)
         if problems:
             raise ConfigError(self.source_path or "<plan>", problems)
 
@@ -271,13 +292,16 @@ class Plan(_Strict):
         return p if p.is_absolute() else Path(self.source_path).parent / p
 
 
-def plan_from_dict(data: dict[str, Any], path: str = "<plan>") -> Plan:
-    return model_from_dict(Plan, data, str(path), PLAN_DOC)
+def plan_from_dict(data: dict[str, Any], path: str = "<plan>", units_required: bool = False) -> Plan:
+    """Validate a plan given as a dict: SI numbers, or with ``units_required`` (the text of a file) units."""
+    return model_from_dict(Plan, data, str(path), PLAN_DOC, units_required=units_required)
 
 
-def load_plan(path: str | Path, rig: Rig | None = None) -> Plan:
-    """Load and validate a plan file; with ``rig``, also check it against that rig."""
-    plan = load_model(Plan, path, PLAN_DOC)
+def load_plan(path: str | Path, rig: Rig | None = None, units_required: bool = True) -> Plan:
+    """Load and validate a plan file; with ``rig``, also check it against that rig.
+
+    ``units_required=False`` reads an old file's bare durations as seconds."""
+    plan = load_model(Plan, path, PLAN_DOC, units_required=units_required)
     if rig is not None:
         plan.check_against(rig)
     return plan

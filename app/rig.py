@@ -5,7 +5,11 @@ message names the file, the key and what is wrong. Axial positions are measured 
 the duct axis in the flow direction; the reference plane (usually the burner exit) is
 given explicitly and every pressure sensor must lie upstream of it inside the duct.
 
-Imports: standard library, pydantic and ``app.units`` / ``app.errors`` only.
+Every number is finite and within the bounds stated key by key in docs/rig-file.md
+(``app.bounds``); in a file, a bare number where a unit is ambiguous is refused.
+
+Imports: standard library, pydantic and ``app.units`` / ``app.bounds`` / ``app.configfile`` /
+``app.errors`` only.
 """
 
 from __future__ import annotations
@@ -16,22 +20,19 @@ from typing import Annotated, Any
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator, model_validator
 
+from .bounds import number, quantity
 from .configfile import load_model, model_from_dict, read_toml  # noqa: F401 (read_toml is re-exported)
-from .units import parse_quantity
 
-
-def _q(kind: str):
-    return BeforeValidator(lambda v: parse_quantity(v, kind))
-
-
-Length = Annotated[float, _q("length")]
-Temperature = Annotated[float, _q("temperature"), Field(gt=150.0, lt=3500.0)]
-Pressure = Annotated[float, _q("pressure"), Field(gt=1e3, lt=1e7)]
-Voltage = Annotated[float, _q("voltage")]
-Sensitivity = Annotated[float, _q("sensitivity"), Field(gt=0.0)]
-Frequency = Annotated[float, _q("frequency"), Field(gt=0.0)]
-Duration = Annotated[float, _q("time"), Field(ge=0.0)]
-VolumeFlow = Annotated[float, _q("volume_flow"), Field(ge=0.0)]
+# Bounds of every number (SI; see docs/rig-file.md, which states them key by key). Wide enough
+# for any laboratory rig, narrow enough that a slip of unit or a non-number is refused.
+Position = quantity("length", -100.0, 100.0, unit="m")
+Temperature = quantity("temperature", 150.0, 3500.0, lo_open=True, hi_open=True, unit="K")
+MeterTemperature = quantity("temperature", 200.0, 400.0, unit="K")
+Pressure = quantity("pressure", 1e3, 1e7, lo_open=True, hi_open=True, unit="Pa")
+Sensitivity = quantity("sensitivity", 1e-7, 10.0, unit="V/Pa")
+Frequency = quantity("frequency", 0.0, 1e6, lo_open=True, unit="Hz")
+VolumeFlow = quantity("volume_flow", 0.0, 1.0, unit="L/min")
+MAX_CEILING_V = 20.0     # peak volts at an amplifier input: generators give at most 10-20 V peak
 
 RIG_DOC = "docs/rig-file.md"
 KNOWN_SPECIES = ("N2", "O2", "AR", "CO2", "H2O", "CH4", "H2", "C3H8", "NH3")
@@ -40,7 +41,7 @@ DRY_AIR = {"N2": 0.78084, "O2": 0.20946, "AR": 0.00934, "CO2": 0.00036}
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
 def _composition(value: Any) -> dict[str, float]:
@@ -55,8 +56,8 @@ def _composition(value: Any) -> dict[str, float]:
         key = str(name).upper()
         if key not in KNOWN_SPECIES:
             raise ValueError(f"unknown species {name!r}; known: {', '.join(KNOWN_SPECIES)}")
-        if isinstance(frac, bool) or not isinstance(frac, (int, float)) or frac < 0:
-            raise ValueError(f"mole fraction of {name} must be a number >= 0, got {frac!r}")
+        if isinstance(frac, bool) or not isinstance(frac, (int, float)) or not 0 <= frac <= 1:
+            raise ValueError(f"mole fraction of {name} must be a number from 0 to 1, got {frac!r}")
         out[key] = out.get(key, 0.0) + float(frac)
     total = sum(out.values())
     if not 0.98 <= total <= 1.02:
@@ -71,17 +72,17 @@ class CalibrationPoint(_Strict):
     """Relative correction factor of one sensor at one frequency: p_true = C * p_measured."""
 
     frequency: Frequency
-    gain: float = Field(gt=0.0)
-    phase_deg: float = 0.0
+    gain: number(0.01, 100.0) = Field()
+    phase_deg: number(-360.0, 360.0) = 0.0
 
 
 class PressureSensor(_Strict):
     channel: str = Field(min_length=1)
-    position: Length
+    position: Position
     sensitivity: Sensitivity
-    weight: float = Field(default=1.0, gt=0.0)
-    position_uncertainty: Annotated[float, _q("length"), Field(ge=0.0)] = 0.0
-    calibration: tuple[CalibrationPoint, ...] = ()
+    weight: number(1e-6, 1e6) = 1.0
+    position_uncertainty: quantity("length", 0.0, 0.1, unit="mm") = 0.0
+    calibration: tuple[CalibrationPoint, ...] = Field(default=(), max_length=1000)
 
     def correction(self, freq_hz: float) -> complex:
         """Complex calibration factor at ``freq_hz`` (linear interpolation, held at the ends)."""
@@ -99,18 +100,16 @@ class PressureSensor(_Strict):
 
 
 class Duct(_Strict):
-    radius: Length | None = None
-    diameter: Length | None = None
-    upstream_end: Length
-    reference_plane: Length
-    area_ratio: float = Field(default=1.0, gt=0.0, description="A_sensor_section / A_reference_plane")
+    radius: quantity("length", 0.5e-3, 1.0, unit="mm") | None = None
+    diameter: quantity("length", 1e-3, 2.0, unit="mm") | None = None
+    upstream_end: Position
+    reference_plane: Position
+    area_ratio: number(0.01, 100.0) = Field(default=1.0, description="A_sensor_section / A_reference_plane")
 
     @model_validator(mode="after")
     def _size(self) -> "Duct":
         if (self.radius is None) == (self.diameter is None):
             raise ValueError("give exactly one of 'radius' or 'diameter'")
-        if self.radius_m <= 0:
-            raise ValueError("duct radius must be > 0")
         if self.upstream_end >= self.reference_plane:
             raise ValueError("'upstream_end' must lie upstream of (less than) 'reference_plane'")
         return self
@@ -126,12 +125,18 @@ class Duct(_Strict):
 
 class Light(_Strict):
     channel: str = Field(min_length=1)
-    sensitivity: float = Field(default=1.0, gt=0.0, description="volts per unit of light; cancels in Q'/Q")
-    dark_offset: Voltage = 0.0
-    dark_offset_uncertainty: Annotated[float, _q("voltage"), Field(ge=0.0)] = 0.005
-    min_flame_signal: Annotated[float, _q("voltage"), Field(gt=0.0)] | None = None
-    safe_max: Voltage = 10.0
+    sensitivity: number(1e-9, 1e9) = Field(default=1.0, description="volts per unit of light; cancels in Q'/Q")
+    dark_offset: quantity("voltage", -10.0, 10.0, unit="V") = 0.0
+    dark_offset_uncertainty: quantity("voltage", 0.0, 1.0, unit="V") = 0.005
+    min_flame_signal: quantity("voltage", 0.0, 100.0, lo_open=True, unit="V") | None = None
+    safe_max: quantity("voltage", 0.0, 100.0, lo_open=True, unit="V") = 10.0
     filter: str = ""
+
+    @model_validator(mode="after")
+    def _levels(self) -> "Light":
+        if self.safe_max <= self.dark_offset:
+            raise ValueError(f"'safe_max' ({self.safe_max:g} V) must be above 'dark_offset' ({self.dark_offset:g} V)")
+        return self
 
     def lit_threshold_v(self, dead_rms_v: float = 0.0) -> float:
         """Light above the stated dark offset that means a burning flame: the stated minimum a lit
@@ -144,8 +149,9 @@ class Light(_Strict):
 
 class Drive(_Strict):
     channel: str = Field(min_length=1)
-    ceiling: Voltage = Field(gt=0.0, description="hard peak-voltage ceiling at the amplifier input")
-    ramp_time: Duration = 0.5
+    ceiling: quantity("voltage", 0.0, MAX_CEILING_V, lo_open=True, unit="V") = Field(
+        description="hard peak-voltage ceiling at the amplifier input")
+    ramp_time: quantity("time", 0.01, 60.0, unit="s") = 0.5
     reference_channel: str | None = None
 
 
@@ -155,18 +161,18 @@ class Flow(_Strict):
     name: str = Field(min_length=1)
     composition: Composition
     flow: VolumeFlow
-    reference_temperature: Temperature
+    reference_temperature: MeterTemperature
     reference_pressure: Pressure = 101325.0
 
 
 class Gas(_Strict):
     temperature: Temperature
-    temperature_uncertainty: Annotated[float, _q("temperature_difference"), Field(ge=0.0)] = 0.0
+    temperature_uncertainty: quantity("temperature_difference", 0.0, 100.0, unit="K") = 0.0
     pressure: Pressure = 101325.0
     temperature_at_reference: Temperature | None = None
     composition: Composition | None = None
-    flows: tuple[Flow, ...] = ()
-    mean_velocity: Annotated[float, Field(gt=0.0)] | None = None
+    flows: tuple[Flow, ...] = Field(default=(), max_length=20)
+    mean_velocity: number(0.0, 300.0, lo_open=True) | None = None
 
     @model_validator(mode="after")
     def _one_source(self) -> "Gas":
@@ -175,19 +181,28 @@ class Gas(_Strict):
             raise ValueError("give either a fixed 'composition' or a list of 'flows', not both or neither")
         if self.composition is not None and self.mean_velocity is None:
             raise ValueError("a fixed 'composition' needs 'mean_velocity' (m/s at the reference plane)")
+        if self.flows and not any(f.flow > 0 for f in self.flows):
+            raise ValueError("every flow in 'flows' is zero: no mean flow to force")
         return self
 
 
 class Acquisition(_Strict):
-    sample_rate: Frequency = 51200.0
-    input_range: Voltage = 10.0
-    block_duration: Duration = 0.1
+    sample_rate: quantity("frequency", 1e3, 1e6, unit="Hz") = 51200.0
+    input_range: quantity("voltage", 1e-3, 100.0, unit="V") = 10.0
+    block_duration: quantity("time", 1e-3, 10.0, unit="s") = 0.1
+
+    @model_validator(mode="after")
+    def _block(self) -> "Acquisition":
+        if self.sample_rate * self.block_duration < 16:
+            raise ValueError(f"a block of {self.block_duration:g} s at {self.sample_rate:g} Hz holds fewer than "
+                             f"16 samples; use a longer 'block_duration'")
+        return self
 
 
 class Rig(_Strict):
     name: str = Field(min_length=1)
     duct: Duct
-    pressure_sensors: tuple[PressureSensor, ...] = Field(min_length=2)
+    pressure_sensors: tuple[PressureSensor, ...] = Field(min_length=2, max_length=64)
     light: Light
     drive: Drive
     gas: Gas
@@ -214,8 +229,9 @@ class Rig(_Strict):
         for i, s in enumerate(self.pressure_sensors):
             if not self.duct.upstream_end <= s.position <= self.duct.reference_plane:
                 raise ValueError(
-                    f"pressure_sensors[{i}] ('{s.channel}') at {s.position * 1e3:.1f} mm lies outside the duct "
-                    f"({self.duct.upstream_end * 1e3:.1f} mm to {self.duct.reference_plane * 1e3:.1f} mm)")
+                    f"pressure_sensors[{i}].position ('{s.channel}') at {s.position * 1e3:.1f} mm lies outside the "
+                    f"duct (duct.upstream_end {self.duct.upstream_end * 1e3:.1f} mm to duct.reference_plane "
+                    f"{self.duct.reference_plane * 1e3:.1f} mm)")
         return self
 
     @property
@@ -233,10 +249,11 @@ class Rig(_Strict):
         raise KeyError(channel)
 
 
-def rig_from_dict(data: dict[str, Any], path: str = "<rig>") -> Rig:
-    return model_from_dict(Rig, data, str(path), RIG_DOC)
+def rig_from_dict(data: dict[str, Any], path: str = "<rig>", units_required: bool = False) -> Rig:
+    """Validate a rig given as a dict: SI numbers, or with ``units_required`` (the text of a file) units."""
+    return model_from_dict(Rig, data, str(path), RIG_DOC, units_required=units_required)
 
 
-def load_rig(path: str | Path) -> Rig:
-    """Load and validate a rig file."""
-    return load_model(Rig, path, RIG_DOC)
+def load_rig(path: str | Path, units_required: bool = True) -> Rig:
+    """Load and validate a rig file (``units_required=False`` reads an old file's bare numbers as SI)."""
+    return load_model(Rig, path, RIG_DOC, units_required=units_required)
