@@ -6,57 +6,61 @@ the true sensor deviations from the rig's nominal values, the light chain, the A
 slow drifts, the random seed and switchable faults. Values with units are strings such
 as "300 mm" or "1.2 ms" (app.units); every section and key has a default, so
 ``Scenario.default_for(rig)`` gives a plausible rig. Unknown keys are errors; problems
-are reported as app.errors.ConfigError naming the file and the key.
+are reported as app.errors.ConfigError naming the file and the key. Every number is finite
+and within the bounds stated key by key in docs/scenario-file.md (``app.bounds``); in the
+file a bare number where a unit is ambiguous (lengths, durations, angles, temperatures) is
+refused, and so is a file that looks cut short (no final line break, an empty table), so
+a truncated file never falls back to defaults unnoticed.
 
-Imports: standard library, pydantic, app.units, app.errors, app.rig. Not app.core analysis.
+Imports: standard library, pydantic, app.units, app.bounds, app.configfile, app.errors,
+app.rig. Not app.core analysis.
 """
 
 from __future__ import annotations
 
 import math
 from pathlib import Path
-from typing import Annotated, Literal
+from typing import Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, StrictBool, model_validator
 
+from app.bounds import number, quantity
 from app.configfile import load_model, model_from_dict
 from app.errors import ConfigError
 from app.rig import Rig, load_rig
-from app.units import parse_quantity
 
-
-def _q(kind: str):
-    return BeforeValidator(lambda v: parse_quantity(v, kind))
-
-
-Length = Annotated[float, _q("length"), Field(ge=0.0)]
-PosLength = Annotated[float, _q("length"), Field(gt=0.0)]
-Temperature = Annotated[float, _q("temperature"), Field(gt=150.0, lt=3500.0)]
-Pressure = Annotated[float, _q("pressure"), Field(ge=0.0)]
-Voltage = Annotated[float, _q("voltage")]
-PosVoltage = Annotated[float, _q("voltage"), Field(gt=0.0)]
-Frequency = Annotated[float, _q("frequency"), Field(gt=0.0)]
-Time = Annotated[float, _q("time"), Field(ge=0.0)]
-PosTime = Annotated[float, _q("time"), Field(gt=0.0)]
-Angle = Annotated[float, _q("angle")]
+# Bounds (SI; docs/scenario-file.md states them key by key)
+Length = quantity("length", 0.0, 20.0, unit="m")
+PosLength = quantity("length", 0.0, 20.0, lo_open=True, unit="m")
+Diameter = quantity("length", 0.0, 5.0, lo_open=True, unit="m")
+Temperature = quantity("temperature", 150.0, 3500.0, lo_open=True, hi_open=True, unit="K")
+Frequency = quantity("frequency", 0.0, 1e6, lo_open=True, unit="Hz")
+Delay = quantity("time", 0.0, 1.0, unit="ms")
+FaultTime = quantity("time", 0.0, 1e7, unit="s")
+Period = quantity("time", 0.0, 1e7, lo_open=True, unit="s")
+Angle = quantity("angle", -2 * math.pi, 2 * math.pi, unit="deg")
+Level = quantity("voltage", -100.0, 100.0, unit="V")
+PosVoltage = quantity("voltage", 0.0, 100.0, lo_open=True, unit="V")
+Fraction = number(0.0, 1.0)
+Gain = number(-100.0, 100.0)
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
 class Plenum(_Strict):
     """Either a duct (length + diameter) or a lumped volume (volume, m³)."""
 
     length: Length = 0.30
-    diameter: PosLength = 0.20
-    volume: Annotated[float, Field(ge=0.0)] = 0.0  # m³; > 0 selects the lumped model
+    diameter: Diameter = 0.20
+    volume: number(0.0, 100.0) = 0.0  # m³; > 0 selects the lumped model
 
 
 class Chamber(_Strict):
     length: PosLength = 0.40
-    diameter: PosLength = 0.08
-    end_reflection_magnitude: Annotated[float, Field(ge=0.0, le=1.0)] = 0.9
+    diameter: Diameter = 0.08
+    end_reflection_magnitude: Fraction = 0.9
     end_reflection_phase: Angle = math.pi  # "180 deg": an open end
 
     @property
@@ -68,108 +72,109 @@ class Chamber(_Strict):
 class BurnerSpec(_Strict):
     """The burner between the sensor duct and the flame (nozzle, flame holder)."""
 
-    loss_coefficient: Annotated[float, Field(ge=0.0)] = 20.0  # ζ: mean pressure drop / (½ρū_ref²)
+    loss_coefficient: number(0.0, 1e4) = 20.0  # ζ: mean pressure drop / (½ρū_ref²)
 
 
 class DelayTerm(_Strict):
-    n: float
-    tau: Time
-    sigma: Time = 0.0
+    n: Gain
+    tau: Delay
+    sigma: Delay = 0.0
 
 
 class FlameSpec(_Strict):
     model: Literal["n_tau", "gaussian", "conical"] = "gaussian"
-    n: float = 1.0                       # n_tau
-    tau: Time = 1.5e-3                   # n_tau
-    terms: tuple[DelayTerm, ...] = (DelayTerm(n=1.0, tau=1.5e-3, sigma=0.4e-3),)  # gaussian
-    radius: PosLength | None = None      # conical: defaults to the nozzle radius
-    flame_speed: Annotated[float, Field(gt=0.0)] = 0.4  # conical: S_L in m/s
-    half_angle: Angle = math.radians(20.0)  # conical
+    n: Gain = 1.0                        # n_tau
+    tau: Delay = 1.5e-3                  # n_tau
+    terms: tuple[DelayTerm, ...] = Field(default=(DelayTerm(n=1.0, tau=1.5e-3, sigma=0.4e-3),),
+                                         max_length=20)  # gaussian
+    radius: quantity("length", 0.0, 1.0, lo_open=True, unit="mm") | None = None  # conical: the nozzle radius
+    flame_speed: number(0.0, 100.0, lo_open=True) = 0.4  # conical: S_L in m/s
+    half_angle: quantity("angle", 0.0, math.pi / 2, lo_open=True, hi_open=True, unit="deg") = math.radians(20.0)
     temperature: Temperature = 1800.0    # burnt gas temperature
-    burnt_gamma: Annotated[float, Field(gt=1.0, lt=1.7)] | None = None  # None: from the gas model
-    saturation: Annotated[float, Field(gt=0.0)] | None = 0.35  # peak Q'/Q̄ the flame can reach
+    burnt_gamma: number(1.0, 1.7, lo_open=True, hi_open=True) | None = None  # None: from the gas model
+    saturation: number(0.0, 100.0, lo_open=True) | None = 0.35  # peak Q'/Q̄ the flame can reach
 
 
 class LoudspeakerSpec(_Strict):
     resonance: Frequency = 120.0
-    q: Annotated[float, Field(gt=0.05)] = 1.5
-    amplifier_gain: Annotated[float, Field(gt=0.0)] = 10.0
-    peak_velocity_per_volt: Annotated[float, Field(gt=0.0)] = 0.02  # m/s per terminal volt
-    cone_diameter: PosLength = 0.13
-    compression_voltage: PosVoltage = 8.0
-    second_harmonic_per_volt: Annotated[float, Field(ge=0.0)] = 0.01
-    third_harmonic_per_volt2: Annotated[float, Field(ge=0.0)] = 0.003
+    q: number(0.05, 1000.0, lo_open=True) = 1.5
+    amplifier_gain: number(0.0, 1e4, lo_open=True) = 10.0
+    peak_velocity_per_volt: number(0.0, 100.0, lo_open=True) = 0.02  # m/s per terminal volt
+    cone_diameter: quantity("length", 0.0, 2.0, lo_open=True, unit="mm") = 0.13
+    compression_voltage: quantity("voltage", 0.0, 1000.0, lo_open=True, unit="V") = 8.0
+    second_harmonic_per_volt: number(0.0, 10.0) = 0.01
+    third_harmonic_per_volt2: number(0.0, 10.0) = 0.003
 
 
 class NoiseSpec(_Strict):
-    pressure_rms: Pressure = 3.0
+    pressure_rms: quantity("pressure", 0.0, 1e4, unit="Pa") = 3.0
     pressure_corner: Frequency = 300.0
-    pressure_correlation: Annotated[float, Field(ge=0.0, le=1.0)] = 0.2
-    flame_out_fraction: Annotated[float, Field(ge=0.0, le=1.0)] = 0.3  # pressure noise left without flame
-    electronic_rms: Annotated[float, _q("voltage"), Field(ge=0.0)] = 20e-6
-    light_flame_noise: Annotated[float, Field(ge=0.0)] = 0.03  # rms of I'/Ī, broadband
+    pressure_correlation: Fraction = 0.2
+    flame_out_fraction: Fraction = 0.3  # pressure noise left without flame
+    electronic_rms: quantity("voltage", 0.0, 1.0, unit="V") = 20e-6
+    light_flame_noise: number(0.0, 10.0) = 0.03  # rms of I'/Ī, broadband
     light_corner: Frequency = 1500.0
-    light_shot_coefficient: Annotated[float, _q("voltage"), Field(ge=0.0)] = 1e-6  # σ² = coef · mean
+    light_shot_coefficient: quantity("voltage", 0.0, 1.0, unit="V") = 1e-6  # σ² = coef · mean
 
 
 class SensorError(_Strict):
-    gain: Annotated[float, Field(gt=0.0)] = 1.0  # true / nominal sensitivity
+    gain: number(0.0, 10.0, lo_open=True) = 1.0  # true / nominal sensitivity
     phase: Angle = 0.0
 
 
 class SensorSpec(_Strict):
-    sensitivity_spread: Annotated[float, Field(ge=0.0, lt=0.5)] = 0.03  # relative std of true/nominal
-    phase_spread: Angle = math.radians(0.3)
+    sensitivity_spread: number(0.0, 0.5, hi_open=True) = 0.03  # relative std of true/nominal
+    phase_spread: quantity("angle", 0.0, math.pi / 2, unit="deg") = math.radians(0.3)
     errors: dict[str, SensorError] = Field(default_factory=dict)  # explicit per channel
 
 
 class LightSpec(_Strict):
-    mean_signal: Voltage = 2.5  # above the dark offset, with the flame on
-    dark_offset: Voltage | None = None  # None: the rig's value
+    mean_signal: Level = 2.5  # above the dark offset, with the flame on
+    dark_offset: Level | None = None  # None: the rig's value
     rail: PosVoltage = 10.5  # detector amplifier output limit
 
 
 class AdcSpec(_Strict):
-    bits: Annotated[int, Field(ge=8, le=32)] = 24
+    bits: number(8, 32, integer=True) = 24
     input_range: PosVoltage | None = None  # None: the rig's acquisition.input_range
 
 
 class DriftSpec(_Strict):
-    temperature_offset_k: float = 0.0  # true gas temperature minus the rig file's
-    temperature_swing_k: Annotated[float, Field(ge=0.0)] = 0.4
-    temperature_period: PosTime = 900.0
-    flow_swing: Annotated[float, Field(ge=0.0, lt=0.5)] = 0.003  # relative
-    flow_period: PosTime = 420.0
+    temperature_offset_k: number(-1000.0, 1000.0) = 0.0  # true gas temperature minus the rig file's
+    temperature_swing_k: number(0.0, 1000.0) = 0.4
+    temperature_period: Period = 900.0
+    flow_swing: number(0.0, 0.5, hi_open=True) = 0.003  # relative
+    flow_period: Period = 420.0
 
 
 class FlameOutFault(_Strict):
-    enabled: bool = False
-    amplitude: Annotated[float, Field(gt=0.0)] | None = None  # peak |û_ref|/ū_ref that blows the flame off
-    time: Time | None = None
+    enabled: StrictBool = False
+    amplitude: number(0.0, 100.0, lo_open=True) | None = None  # peak |û_ref|/ū_ref that blows the flame off
+    time: FaultTime | None = None
 
 
 class DropoutFault(_Strict):
-    enabled: bool = False
+    enabled: StrictBool = False
     channel: str = ""
-    time: Time = 0.0
-    level: Voltage = 1.5e-3  # what the dead channel reads
+    time: FaultTime = 0.0
+    level: Level = 1.5e-3  # what the dead channel reads
 
 
 class LightSaturationFault(_Strict):
-    enabled: bool = False
-    time: Time = 0.0
-    gain_factor: Annotated[float, Field(gt=0.0)] = 20.0
+    enabled: StrictBool = False
+    time: FaultTime = 0.0
+    gain_factor: number(0.0, 1e4, lo_open=True) = 20.0
 
 
 class TimedFault(_Strict):
-    enabled: bool = False
-    time: Time = 0.0
+    enabled: StrictBool = False
+    time: FaultTime = 0.0
 
 
 class OutputGainFault(_Strict):
-    enabled: bool = False
-    time: Time = 0.0
-    factor: Annotated[float, Field(gt=0.0, le=100.0)] = 2.0  # delivered / commanded drive voltage
+    enabled: StrictBool = False
+    time: FaultTime = 0.0
+    factor: number(0.0, 100.0, lo_open=True) = 2.0  # delivered / commanded drive voltage
 
 
 class Faults(_Strict):
@@ -183,7 +188,7 @@ class Faults(_Strict):
 
 class Scenario(_Strict):
     rig: str = Field(min_length=1)
-    seed: int = 1
+    seed: number(0, 2**63 - 1, integer=True) = 1
     plenum: Plenum = Plenum()
     chamber: Chamber = Chamber()
     burner: BurnerSpec = BurnerSpec()
@@ -245,10 +250,12 @@ class Scenario(_Strict):
 SCENARIO_DOC = "docs/scenario-file.md"
 
 
-def scenario_from_dict(data: dict, path: str = "<scenario>") -> Scenario:
-    return model_from_dict(Scenario, data, str(path), SCENARIO_DOC)
+def scenario_from_dict(data: dict, path: str = "<scenario>", units_required: bool = False) -> Scenario:
+    """Validate a scenario given as a dict: SI numbers, or with ``units_required`` (a file's text) units."""
+    return model_from_dict(Scenario, data, str(path), SCENARIO_DOC, units_required=units_required)
 
 
 def load_scenario(path: str | Path) -> Scenario:
-    """Load and validate a scenario file (the rig it names is not loaded here)."""
-    return load_model(Scenario, path, SCENARIO_DOC, source_path=str(Path(path).resolve()))
+    """Load and validate a scenario file (the rig it names is not loaded here); a file that looks
+    cut short (no final line break, an empty table) is refused naming the line."""
+    return load_model(Scenario, path, SCENARIO_DOC, source_path=str(Path(path).resolve()), complete=True)
