@@ -1,17 +1,30 @@
 """``flamebode sweep PLAN``: run a sweep plan headless, with a live progress display.
 
 ``--dry-run`` prints the points, the estimated duration and the checks without touching
-hardware. Otherwise the plan runs on the chosen back-end (the simulated burner by default;
-a plan may name its default rig and scenario relative to itself), storing the run in
-``--out RUN_DIR`` through the run writer. Ctrl-C aborts safely: the drive is ramped to
-zero (a second Ctrl-C halts at once) and the stored points are kept.
+hardware. Before any sweep (and in the dry run) a record is checked against the machine's
+memory: one that would need more than half the RAM is refused with the numbers. The dry
+run also asks the chosen back-end (its ``probe()``, nothing is opened) whether it can give
+the rig's sample rate: a back-end that knows its limits states them in its
+``Availability.details`` as ``sample_rate_min_hz`` / ``sample_rate_max_hz`` (numbers as
+text) or ``sample_rates_hz`` (a comma-separated list); one that states none (the simulated
+burner has no limit but the rig file's bounds) is named as not checked. On the simulated
+burner the dry run also loads the scenario (bounds, a file cut short, channels) and prints
+its warnings. A sweep that keeps no point exits non-zero.
 
-Imports: the engine, plan/rig, storage writer and (through .running) the driver registry, lazily. Never Qt.
+Otherwise the plan runs on the chosen back-end (the simulated burner by default; a plan may
+name its default rig and scenario relative to itself), storing the run in ``--out RUN_DIR``
+through the run writer. Ctrl-C aborts safely: the drive is ramped to zero (a second Ctrl-C
+halts at once) and the stored points are kept.
+
+Imports: the engine, plan/rig, storage writer, the simulated burner's scenario loader and (through
+.running) the driver registry, lazily. Never Qt.
 """
 
 from __future__ import annotations
 
 import argparse
+import math
+import os
 import sys
 import time
 from pathlib import Path
@@ -41,15 +54,111 @@ def _rig_path(args: argparse.Namespace, plan_path: Path) -> Path:
 
     if args.rig:
         return Path(args.rig)
-    plan = plan_from_dict(read_toml(plan_path), str(plan_path))
+    plan = plan_from_dict(read_toml(plan_path), str(plan_path), units_required=True)
     path = plan.resolve("rig")
     if path is None:
         raise SweepCommandError(f"{plan_path}: no rig given; pass --rig RIG or set 'rig' in the plan")
     return path
 
 
-def dry_run(plan: Any, rig: Any, out: Any = None) -> None:
+def machine_memory_bytes() -> int | None:
+    """Physical memory of this machine, or None where it cannot be told."""
+    try:
+        return int(os.sysconf("SC_PHYS_PAGES")) * int(os.sysconf("SC_PAGE_SIZE"))
+    except (AttributeError, ValueError, OSError):
+        return None
+
+
+def _gb(n_bytes: float) -> str:
+    return f"{n_bytes / 1e9:.3g} GB" if n_bytes >= 1e9 else f"{n_bytes / 1e6:.3g} MB"
+
+
+def record_memory(plan: Any, rig: Any) -> tuple[float, str]:
+    """Bytes a record (or tuning window) needs in memory while it is assembled, and how that is counted.
+
+    A record of ``timing.record`` (up to 1 % longer, whole periods) of every input channel
+    in float64, held twice: the blocks and the joined record (app.engine.sweep)."""
+    fs, n_ch = rig.acquisition.sample_rate, len(rig.input_channels)
+    longest_s = max(plan.timing.record * 1.01, plan.timing.tuning_window) + rig.acquisition.block_duration
+    n_bytes = 2.0 * 8.0 * n_ch * math.ceil(longest_s * fs)
+    how = (f"a {plan.timing.record:g} s record of {n_ch} channels at {fs:g} Hz is {_gb(n_bytes / 2)} of float64 "
+           f"samples, held twice while it is assembled: {_gb(n_bytes)}")
+    return n_bytes, how
+
+
+def check_memory(plan: Any, rig: Any, total_bytes: int | None = None) -> str:
+    """Refuse a record that would need more than half the machine's memory; say what it needs."""
+    total = machine_memory_bytes() if total_bytes is None else total_bytes
+    need, how = record_memory(plan, rig)
+    if total is None:
+        return f"{how}; this machine's memory could not be read, not checked"
+    if need > total / 2:
+        per_s = need / (plan.timing.record * 1.01 + rig.acquisition.block_duration)
+        longest = (total / 2) / per_s
+        raise SweepCommandError(
+            f"{plan.source_path or '<plan>'}: timing.record: {how}, more than half of this machine's "
+            f"{_gb(total)} of memory; at {rig.acquisition.sample_rate:g} Hz (acquisition.sample_rate in "
+            f"{rig.source_path or 'the rig file'}) a record of at most about {longest:.3g} s fits")
+    return f"{how}, within half of this machine's {_gb(total)}"
+
+
+def _details_rate(details: dict[str, str], key: str) -> float | None:
+    try:
+        value = float(details[key])
+    except (KeyError, ValueError, TypeError):
+        return None
+    return value if math.isfinite(value) and value > 0 else None
+
+
+def check_backend(name: str, rig: Any) -> str:
+    """Ask back-end ``name`` (its probe only) whether it can give the rig's sample rate.
+
+    Raises SweepCommandError for an unknown back-end or a rate it states it cannot give;
+    returns what was checked, in plain words."""
+    from drivers.registry import list_backends
+
+    infos = {b.name: b for b in list_backends()}
+    if name not in infos:
+        raise SweepCommandError(f"unknown back-end {name!r}; known back-ends: {', '.join(infos) or 'none'}")
+    avail = infos[name].availability
+    fs = rig.acquisition.sample_rate
+    where = f"acquisition.sample_rate in {rig.source_path or 'the rig file'}"
+    if not avail.available:
+        return (f"back-end {name!r} is not available here ({avail.reason or 'no reason given'}): "
+                f"sample rate {fs:g} Hz not checked against the device")
+    details = dict(avail.details or {})
+    lo, hi = _details_rate(details, "sample_rate_min_hz"), _details_rate(details, "sample_rate_max_hz")
+    listed = [r for r in (_details_rate({"r": x.strip()}, "r") for x in details.get("sample_rates_hz", "").split(","))
+              if r is not None]
+    if (lo is not None and fs < lo) or (hi is not None and fs > hi):
+        span = f"{lo or 0:g} Hz to {hi:g} Hz" if hi is not None else f"at least {lo:g} Hz"
+        raise SweepCommandError(f"{where}: {fs:g} Hz, but back-end {name!r} can sample at {span}")
+    if listed and not any(abs(fs - r) <= 1e-6 * r for r in listed):
+        raise SweepCommandError(f"{where}: {fs:g} Hz, but back-end {name!r} can sample only at "
+                                f"{', '.join(f'{r:g}' for r in listed)} Hz")
+    if lo is None and hi is None and not listed:
+        return (f"back-end {name!r} states no sample-rate limit: {fs:g} Hz checked against the rig file's "
+                f"bounds only")
+    return f"back-end {name!r} can sample at {fs:g} Hz"
+
+
+def check_scenario(path: Path | None, rig: Any) -> list[str]:
+    """Load the simulated burner's scenario (bounds, a file cut short, channels against the rig);
+    return what the dry run says about it, with the scenario's own warnings (linear stability)."""
+    if path is None:
+        return ["scenario: none named (the simulator's default for this rig)"]
+    from drivers.simulated.scenario import load_scenario
+
+    scenario = load_scenario(path)
+    scenario.check_against(rig)
+    return [f"scenario {path}"] + [f"  warning: {w}" for w in scenario.warnings(rig)]
+
+
+def dry_run(plan: Any, rig: Any, out: Any = None, backend: str | None = None, scenario: Path | None = None) -> None:
     out = out or sys.stdout
+    memory = check_memory(plan, rig)
+    device = check_backend(backend, rig) if backend else None
+    simulated = check_scenario(scenario, rig) if backend == "simulated" else []
     pts = plan.points()
     basis = plan.amplitude.basis
     print(f"plan {plan.source_path}: {plan.name}", file=out)
@@ -60,6 +169,11 @@ def dry_run(plan: Any, rig: Any, out: Any = None) -> None:
         print(f"  {p.index + 1:>4}  {p.freq_hz:9.2f} Hz  a = {p.amplitude_ratio:.4f} {basis}", file=out)
     est = plan.estimated_duration_s(ramp_time_s=rig.drive.ramp_time)
     print(f"estimated duration: {est / 60:.1f} min ({est:.0f} s, {plan.timing.record:g} s records)", file=out)
+    for line in simulated:
+        print(line, file=out)
+    print(f"memory: {memory}", file=out)
+    if device:
+        print(f"sample rate: {device}", file=out)
     print("checks:", file=out)
     for line in plan.describe_checks(rig):
         print(f"  - {line}", file=out)
@@ -73,11 +187,12 @@ def run(args: argparse.Namespace) -> int:
     rig_path = _rig_path(args, plan_path)
     rig = load_rig(rig_path)
     plan = load_plan(plan_path, rig)
-    if args.dry_run:
-        dry_run(plan, rig)
-        return 0
     scenario = Path(args.scenario) if args.scenario else (plan.resolve("scenario") if args.backend == "simulated"
                                                           else None)
+    if args.dry_run:
+        dry_run(plan, rig, backend=args.backend, scenario=scenario)
+        return 0
+    check_memory(plan, rig)
     return _run_sweep(args, plan, rig, plan_path, rig_path, scenario)
 
 
@@ -120,5 +235,10 @@ def _report(engine: Any, writer: Any, out: str | None) -> int:
     print(f"run folder: {out}" if out else "nothing stored (no --out RUN_DIR)")
     if writer is not None and writer.fault:
         print(f"storage fault: {writer.fault}", file=sys.stderr)
+        return 1
+    kept, total = engine.stats.settled, len(engine.points)
+    if kept == 0 and total > 0:
+        print(f"no point was kept (0 of {total}): every point failed or was skipped; see the faults above",
+              file=sys.stderr)
         return 1
     return 0 if engine.finish_reason == "complete" else 1
