@@ -53,7 +53,14 @@ def _demo_with(tmp_path: Path, old: str, new: str) -> Path:
     ('position = "-620 mm"', 'position = "-1200 mm"', "outside the duct"),
     ('channel = "p2"', 'channel = "p1"', "duplicate channel name(s): p1"),
     ('reference_plane = "0 mm"\n', '', "duct.reference_plane: required key is missing"),
-    ('temperature = "24 degC"', 'temperature = 24', "greater than 150"),
+    ('temperature = "24 degC"', 'temperature = 24',
+     'gas.temperature: a temperature needs a unit, e.g. "24 degC" or "297 K"'),
+    ('temperature = "24 degC"', 'temperature = "24 K"', "gas.temperature: \"24 K\" is too small: allowed more than 150 K"),
+    ('flow = "180 L/min"', 'flow = 7', 'gas.flows[0].flow: a flow needs a unit, e.g. "180 L/min" or "0.003 m3/s"'),
+    ('position = "-620 mm"', 'position = -620', "pressure_sensors[0].position: a length needs a unit"),
+    ('block_duration = "0.1 s"', 'block_duration = "0.5 ms"',
+     'acquisition.block_duration: "0.5 ms" is too short: allowed at least 1 ms and at most 10 s'),
+    ('ceiling = "2.0 V"', 'ceiling = "25 V"', "drive.ceiling: \"25 V\" is too large: allowed more than 0 V and at most 20 V"),
     ('reference_temperature = "0 degC"     # this meter\'s standard state\n', '',
      "gas.flows[0].reference_temperature: required key is missing"),
     ('composition = { CH4 = 0.85, H2 = 0.15 }', 'composition = { CH4 = 0.85, XE = 0.15 }', "unknown species 'XE'"),
@@ -66,6 +73,39 @@ def test_mistakes_are_named(tmp_path, old, new, expected):
     msg = str(err.value)
     assert str(path) in msg
     assert expected in msg
+
+
+def test_a_block_holds_at_least_16_samples(tmp_path):
+    text = DEMO.read_text().replace('sample_rate = "25.6 kHz"', 'sample_rate = "10 kHz"').replace(
+        'block_duration = "0.1 s"', 'block_duration = "1.5 ms"')
+    with pytest.raises(ConfigError, match=r"acquisition: a block of 0.0015 s at 10000 Hz holds fewer than 16 samples"):
+        load_rig(_write(tmp_path, text))
+
+
+def test_every_flow_zero_is_refused(tmp_path):
+    text = DEMO.read_text().replace('flow = "180 L/min"', 'flow = "0 L/min"').replace('flow = "18.1 L/min"',
+                                                                                      'flow = "0 L/min"')
+    with pytest.raises(ConfigError, match=r"gas: every flow in 'flows' is zero"):
+        load_rig(_write(tmp_path, text))
+
+
+def test_counts_are_bounded(tmp_path):
+    text = DEMO.read_text()
+    flows = text[text.index("[[gas.flows]]"):text.index("[acquisition]")]
+    many = text.replace(flows, flows * 11)         # 22 flow meters: at most 20
+    with pytest.raises(ConfigError, match=r"gas.flows: Tuple should have at most 20 items"):
+        load_rig(_write(tmp_path, many))
+    sensors = "".join(f'[[pressure_sensors]]\nchannel = "q{i}"\nposition = "{-800 + 5 * i} mm"\n'
+                      f'sensitivity = "14 mV/Pa"\n' for i in range(65))
+    with pytest.raises(ConfigError, match=r"pressure_sensors: Tuple should have at most 64 items"):
+        load_rig(_write(tmp_path, text.replace("[light]", sensors + "[light]", 1)))
+
+
+def test_old_files_with_bare_si_numbers_can_still_be_read(tmp_path):
+    path = _demo_with(tmp_path, 'ramp_time = "0.3 s"', "ramp_time = 0.3")
+    with pytest.raises(ConfigError, match="drive.ramp_time: a duration needs a unit"):
+        load_rig(path)
+    assert load_rig(path, units_required=False).drive.ramp_time == 0.3
 
 
 def test_toml_syntax_error_names_line(tmp_path):

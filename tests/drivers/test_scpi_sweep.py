@@ -33,10 +33,10 @@ values = {FREQS!r}
 values = [0.05]
 basis = "peak"
 [timing]
-record = 0.5
-settle = 0.3
-tuning_window = 0.3
-tuning_discard = 0.05
+record = "0.5 s"
+settle = "0.3 s"
+tuning_window = "0.3 s"
+tuning_discard = "0.05 s"
 [tuning]
 tolerance = 0.05
 max_steps = 8
