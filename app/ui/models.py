@@ -175,10 +175,18 @@ class TuningHistory(Observable):
     target_ratio: float = math.nan
     tolerance: float = math.nan
     ceiling_v: float = math.nan
+    max_steps: int | None = None          # the plan's tuning.max_steps, for "step n of max"
     steps: list[tuple[int, float, float, bool]] = field(default_factory=list)  # (step, drive_v, ratio, ok)
 
     def __post_init__(self) -> None:
         Observable.__init__(self)
+
+    def begin_point(self, point_index: int, target_ratio: float) -> None:
+        """A new point starts tuning: the previous point's steps and readout are cleared."""
+        if point_index == self.point_index:
+            return
+        self.point_index, self.target_ratio, self.steps = point_index, target_ratio, []
+        self.notify()
 
     def add(self, ev: TuningStep) -> None:
         if ev.point_index != self.point_index:

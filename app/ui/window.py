@@ -402,6 +402,8 @@ class MainWindow(QMainWindow):
         if isinstance(ev, StateChanged):
             self.status.state, self.status.point_index = ev.new, ev.point_index
             self.points.on_state(ev)
+            if ev.new == "tuning" and ev.point_index is not None and self.points.row(ev.point_index) is not None:
+                self.tuning_model.begin_point(ev.point_index, self.points.row(ev.point_index).target_ratio)
             if ev.new == S.PAUSED:
                 self.traces.mark_stopped("paused — not live (drive at zero)")
             elif ev.old == S.PAUSED:
@@ -430,6 +432,7 @@ class MainWindow(QMainWindow):
         self.status.begin(n, ev.plan.estimated_duration_s(ramp_time_s=ev.rig.drive.ramp_time) * n /
                           max(1, len(ev.plan.points())))
         self.status.ceiling_v = ev.plan.ceiling_v(ev.rig)
+        self.tuning_model.max_steps = int(ev.plan.tuning.max_steps)
         self.tuning.set_ceiling(self.status.ceiling_v)
         self.roles = channel_roles(ev.rig)
         freqs = [p.freq_hz for p in ev.plan.points()]

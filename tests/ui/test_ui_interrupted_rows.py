@@ -53,3 +53,4 @@ def test_an_interrupted_reacquire_keeps_the_earlier_accepted_result():
     t.on_settled(_settled(0, 1.1, ()))
     t.on_settled(_settled(0, 0.5, ("interrupted",)))
     assert t.row(0).status == KEPT and t.row(0).gain == 1.1
+

@@ -1,5 +1,6 @@
 """Tuning of the current point: measured amplitude per step against the target band, and
-the drive voltage per step against the ceiling.
+the drive voltage per step against the ceiling, on a logarithmic axis (a soft start opens
+at millivolts under a ceiling of volts: on a linear axis those steps look like zero).
 
 Items are created once; ``refresh`` redraws from the Qt-free ``TuningHistory``.
 
@@ -19,6 +20,11 @@ from ..models import TuningHistory
 from .style import Coalesced, new_plot, pen
 
 
+def _volts(v: float) -> str:
+    """A drive voltage a person reads: millivolts below 1 V."""
+    return f"{v * 1e3:.3g} mV" if abs(v) < 1.0 else f"{v:.3f} V"
+
+
 class TuningView(QWidget):
     def __init__(self, model: TuningHistory, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -31,7 +37,8 @@ class TuningView(QWidget):
         lay.addWidget(self.caption)
         lay.addWidget(self.layout_widget)
         self.amp_plot = new_plot(self.layout_widget, "Amplitude reached", "|u'|/ū", "tuning step", row=0, col=0)
-        self.drive_plot = new_plot(self.layout_widget, "Drive voltage", "V peak", "tuning step", row=0, col=1)
+        self.drive_plot = new_plot(self.layout_widget, "Drive voltage (log)", "V peak", "tuning step", row=0, col=1)
+        self.drive_plot.setLogMode(y=True)
         self.band = pg.LinearRegionItem(orientation="horizontal", movable=False,
                                         brush=pg.mkBrush(0, 158, 115, 50), pen=pen("#009E73"))
         self.amp_plot.addItem(self.band)
@@ -49,8 +56,16 @@ class TuningView(QWidget):
 
     def set_ceiling(self, ceiling_v: float) -> None:
         self.model.ceiling_v = ceiling_v
-        self.ceiling_line.setValue(ceiling_v)
-        self.drive_plot.setYRange(0.0, 1.1 * ceiling_v)
+        self.ceiling_line.setValue(math.log10(ceiling_v))     # a log axis: view coordinates are log10
+        self._drive_range(np.zeros(0))
+
+    def _drive_range(self, drive_v: np.ndarray) -> None:
+        """From a decade below the smallest step (at least 1/1000 of the ceiling) to above the ceiling."""
+        ceiling = self.model.ceiling_v if math.isfinite(self.model.ceiling_v) else 1.0
+        positive = drive_v[drive_v > 0] if drive_v.size else drive_v
+        low = min(float(positive.min()) / 3.0 if positive.size else ceiling * 1e-2, ceiling * 1e-2)
+        low = max(low, ceiling * 1e-4)
+        self.drive_plot.setYRange(math.log10(low), math.log10(1.3 * ceiling), padding=0)
 
     def refresh(self) -> None:
         m = self.model
@@ -59,7 +74,9 @@ class TuningView(QWidget):
         self._drawn = m.version
         steps, drive_v, ratio = m.arrays()
         self.amp_curve.setData(steps, ratio)
-        self.drive_curve.setData(steps, drive_v)
+        shown = drive_v > 0                  # a log axis cannot show a zero drive
+        self.drive_curve.setData(steps[shown], drive_v[shown])
+        self._drive_range(drive_v)
         if math.isfinite(m.target_ratio):
             lo, hi = m.target_ratio * (1 - m.tolerance), m.target_ratio * (1 + m.tolerance)
             self.band.setRegion((lo, hi))
@@ -69,9 +86,14 @@ class TuningView(QWidget):
         n = max(3.0, float(steps.max()) + 0.5 if steps.size else 3.0)
         for p in (self.amp_plot, self.drive_plot):
             p.setXRange(0.5, n)
+        label = f"Tuning point {m.point_index + 1}" if m.point_index is not None else "Tuning"
         if m.steps:
             step, d, r, ok = m.steps[-1]
             verdict = "within the band" if ok else "outside the band"
-            self.caption.setText(f"Tuning point {m.point_index + 1 if m.point_index is not None else '–'}: "
-                                 f"step {step}, {d:.3f} V gives |u'|/ū = {r:.4f} (target {m.target_ratio:.4f} "
-                                 f"± {m.tolerance:.0%}, {verdict})")
+            of = f" of {m.max_steps}" if m.max_steps else ""
+            self.caption.setText(f"{label}: step {step}{of}, {_volts(d)} gives |u'|/ū = {r:.4f} (target "
+                                 f"{m.target_ratio:.4f} ± {m.tolerance:.0%}, {verdict})")
+        elif m.point_index is not None:
+            self.caption.setText(f"{label}: first tuning window under way (target |u'|/ū = {m.target_ratio:.4f})")
+        else:
+            self.caption.setText("Tuning: waiting for the first point")
