@@ -113,6 +113,11 @@ def test_too_many_points_are_refused(tmp_path) -> None:
         load("plan", f)
 
 
+def test_at_most_20_flame_terms(tmp_path) -> None:
+    term = {"n": 0.05, "tau": "1 ms", "sigma": "0.1 ms"}
+    _refused(tmp_path, "scenario", ("flame", "terms"), [term] * 21, "flame.terms: Tuple should have at most 20 items")
+
+
 def test_safe_max_must_lie_above_the_dark_offset(tmp_path) -> None:
     _refused(tmp_path, "rig", ("light", "safe_max"), "10 mV", "light:", "'safe_max' (0.01 V) must be above")
 

@@ -108,6 +108,16 @@ def test_old_files_with_bare_si_numbers_can_still_be_read(tmp_path):
     assert load_rig(path, units_required=False).drive.ramp_time == 0.3
 
 
+def test_a_dict_from_a_file_can_be_checked_like_the_file():
+    from app.rig import read_toml, rig_from_dict
+
+    data = read_toml(DEMO)
+    data["drive"]["ramp_time"] = 0.3      # bare seconds: SI for a program, refused in a file
+    assert rig_from_dict(data).drive.ramp_time == 0.3
+    with pytest.raises(ConfigError, match="drive.ramp_time: a duration needs a unit"):
+        rig_from_dict(data, units_required=True)
+
+
 def test_toml_syntax_error_names_line(tmp_path):
     path = _write(tmp_path, 'name = "x"\n[duct\n')
     with pytest.raises(ConfigError, match=r"not valid TOML.*line 2"):
