@@ -327,8 +327,8 @@ class PointTable(Observable):
         self.notify()
 
     def curves(self) -> dict[float, dict[str, np.ndarray]]:
-        """Per target amplitude, sorted by frequency: freq_hz, gain, gain_ci95, phase_rad, phase_ci95_rad
-        (points with a result only; phase unwrapped along frequency)."""
+        """Per target amplitude, sorted by frequency: freq_hz, gain, gain_ci95, phase_rad, phase_ci95_rad,
+        index, flagged (points with a result only; phase unwrapped along frequency)."""
         out: dict[float, list[PointRow]] = {}
         for r in self.rows:
             if np.isfinite(r.gain) and r.status in (KEPT, FLAGGED, MEASURING):
@@ -340,7 +340,8 @@ class PointTable(Observable):
                           for r in rows], dtype=float)
             curves[amp] = {"freq_hz": a[:, 0], "gain": a[:, 1], "gain_ci95": np.nan_to_num(a[:, 2]),
                            "phase_rad": np.unwrap(a[:, 3]), "phase_ci95_rad": np.nan_to_num(a[:, 4]),
-                           "index": a[:, 5].astype(int)}
+                           "index": a[:, 5].astype(int),
+                           "flagged": np.array([r.status == FLAGGED or bool(r.flags) for r in rows], dtype=bool)}
         return curves
 
     @property

@@ -1,6 +1,8 @@
 """The response curve growing point by point: gain and phase against frequency with 95 %
 bars, one curve per forcing amplitude (FDF), and the simulator's true answer as an
-optional dashed overlay in rehearsal. Clicking a point selects it.
+optional dashed overlay in rehearsal. Flagged points are drawn as open markers, good ones
+filled. The frequency axis is fixed to the plan's range from the first point on. Clicking a
+point selects it; the selected point's values and 95 % intervals are read out above.
 
 Phase is shown in degrees, unwrapped along frequency, with the e^{+iωt} convention of
 the core. Items are created once per amplitude and updated with ``setData``.
@@ -39,12 +41,15 @@ class ResponseView(QWidget):
         self.truth_box.toggled.connect(self._truth_toggled)
         self.truth_box.setEnabled(False)
         self.caption = QLabel("No points yet")
+        self.readout = QLabel("")
+        self.readout.setWordWrap(True)
         top = QHBoxLayout()
         top.addWidget(self.caption, 1)
         top.addWidget(self.truth_box)
         lay = QVBoxLayout(self)
         lay.setContentsMargins(0, 0, 0, 0)
         lay.addLayout(top)
+        lay.addWidget(self.readout)
         lay.addWidget(self.layout_widget)
         self._items: dict[float, tuple[pg.PlotDataItem, pg.ErrorBarItem, pg.PlotDataItem, pg.ErrorBarItem]] = {}
         self._truth_items: dict[float, tuple[pg.PlotDataItem, pg.PlotDataItem]] = {}
@@ -61,11 +66,19 @@ class ResponseView(QWidget):
     def set_truth(self, truth: TruthFn | None, freq_range_hz: tuple[float, float]) -> None:
         """Enable the overlay (rehearsal) or disable it (real hardware, stored run without scenario)."""
         self._truth, self._freq_range = truth, freq_range_hz
+        self.set_frequency_range(freq_range_hz)
         self.truth_box.setEnabled(truth is not None)
         if truth is None:
             self.truth_box.setChecked(False)
         self._clear_truth()
         self._truth_toggled(self.truth_box.isChecked())
+
+    def set_frequency_range(self, freq_range_hz: tuple[float, float]) -> None:
+        """Fix the frequency axis to the plan's range (the curve grows into it instead of rescaling)."""
+        lo, hi = freq_range_hz
+        if hi > lo > 0:
+            self.gain_plot.setXRange(lo, hi, padding=0.02)
+            self.gain_plot.enableAutoRange(x=False)
 
     def reset(self) -> None:
         for g, ge, p, pe in self._items.values():
@@ -77,6 +90,7 @@ class ResponseView(QWidget):
         self.legend.clear()
         self._selected.setData([], [])
         self._selected_phase.setData([], [])
+        self.readout.setText("")
         self._drawn = -1
         self.refresh()
 
@@ -100,16 +114,20 @@ class ResponseView(QWidget):
             return
         self._drawn = self.model.version
         curves = self.model.curves()
-        for k, (amp, c) in enumerate(curves.items()):
-            g, ge, p, pe = self._item_for(amp, CHANNEL_COLOURS[k % len(CHANNEL_COLOURS)])
+        colour_of = {amp: CHANNEL_COLOURS[k % len(CHANNEL_COLOURS)] for k, amp in enumerate(curves)}
+        for amp, c in curves.items():
+            g, ge, p, pe = self._item_for(amp, colour_of[amp])
             f, phase_deg = c["freq_hz"], np.degrees(c["phase_rad"])
-            g.setData(f, c["gain"], data=c["index"])
+            fill = [pg.mkBrush("#FFFFFF") if flagged else pg.mkBrush(colour_of[amp]) for flagged in c["flagged"]]
+            g.setData(f, c["gain"], data=c["index"], symbolBrush=fill, symbolPen=pen(colour_of[amp]))
             ge.setData(x=f, y=c["gain"], height=2 * c["gain_ci95"])
-            p.setData(f, phase_deg, data=c["index"])
+            p.setData(f, phase_deg, data=c["index"], symbolBrush=fill, symbolPen=pen(colour_of[amp]))
             pe.setData(x=f, y=phase_deg, height=2 * np.degrees(c["phase_ci95_rad"]))
         n = sum(len(c["freq_hz"]) for c in curves.values())
         kind = "FDF, one curve per amplitude" if len(curves) > 1 else "FTF"
-        self.caption.setText(f"{kind}: {n} of {len(self.model.rows)} points")
+        n_flagged = sum(int(c["flagged"].sum()) for c in curves.values())
+        note = f" ({n_flagged} flagged: open markers)" if n_flagged else ""
+        self.caption.setText(f"{kind}: {n} of {len(self.model.rows)} points{note}")
         if self.truth_box.isChecked():
             self._draw_truth()
 
@@ -123,6 +141,18 @@ class ResponseView(QWidget):
             py += list(np.degrees(c["phase_rad"][mask]))
         self._selected.setData(gx, gy)
         self._selected_phase.setData(gx, py)
+        self.readout.setText(self._readout(indices))
+
+    def _readout(self, indices: list[int]) -> str:
+        """The selected points' values with their 95 % intervals, phase as on the curve (unwrapped)."""
+        lines = []
+        for c in self.model.curves().values():
+            for k in np.flatnonzero(np.isin(c["index"], indices)):
+                flag = ", flagged" if c["flagged"][k] else ""
+                lines.append(f"point {int(c['index'][k]) + 1}: {c['freq_hz'][k]:g} Hz, gain {c['gain'][k]:.3f} ± "
+                             f"{c['gain_ci95'][k]:.3f}, phase {np.degrees(c['phase_rad'][k]):.1f}° ± "
+                             f"{np.degrees(c['phase_ci95_rad'][k]):.1f}° (95 %){flag}")
+        return "\n".join(lines[:3]) + (f"\n… and {len(lines) - 3} more" if len(lines) > 3 else "")
 
     def _clicked(self, _item: object, points: object, *_args: object) -> None:
         pts = list(points) if points is not None else []
