@@ -192,10 +192,24 @@ class Plan(_Strict):
         n = self.frequencies.all_hz().size * len(set(self.amplitude.values))
         if n > MAX_POINTS:
             raise ValueError(f"{n} points (frequencies x amplitudes); at most {MAX_POINTS} in one plan")
-        problem = self.duration_problem()
+        problem = self.periods_problem() or self.duration_problem()
         if problem:
             raise ValueError(problem)
         return self
+
+    def periods_problem(self, sample_rate_hz: float | None = None) -> str | None:
+        """Why a record or tuning window is too short for the evaluation, or None: each must hold at
+        least two periods of the lowest frequency and, at ``sample_rate_hz``, 16 samples."""
+        f_min = float(self.frequencies.all_hz().min())
+        for key in ("record", "tuning_window"):
+            length_s = getattr(self.timing, key)
+            if length_s * f_min < 2.0 - 1e-9:
+                return (f"timing.{key}: {length_s:g} s holds fewer than two periods of the lowest frequency "
+                        f"({f_min:g} Hz); give at least {2.0 / f_min:g} s")
+            if sample_rate_hz is not None and length_s * sample_rate_hz < 16:
+                return (f"timing.{key}: {length_s:g} s is {length_s * sample_rate_hz:.0f} samples at "
+                        f"{sample_rate_hz:g} Hz; give at least {16 / sample_rate_hz:g} s (16 samples)")
+        return None
 
     def duration_problem(self, ramp_time_s: float = 0.3) -> str | None:
         """Why the estimated run time is too long, or None (at most :data:`MAX_RUN_S`)."""
@@ -232,9 +246,10 @@ class Plan(_Strict):
         f_max = float(self.frequencies.all_hz().max())
         if f_max >= 0.8 * nyquist:
             problems.append(f"frequencies: {f_max:g} Hz is too close to half the sample rate ({nyquist:g} Hz)")
-        too_long = self.duration_problem(ramp_time_s=rig.drive.ramp_time)
-        if too_long:
-            problems.append(too_long)
+        for problem in (self.periods_problem(rig.acquisition.sample_rate),
+                        self.duration_problem(ramp_time_s=rig.drive.ramp_time)):
+            if problem:
+                problems.append(problem)
         if problems:
             raise ConfigError(self.source_path or "<plan>", problems)
 

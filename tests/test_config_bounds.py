@@ -103,6 +103,26 @@ def test_a_sweep_longer_than_three_days_is_refused(tmp_path) -> None:
     assert "timing.record 3600 s" in msg
 
 
+def test_records_and_windows_hold_two_periods_and_16_samples(tmp_path) -> None:
+    # the evaluation needs at least two periods and 16 samples (app.core.response); refused at load
+    data = with_value(demo_data("plan"), ("frequencies", "linear"), {"start": "1 Hz", "stop": "100 Hz", "step": "1 Hz"})
+    f = tmp_path / "plan.toml"
+    f.write_text(dump_toml(data))
+    with pytest.raises(ConfigError, match=r"timing.tuning_window: 0.3 s holds fewer than two periods of the "
+                                          r"lowest frequency \(1 Hz\); give at least 2 s"):
+        load("plan", f)
+    from app.plan import plan_from_dict
+    from app.rig import load_rig, rig_from_dict
+
+    rig_data = demo_data("rig")
+    rig_data["acquisition"] = {"sample_rate": 1000.0, "block_duration": 0.016}
+    plan = plan_from_dict({**demo_data("plan"), "frequencies": {"values": [300.0]},
+                           "timing": {"record": 0.01, "tuning_window": 0.3}})
+    with pytest.raises(ConfigError, match=r"timing.record: 0.01 s is 10 samples at 1000 Hz; give at least 0.016 s"):
+        plan.check_against(rig_from_dict(rig_data))
+    plan.check_against(load_rig(DEMO["rig"]))       # 256 samples at the demo's 25.6 kHz
+
+
 def test_too_many_points_are_refused(tmp_path) -> None:
     data = with_value(demo_data("plan"), ("frequencies", "linear"),
                       {"start": "100 Hz", "stop": "1000 Hz", "step": "0.1 Hz"})

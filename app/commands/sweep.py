@@ -79,7 +79,8 @@ def record_memory(plan: Any, rig: Any) -> tuple[float, str]:
     A record of ``timing.record`` (up to 1 % longer, whole periods) of every input channel
     in float64, held twice: the blocks and the joined record (app.engine.sweep)."""
     fs, n_ch = rig.acquisition.sample_rate, len(rig.input_channels)
-    longest_s = max(plan.timing.record * 1.01, plan.timing.tuning_window) + rig.acquisition.block_duration
+    period_s = 1.0 / float(plan.frequencies.all_hz().min())    # a record holds at least one period
+    longest_s = max(plan.timing.record, plan.timing.tuning_window, period_s) * 1.01 + rig.acquisition.block_duration
     n_bytes = 2.0 * 8.0 * n_ch * math.ceil(longest_s * fs)
     how = (f"a {plan.timing.record:g} s record of {n_ch} channels at {fs:g} Hz is {_gb(n_bytes / 2)} of float64 "
            f"samples, held twice while it is assembled: {_gb(n_bytes)}")
@@ -90,10 +91,12 @@ def check_memory(plan: Any, rig: Any, total_bytes: int | None = None) -> str:
     """Refuse a record that would need more than half the machine's memory; say what it needs."""
     total = machine_memory_bytes() if total_bytes is None else total_bytes
     need, how = record_memory(plan, rig)
+    period_s = 1.0 / float(plan.frequencies.all_hz().min())
     if total is None:
         return f"{how}; this machine's memory could not be read, not checked"
     if need > total / 2:
-        per_s = need / (plan.timing.record * 1.01 + rig.acquisition.block_duration)
+        per_s = need / (max(plan.timing.record, plan.timing.tuning_window, period_s) * 1.01
+                        + rig.acquisition.block_duration)
         longest = (total / 2) / per_s
         raise SweepCommandError(
             f"{plan.source_path or '<plan>'}: timing.record: {how}, more than half of this machine's "
