@@ -396,11 +396,8 @@ class SnapshotChange:
     def describe(self) -> str:
         if not self.new_sha256:
             return f"{self.name}: the snapshot is missing (sha256 {self.old_sha256[:12]} expected)"
-        if self.keys:
-            what = "; ".join(self.keys)
-        else:
-            what = "content changed"
-        return f"{self.name}: {what} (sha256 {self.old_sha256[:12]} → {self.new_sha256[:12]})"
+        what = "; ".join(self.keys) if self.keys else "content changed"
+        return f"{self.name}: {what} (sha256 {self.old_sha256[:12] or '(none)'} → {self.new_sha256[:12]})"
 
 
 def _flatten(value: Any, prefix: str = "") -> dict[str, Any]:
@@ -486,6 +483,11 @@ def snapshot_changes(run_dir: str | Path) -> list[SnapshotChange]:
             keys = changed_keys(name, old, now) if old is not None else (
                 "(the run's index holds no copy of the accepted text, so the changed keys are unknown)",)
             out.append(SnapshotChange(name, digest, new_digest, keys, now))
+    for f in sorted(run.glob("scenario.*")):     # resume would use a scenario the run never had
+        if f.name not in accepted and f.is_file():
+            now = f.read_bytes()
+            out.append(SnapshotChange(f.name, "", hashlib.sha256(now).hexdigest(),
+                                      ("a scenario file the run was not created with",), now))
     return out
 
 

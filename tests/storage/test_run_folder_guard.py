@@ -130,7 +130,7 @@ def _outside_file(tmp_path: Path) -> Path:
 
 
 @pytest.mark.parametrize("how", ["climbs out (..)", "absolute", "device (absolute)", "symlink out",
-                                 "symlink to a device", "not under records/", "fifo"])
+                                 "symlink to a device", "not under records/", "fifo", "folder"])
 def test_record_paths_outside_the_run_are_refused_and_never_read(run_copy: Path, tmp_path: Path, how: str):
     secret = _outside_file(tmp_path)
     data = secret.read_bytes()
@@ -152,9 +152,12 @@ def test_record_paths_outside_the_run_are_refused_and_never_read(run_copy: Path,
         rel = "rig.toml"
         data = (run_copy / "rig.toml").read_bytes()
         size, sha = len(data), hashlib.sha256(data).hexdigest()
-    else:
+    elif how == "fifo":
         os.mkfifo(run_copy / "records" / "p0001-pipe.h5")      # opening it for reading would block
         rel, size, sha = "records/p0001-pipe.h5", 0, hashlib.sha256(b"").hexdigest()
+    else:
+        (run_copy / "records" / "p0001-dir.h5").mkdir()
+        rel, size, sha = "records/p0001-dir.h5", 4096, ""
     attempt = _set_record_path(run_copy, 1, rel, size, sha)
 
     proc = cli("review", str(run_copy), "--attempts")          # verifies hashes: would read the file
@@ -207,3 +210,12 @@ def test_review_into_a_closed_pipe_exits_quietly(run_copy: Path):
     proc.wait(timeout=20)
     assert "Traceback" not in err and "BrokenPipe" not in err and "Exception ignored" not in err, err
     assert proc.returncode == 141               # as a process ended by SIGPIPE (128 + 13)
+
+
+def test_a_run_whose_index_was_lost_is_still_a_run(run_copy: Path, tmp_path: Path):
+    (run_copy / "index.sqlite").unlink()
+    proc = cli("review", str(run_copy))
+    assert proc.returncode == 0 and "not a run folder" not in proc.stderr, proc.stderr
+    assert "attempts were rebuilt from the record files" in proc.stdout and "3 attempts" in proc.stdout
+    proc = cli("resume", str(run_copy), "--fast")
+    assert proc.returncode != 0 and "index.sqlite is missing" in proc.stderr and "Traceback" not in proc.stderr
