@@ -36,8 +36,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--plan", help="plan file to open (default: configs/demo-ftf-plan.toml)")
     p.add_argument("--run", metavar="RUN_DIR", help="open a stored run for review")
     p.add_argument("--runs-root", default="runs", help="where new runs are stored (default: ./runs)")
-    p.add_argument("--backend", default="simulated", help="back-end to select (default: simulated)")
-    p.add_argument("--fast", action="store_true", help="simulator only: run faster than real time")
+    p.add_argument("--backend", default=None,
+                   help="back-end to select (default: the one used last time if available, else simulated)")
+    p.add_argument("--fast", action="store_true", default=None,
+                   help="simulator only: run faster than real time (default: as last time)")
     p.add_argument("--first-run", action="store_true", help=argparse.SUPPRESS)
     # press Start once the window runs (tests, scripted rehearsals); same refusals as the button
     p.add_argument("--start", action="store_true", help=argparse.SUPPRESS)

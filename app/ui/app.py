@@ -42,12 +42,14 @@ def application_exists() -> bool:
 
 
 def run_window(rig_path: str | Path | None = None, plan_path: str | Path | None = None,
-               run_dir: str | Path | None = None, runs_root: str | Path = "runs", fast: bool = False,
-               backend: str = "simulated", start: bool = False) -> int:
+               run_dir: str | Path | None = None, runs_root: str | Path = "runs", fast: bool | None = None,
+               backend: str | None = None, start: bool = False) -> int:
     """Open the window (on the simulated burner by default) and run until it is closed.
 
     ``start`` presses Start as soon as the event loop runs (for tests and scripted rehearsals;
-    the same refusals apply as to the button)."""
+    the same refusals apply as to the button). ``backend`` and ``fast`` left as None take what
+    the window remembered from its last launch (``app.ui.settings``), else the simulated burner
+    in real time."""
     from PySide6.QtCore import QTimer
     from PySide6.QtWidgets import QApplication
 
@@ -65,8 +67,12 @@ def run_window(rig_path: str | Path | None = None, plan_path: str | Path | None 
     stops = StopSignals(act=halt_now, parent=app)
     stops.install()                # before the window: a signal during its construction is not lost
     try:
-        win = MainWindow(rig_path or DEMO_RIG, plan_path or DEMO_PLAN, runs_root=runs_root, backend=backend,
-                         fast=fast)
+        from . import settings
+
+        win = MainWindow(rig_path or DEMO_RIG, plan_path or DEMO_PLAN, runs_root=runs_root,
+                         backend=backend or "simulated", fast=bool(fast))
+        settings.restore(win, explicit={name for name, value in (("backend", backend), ("fast", fast),
+                                                                 ("run", run_dir)) if value is not None})
         windows.append(win)
 
         def on_signal(signum: int) -> None:     # the GUI thread, when it gets there

@@ -162,16 +162,19 @@ class MainWindow(QMainWindow):
         self.caution.setWordWrap(True)
         self.caution.setStyleSheet(CAUTION_STYLE)
         left = QSplitter(Qt.Orientation.Vertical)
+        left.setObjectName("sweep-left")
         left.addWidget(self.traces)
         left.addWidget(self.tuning)
         left.setStretchFactor(0, 3)
         left.setStretchFactor(1, 2)
         right = QSplitter(Qt.Orientation.Vertical)
+        right.setObjectName("sweep-right")
         right.addWidget(self.response)
         right.addWidget(self.point_list)
         right.setStretchFactor(0, 3)
         right.setStretchFactor(1, 2)
         split = QSplitter()
+        split.setObjectName("sweep-split")
         split.addWidget(left)
         split.addWidget(right)
         self.sweep_tab = QWidget()
@@ -689,5 +692,8 @@ class MainWindow(QMainWindow):
         self.tasks.shutdown()
 
     def closeEvent(self, event: QCloseEvent) -> None:
+        from . import settings
+
+        settings.save(self)        # before the shutdown: what the person arranged, not a torn-down window
         self.shutdown()
         super().closeEvent(event)

@@ -200,6 +200,7 @@ class SetupView(QWidget):
         left_scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
         left_scroll.setMinimumWidth(left.minimumSizeHint().width() + 16)
         split = QSplitter()
+        split.setObjectName("setup-split")
         split.addWidget(left_scroll)
         split.addWidget(files)
         split.setStretchFactor(0, 2)
