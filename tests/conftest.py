@@ -15,11 +15,13 @@ settings.register_profile("flamebode", derandomize=True, print_blob=True)
 settings.load_profile("flamebode")
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-# The window remembers its layout between launches (app/ui/settings.py, in $XDG_CONFIG_HOME):
-# tests, and the windows they start as subprocesses, keep theirs in a folder of their own.
-import tempfile  # noqa: E402
 
-os.environ["XDG_CONFIG_HOME"] = tempfile.mkdtemp(prefix="flamebode-test-config-")
+
+@pytest.fixture(autouse=True)
+def own_window_settings(tmp_path_factory, monkeypatch):
+    """The window remembers its layout between launches (app/ui/settings.py): every test, and
+    every window it starts as a subprocess, gets a settings file of its own."""
+    monkeypatch.setenv("FLAMEBODE_SETTINGS", str(tmp_path_factory.mktemp("settings") / "flamebode.ini"))
 
 
 def pytest_configure(config: pytest.Config) -> None:

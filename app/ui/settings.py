@@ -8,11 +8,13 @@ what was remembered. A remembered back-end that is not available here falls back
 simulated burner, and a remembered run folder that is gone is ignored.
 
 Where Qt keeps it: ``~/.config/flamebode/flamebode.ini`` on Linux (``$XDG_CONFIG_HOME``
-if set). Imports: PySide6 only (and the window it is given).
+if set), or the file named by ``FLAMEBODE_SETTINGS`` (tests give each test its own).
+Imports: PySide6 only (and the window it is given).
 """
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 from typing import Any
 
@@ -22,7 +24,12 @@ from PySide6.QtWidgets import QSplitter
 ORGANISATION = APPLICATION = "flamebode"
 
 
+ENV = "FLAMEBODE_SETTINGS"
+
+
 def store() -> QSettings:
+    if os.environ.get(ENV):
+        return QSettings(os.environ[ENV], QSettings.Format.IniFormat)
     return QSettings(QSettings.Format.IniFormat, QSettings.Scope.UserScope, ORGANISATION, APPLICATION)
 
 

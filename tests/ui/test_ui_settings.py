@@ -21,7 +21,8 @@ ROOT = Path(__file__).resolve().parents[2]
 
 
 def _window(tmp_path: Path, code: str) -> subprocess.CompletedProcess:
-    env = {**os.environ, "XDG_CONFIG_HOME": str(tmp_path / "config"), "QT_QPA_PLATFORM": "offscreen"}
+    env = {**os.environ, "FLAMEBODE_SETTINGS": "", "XDG_CONFIG_HOME": str(tmp_path / "config"),
+           "QT_QPA_PLATFORM": "offscreen"}
     return subprocess.run([sys.executable, "-c", code], cwd=ROOT, env=env, capture_output=True, text=True,
                           timeout=120)
 
