@@ -344,6 +344,11 @@ class PointTable(Observable):
                            "flagged": np.array([r.status == FLAGGED or bool(r.flags) for r in rows], dtype=bool)}
         return curves
 
+    def shown_phase_rad(self) -> dict[int, float]:
+        """Phase per point index as the response curve shows it (unwrapped along frequency per
+        amplitude), so the table and the curve read the same number."""
+        return {int(i): float(ph) for c in self.curves().values() for i, ph in zip(c["index"], c["phase_rad"])}
+
     @property
     def n_done(self) -> int:
         return sum(r.status in (KEPT, FLAGGED, SKIPPED) for r in self.rows)

@@ -42,3 +42,21 @@ def test_flagged_open_axis_fixed_and_readout(qtbot):
     assert "1 flagged: open markers" in view.caption.text()
     view.select([2])
     assert "point 3: 500 Hz, gain 1.020 ± 0.020, phase -240.0° ± 1.7° (95 %)" in view.readout.text()
+
+
+def test_the_table_reads_the_phase_the_curve_shows(qtbot):
+    # one convention for people: degrees, unwrapped along frequency, with the interval
+    from app.ui.views.points import PointListView
+
+    table = PointTable()
+    table.set_plan([SimpleNamespace(index=i, freq_hz=f, amplitude_ratio=0.05) for i, f in enumerate([100.0, 300.0])])
+    view = PointListView(table)
+    qtbot.addWidget(view)
+    table.on_settled(_settled(0, 100.0, np.radians(-150.0)))
+    table.on_settled(_settled(1, 300.0, np.radians(150.0)))        # wrapped; -210 degrees on the curve
+    view.qt_model._changed()
+    phase_col = 6
+    text = view.qt_model.data(view.qt_model.index(1, phase_col))
+    assert text == "-210.0 ± 1.7", text
+    assert view.qt_model.headerData(phase_col, __import__("PySide6.QtCore", fromlist=["Qt"]).Qt.Orientation.Horizontal) \
+        == "Phase (deg, unwrapped)"

@@ -1,7 +1,8 @@
 """The point list: one row per planned point with its status, attempts, result and flags.
 
 ``PointTableQt`` adapts the Qt-free ``PointTable`` to a table view (it holds no data of
-its own); selecting rows emits ``selection_changed`` with the plan indices.
+its own); selecting rows emits ``selection_changed`` with the plan indices. Phase reads as on the
+response curve: degrees, unwrapped along frequency, with its 95 % interval.
 
 Imports: PySide6, ``app.ui.models`` and ``.style`` only.
 """
@@ -18,7 +19,8 @@ from PySide6.QtWidgets import QAbstractItemView, QHeaderView, QTableView, QVBoxL
 from ..models import PointRow, PointTable
 from .style import STATUS_COLOURS, Coalesced
 
-COLUMNS = ("#", "Frequency (Hz)", "Target |u'|/ū", "Status", "Attempts", "Gain", "Phase (deg)", "Flags")
+COLUMNS = ("#", "Frequency (Hz)", "Target |u'|/ū", "Status", "Attempts", "Gain", "Phase (deg, unwrapped)",
+           "Flags")
 Index = QModelIndex | QPersistentModelIndex
 
 
@@ -26,11 +28,14 @@ def _num(v: float, fmt: str) -> str:
     return format(v, fmt) if math.isfinite(v) else ""
 
 
-def cell_text(r: PointRow, col: int) -> str:
+def cell_text(r: PointRow, col: int, phase_rad: float | None = None) -> str:
+    """One cell; ``phase_rad`` is the phase as the curve shows it (unwrapped), when it shows the point."""
+    phase = r.phase_rad if phase_rad is None else phase_rad
+    ci = f" ± {math.degrees(r.phase_ci95_rad):.1f}" if math.isfinite(r.phase_ci95_rad) else ""
     values = (str(r.index + 1), f"{r.freq_hz:g}", f"{r.target_ratio:g}", r.status, str(r.attempts),
               _num(r.gain, ".3f") + (f" ± {r.gain_ci95:.3f}" if math.isfinite(r.gain_ci95) and math.isfinite(r.gain)
                                      else ""),
-              _num(math.degrees(r.phase_rad), "+.1f") if math.isfinite(r.phase_rad) else "",
+              (_num(math.degrees(phase), ".1f") + ci) if math.isfinite(phase) and math.isfinite(r.gain) else "",
               ", ".join(r.flags))
     return values[col]
 
@@ -42,9 +47,11 @@ class PointTableQt(QAbstractTableModel):
         super().__init__(parent)
         self.table = table
         self._rows = len(table.rows)
+        self._phase: dict[int, float] = {}
         table.subscribe(Coalesced(self._changed, parent=self))
 
     def _changed(self) -> None:
+        self._phase = self.table.shown_phase_rad()
         self.beginResetModel()
         self.endResetModel()
         if len(self.table.rows) != self._rows:
@@ -62,7 +69,7 @@ class PointTableQt(QAbstractTableModel):
             return None
         r = self.table.rows[index.row()]
         if role == Qt.ItemDataRole.DisplayRole:
-            return cell_text(r, index.column())
+            return cell_text(r, index.column(), self._phase.get(r.index))
         if role == Qt.ItemDataRole.BackgroundRole:
             return QColor(STATUS_COLOURS.get(r.status, "#FFFFFF"))
         if role == Qt.ItemDataRole.ToolTipRole and index.column() == 7 and r.flags:
