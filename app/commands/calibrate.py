@@ -1,0 +1,249 @@
+"""``flamebode calibrate RIG``: relative calibration of the pressure sensors (common-plane method).
+
+With every pressure sensor mounted in a calibration holder (one axial plane, the same
+pressure), a stepped sine over ``--band`` every ``--step`` Hz, each frequency tuned so that
+the reference sensor reads ``--pressure``; per frequency the core gives each sensor's factor
+C_i = G_ref,ref / G_ref,i with coherence and uncertainty (app.core.calibration). Frequencies
+at or above the duct's first transverse cut-on are refused with a warning naming them.
+``--check-reference`` repeats the estimate against a second reference sensor from the same
+records and refuses to write a file whose two results disagree. The result is written
+atomically to ``--out`` (docs/calibration-file.md); nothing is written when the run is
+stopped, and an older file of that name stays as it was.
+
+On the simulated burner the holder is simulated (all sensors at one plane, no flame, the
+scenario's true sensor errors); ``--fast`` and ``--seed`` as for ``flamebode sweep`` (use the
+same seed as the sweeps the calibration is for: the seed draws the simulated sensors' errors).
+SIGINT, SIGTERM and SIGHUP zero the output at once and exit 128 + the signal's number.
+
+Imports: the core's calibration, descriptions, the driver registry and safety (through
+.running), lazily. Never Qt.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as _dt
+import math
+import signal
+import sys
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..errors import FlamebodeError
+
+MAX_PRESSURE_PA = 200.0      # 137 dB re 20 µPa: a holder target above this is refused
+MAX_FREQUENCIES = 1000
+
+
+class CalibrateCommandError(FlamebodeError):
+    """The calibrate command cannot run as asked; the message names the option."""
+
+
+class CalibrationStopped(FlamebodeError):
+    """A signal stopped the run: output zeroed, nothing written."""
+
+    def __init__(self, signum: int, out: Path):
+        self.exit_code = 128 + signum
+        super().__init__(f"{signal.Signals(signum).name} received: outputs zeroed at once; nothing written "
+                         f"({out} {'left as it was' if out.exists() else 'not created'})")
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("rig", help="rig file (TOML), see docs/rig-file.md")
+    p.add_argument("--method", choices=("common-plane",), default="common-plane",
+                   help="common-plane: every sensor in a holder at one plane (default)")
+    p.add_argument("--band", default="100-2000", help="LOW-HIGH in Hz (default 100-2000)")
+    p.add_argument("--step", type=float, default=50.0, help="frequency step in Hz (default 50)")
+    p.add_argument("--reference", help="reference sensor (default: the rig's first pressure sensor)")
+    p.add_argument("--check-reference", metavar="SENSOR",
+                   help="also estimate against this second reference and check the two agree")
+    p.add_argument("--pressure", default="20 Pa", help="peak pressure at the holder, with its unit (default 20 Pa)")
+    p.add_argument("--record", default="1 s", help="record length per frequency, with its unit (default 1 s)")
+    p.add_argument("--segments", type=int, default=16, help="segments per record for the cross-spectra (default 16)")
+    p.add_argument("--out", required=True, metavar="CAL_FILE", help="calibration file to write (TOML)")
+    p.add_argument("--backend", default="simulated", help="back-end name (default: simulated)")
+    p.add_argument("--scenario", help="simulated burner scenario (default: the demo's for the demo rig)")
+    p.add_argument("--fast", action="store_true", help="simulator only: run as fast as the CPU allows")
+    p.add_argument("--seed", type=int, default=None, help="simulator only: random seed")
+
+
+# ----------------------------------------------------------------------------- options
+def parse_band(text: str, step_hz: float) -> list[float]:
+    lo_s, sep, hi_s = str(text).partition("-")
+    try:
+        lo, hi = float(lo_s), float(hi_s)
+    except ValueError:
+        raise CalibrateCommandError(f"--band {text!r}: expected LOW-HIGH in Hz, e.g. 100-2000") from None
+    if not sep or not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo <= hi):
+        raise CalibrateCommandError(f"--band {text!r}: expected LOW-HIGH in Hz with 0 < LOW <= HIGH")
+    if not (math.isfinite(step_hz) and step_hz > 0):
+        raise CalibrateCommandError(f"--step {step_hz!r}: must be a number of Hz > 0")
+    n = int(math.floor((hi - lo) / step_hz + 1e-9)) + 1
+    if n > MAX_FREQUENCIES:
+        raise CalibrateCommandError(f"--band {text} with --step {step_hz:g} gives {n} frequencies; at most "
+                                    f"{MAX_FREQUENCIES}")
+    return [round(lo + k * step_hz, 9) for k in range(n)]
+
+
+def _quantity(option: str, text: str, kind: str, lo: float, hi: float, unit: str) -> float:
+    from ..units import parse_quantity
+
+    try:
+        value = parse_quantity(text, kind, unit_required=True)
+    except (ValueError, TypeError) as exc:
+        raise CalibrateCommandError(f"{option} {text!r}: {exc}") from None
+    if not lo < value <= hi:
+        raise CalibrateCommandError(f"{option} {text!r}: must be more than {lo:g} {unit} and at most {hi:g} {unit}")
+    return value
+
+
+def _reference(rig: Any, name: str | None, option: str) -> str:
+    names = [s.channel for s in rig.pressure_sensors]
+    if name is None:
+        return names[0]
+    if name not in names:
+        raise CalibrateCommandError(f"{option} {name!r}: not a pressure sensor of {rig.source_path} "
+                                    f"({', '.join(names)})")
+    return name
+
+
+# ----------------------------------------------------------------------------- run
+def run(args: argparse.Namespace) -> int:
+    from ..core import calibration as core
+    from ..rig import load_rig
+
+    rig = load_rig(args.rig)
+    reference = _reference(rig, args.reference, "--reference")
+    second = _reference(rig, args.check_reference, "--check-reference") if args.check_reference else None
+    if second == reference:
+        raise CalibrateCommandError(f"--check-reference {second}: must differ from the reference sensor")
+    target_pa = _quantity("--pressure", args.pressure, "pressure", 0.0, MAX_PRESSURE_PA, "Pa")
+    record_s = _quantity("--record", args.record, "time", 0.0, 600.0, "s")
+    if not 4 <= args.segments <= 256:
+        raise CalibrateCommandError(f"--segments {args.segments}: must be from 4 to 256")
+    freqs = parse_band(args.band, args.step)
+    nyquist = rig.acquisition.sample_rate / 2.0
+    if freqs[-1] >= 0.45 * rig.acquisition.sample_rate:
+        raise CalibrateCommandError(f"--band {args.band}: {freqs[-1]:g} Hz is too close to half the rig's "
+                                    f"{rig.acquisition.sample_rate:g} Hz sample rate ({nyquist:g} Hz)")
+    cut_on = core.duct_cut_on_hz(rig)
+    freqs, refused = core.split_at_cut_on(freqs, cut_on)
+    if refused:
+        print(f"warning: refused {', '.join(f'{f:g}' for f in refused)} Hz: at or above the duct's first transverse "
+              f"cut-on {cut_on:.0f} Hz (radius {rig.duct.radius_m * 1e3:g} mm), where the sensors at one plane no "
+              f"longer see one pressure", file=sys.stderr)
+    if not freqs:
+        raise CalibrateCommandError(f"--band {args.band}: every frequency is at or above the cut-on {cut_on:.0f} Hz")
+    out = Path(args.out)
+    if not out.parent.is_dir():
+        raise CalibrateCommandError(f"--out {out}: folder {out.parent} does not exist")
+    if out.is_dir():
+        raise CalibrateCommandError(f"--out {out}: is a folder, not a file")
+    return _calibrate(args, rig, reference, second, freqs, cut_on, target_pa, record_s, out)
+
+
+def _open(args: argparse.Namespace, rig: Any) -> Any:
+    from drivers.registry import open_backend
+
+    if args.backend == "simulated":
+        return open_backend("simulated", rig, scenario=args.scenario, real_time=not args.fast, seed=args.seed,
+                            holder=True)
+    print("caution: the sensors must be mounted in the calibration holder; the speaker will be driven loud "
+          "(hearing protection), within the rig's drive ceiling; the laboratory's own rules come first",
+          file=sys.stderr)
+    return open_backend(args.backend, rig)
+
+
+def _calibrate(args: argparse.Namespace, rig: Any, reference: str, second: str | None, freqs: list[float],
+               cut_on: float, target_pa: float, record_s: float, out: Path) -> int:
+    from drivers.registry import close_backend
+
+    from ..core import calibration as core
+    from .holder_run import DriveSettings, Halted, HolderRun
+    from .running import StopSignals
+
+    sensors = [s.channel for s in rig.pressure_sensors]
+    sens = [s.sensitivity for s in rig.pressure_sensors]
+    device = _open(args, rig)
+    settings = DriveSettings(target_pa=target_pa, ceiling_v=rig.drive.ceiling)
+    holder = HolderRun(device, sensors, sens, reference, settings, record_s, rig.acquisition.block_duration)
+    results: dict[str, list[core.FrequencyFactors]] = {reference: [], **({second: []} if second else {})}
+    print(f"calibrating {len(sensors)} sensors of {rig.name} against {reference}: {len(freqs)} frequencies "
+          f"{freqs[0]:g}-{freqs[-1]:g} Hz at {target_pa:g} Pa, cut-on {cut_on:.0f} Hz")
+
+    def on_record(rec: Any) -> None:
+        for ref in results:
+            results[ref].append(core.calibrate_record(rec.pressures, sensors, ref, device.sample_rate_hz,
+                                                      rec.freq_hz, args.segments))
+        q = results[reference][-1]
+        others = [j for j, n in enumerate(sensors) if n != reference]
+        note = "  (ceiling reached: below the target)" if rec.at_ceiling else ""
+        print(f"  {rec.freq_hz:8.1f} Hz  drive {rec.drive_v * 1e3:8.2f} mV  {rec.pressure_pa:7.2f} Pa  "
+              f"coherence >= {q.coherence[others].min():.6f}  u(gain) <= {q.u_gain_rel[others].max() * 100:.3f} %"
+              f"{note}", flush=True)
+
+    with StopSignals(holder) as stops:
+        try:
+            holder.run(freqs, on_record)
+        except Halted:
+            pass
+        finally:
+            try:
+                holder.ramp_to_zero()
+            finally:
+                close_backend(device)
+        if stops.received is not None:
+            raise CalibrationStopped(stops.received, out)
+        cal = core.assemble(results[reference], sensors, reference)
+        check = None
+        if second:
+            check = core.consistency(cal, core.assemble(results[second], sensors, second))
+            print(f"check against {second}: largest deviation {check.worst_z:.2f} standard uncertainties "
+                  f"({check.worst_part} of {check.worst_sensor} at {check.worst_freq_hz:g} Hz)")
+            if not check.consistent:
+                raise CalibrateCommandError(
+                    f"the calibrations against {reference} and {second} disagree: the {check.worst_part} of "
+                    f"{check.worst_sensor} at {check.worst_freq_hz:g} Hz by {check.worst_z:.1f} standard "
+                    f"uncertainties (limit {check.limit:g}); nothing written. Check the holder (every sensor at "
+                    f"one plane, sealed) and repeat")
+        written = _write(out, cal, rig, args, target_pa, record_s, cut_on, check)   # atomic: whole or absent
+    print(f"calibration file: {written}")
+    return 0
+
+
+def calibration_file_of(cal: Any, rig: Any, conditions: dict[str, Any], cut_on_hz: float,
+                        created: str | None = None) -> Any:
+    """The file's contents for a core :class:`~app.core.calibration.Calibration` made on ``rig``."""
+    from ..calibration_file import CalibrationFile, SensorFactors, rig_identity
+
+    phase = np.degrees(np.unwrap(np.angle(cal.factor), axis=0))
+    sensors = []
+    for j, s in enumerate(rig.pressure_sensors):
+        col = cal.column(s.channel)
+        sensors.append(SensorFactors(
+            name=s.channel, sensitivity_v_pa=float(s.sensitivity), position_m=float(s.position),
+            gain=tuple(float(v) for v in np.abs(cal.factor[:, col])), phase_deg=tuple(float(v) for v in phase[:, col]),
+            u_gain=tuple(float(v) for v in cal.u_gain_rel[:, col]),
+            u_phase_deg=tuple(float(v) for v in np.degrees(cal.u_phase_rad[:, col])),
+            coherence=tuple(float(v) for v in cal.coherence[:, col]), serial=str(getattr(s, "serial", "") or "")))
+    when = created or _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    return CalibrationFile(created=when, method=cal.method, reference=cal.reference, rig_name=rig.name,
+                           rig_identity=rig_identity(rig), frequency_hz=tuple(float(f) for f in cal.freq_hz),
+                           sensors=tuple(sensors), cut_on_hz=float(cut_on_hz),
+                           rig_file=str(Path(rig.source_path).resolve()) if rig.source_path else "",
+                           conditions=conditions)
+
+
+def _write(out: Path, cal: Any, rig: Any, args: argparse.Namespace, target_pa: float, record_s: float,
+           cut_on: float, check: Any) -> Path:
+    from ..calibration_file import write_calibration
+
+    conditions: dict[str, Any] = {"backend": args.backend, "pressure_pa": target_pa, "record_s": record_s,
+                                  "segments": args.segments}
+    if args.backend == "simulated" and args.seed is not None:
+        conditions["simulated_seed"] = args.seed
+    if check is not None:
+        conditions.update({"check_reference": args.check_reference, "check_worst_z": check.worst_z})
+    return write_calibration(out, calibration_file_of(cal, rig, conditions, cut_on))
