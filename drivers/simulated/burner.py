@@ -28,6 +28,9 @@ How to get the blocks of a 2 s record at one frequency and drive voltage::
     blocks = [sim.read_block() for _ in range(n)]   # contiguous: start_index steps by n_samples
     data = np.concatenate([b.data for b in blocks], axis=1)  # (channels, samples) in volts
 
+Calibration-holder mode (``SimulatedBurner(rig, holder=True)``, see ``holder``): every
+pressure sensor at one plane, no flame, for the relative calibration of the sensors.
+
 The true answer for the same point: ``truth.true_ftf(sim, 400.0, a)`` with the peak
 amplitude ratio a = |û_ref|/ū_ref, ``truth.true_velocity_per_volt(sim, 400.0, 0.5)``.
 
@@ -49,6 +52,7 @@ from drivers.guard import CeilingGuard
 from drivers.protocols import Availability, Block, DriveStatus
 
 from .faults import FaultClock, RigEvent, active_mask
+from .holder import holder_plane_m, mount
 from .model import BurnerModel, Oscillation
 from .noise import ColouredNoise, adc, shot_noise
 from .scenario import Scenario, load_scenario
@@ -95,7 +99,10 @@ class SimulatedBurner:
     """A burner rig in software. Deterministic from the seed; faster than real time by default."""
 
     def __init__(self, rig: Rig, scenario: Scenario | str | Path | None = None,
-                 real_time: bool = False, seed: int | None = None) -> None:
+                 real_time: bool = False, seed: int | None = None, holder: bool = False,
+                 holder_plane: float | None = None) -> None:
+        """``holder``: calibration-holder mode (``holder``): every sensor at the axial plane
+        ``holder_plane`` (m; default the most upstream sensor's), no flame."""
         self.rig = rig
         self.scenario = resolve_scenario(rig, scenario)
         self.seed = int(self.scenario.seed if seed is None else seed)
@@ -104,6 +111,7 @@ class SimulatedBurner:
         self._block_n = max(1, int(round(acq.block_duration * self._fs)))
         self.guard = CeilingGuard(rig.drive.ceiling, self._fs, rig.drive.ramp_time)
         self.model = BurnerModel(rig, self.scenario, self.seed)
+        self.holder_plane_m = holder_plane_m(rig, holder_plane) if holder else None
         self._channels = tuple(rig.input_channels)
         self._faults = FaultClock(self.scenario.faults, self._fs)
         rng = np.random.default_rng([self.seed, 1])
@@ -117,9 +125,12 @@ class SimulatedBurner:
         for text in self.warnings:
             LOG.warning("simulated burner: %s", text)
         phase = float(np.random.default_rng([self.seed, 4]).uniform(0.0, TWO_PI))
-        self._excitation = self_excitation(self.model, self.stability, phase)
+        self._excitation = self_excitation(self.model, self.stability, phase) if not holder else None
         if self._excitation is not None:
             self.model.flame_factor_cap = self._excitation.incremental_factor
+        if self.holder_plane_m is not None:   # no flame in the holder: the burner's stability is moot
+            self.warnings = ()
+            mount(self.model, self.holder_plane_m)
         self._index = 0
         self._prev_drive_v = 0.0
         self._started = False
@@ -133,7 +144,8 @@ class SimulatedBurner:
         return Availability(True, "built-in simulator")
 
     def identity(self) -> dict[str, str]:
-        return {"maker": "flamebode", "model": "simulated burner", "serial": f"seed-{self.seed}",
+        model = "simulated burner" if self.holder_plane_m is None else "simulated burner, calibration holder"
+        return {"maker": "flamebode", "model": model, "serial": f"seed-{self.seed}",
                 "rig": self.rig.name, "scenario": self.scenario.source_path or "<default>",
                 "numpy": np.__version__}
 
@@ -153,7 +165,7 @@ class SimulatedBurner:
 
     @property
     def flame_on(self) -> bool:
-        return self._index <= self._faults.flame_out_index
+        return self.holder_plane_m is None and self._index <= self._faults.flame_out_index
 
     @property
     def rig_events(self) -> tuple[RigEvent, ...]:
@@ -251,7 +263,7 @@ class SimulatedBurner:
         disconnected = active_mask(self._faults.disconnect, i0, n)
         if disconnected is not None:
             z = np.where(disconnected, 0.0, z)  # the speaker no longer moves; the reference goes on
-        if self._faults.flame_out_index <= i0:  # blown off earlier: stays out
+        if self._faults.flame_out_index <= i0 or self.holder_plane_m is not None:  # out, or in the holder
             flame_mask = np.zeros(n, dtype=bool)
             forced = self.model.forced(z, cps * fs, state, flame=False)
         else:

@@ -80,3 +80,20 @@ def true_sensor_factors(source: Source) -> dict[str, complex]:
     """True complex sensitivity (V/Pa, with its phase error) of each pressure channel."""
     model, _ = _model(source)
     return {s.channel: complex(c) for s, c in zip(model.rig.pressure_sensors, model.sensor_factor)}
+
+
+def true_relative_factors(source: Source, reference: str) -> dict[str, complex]:
+    """True relative calibration factors C_i = r_ref / r_i of each pressure channel, where
+    r = (true complex sensitivity) / (the rig file's nominal sensitivity).
+
+    Multiplying sensor i's pressure (volts over its nominal sensitivity) by C_i expresses
+    it in the reference sensor's units, amplitude and phase; C_ref = 1. This is what a
+    common-plane calibration against ``reference`` must find (it cannot find r_ref itself)."""
+    model, _ = _model(source)
+    names = [s.channel for s in model.rig.pressure_sensors]
+    if reference not in names:
+        raise KeyError(f"no pressure sensor {reference!r} (sensors: {', '.join(names)})")
+    nominal = np.array([s.sensitivity for s in model.rig.pressure_sensors])
+    r = model.sensor_factor / nominal
+    r_ref = r[names.index(reference)]
+    return {name: complex(r_ref / ri) for name, ri in zip(names, r)}
