@@ -290,7 +290,11 @@ class MainWindow(QMainWindow):
     def _started(self, result: TaskResult) -> None:
         if result.error is not None:
             self._say(f"Could not start: {result.error}")
-            self.status.state = "idle"
+            self.status.state = "could not start"
+            self.banner.show_problem("Could not start the sweep", str(result.error),
+                                     "nothing was driven; the run folder keeps whatever it already held",
+                                     "fix the problem named above (Set-up: rig, plan, back-end), then Start again")
+            self.tabs.setCurrentWidget(self.sweep_tab)
             if self.session is not None:
                 self.session.closed = True
             self._update_controls()

@@ -42,7 +42,7 @@ class FaultBanner(QFrame):
         """Show a FaultRaised event (name, message, action, advice, fatal)."""
         self.count += 1
         self.last = ev
-        kind = "Fault — sweep ended" if ev.fatal else "Point flagged"
+        kind = "Fault — sweep ended" if ev.fatal else ("Point flagged" if ev.point_index is not None else "Warning")
         more = f"   ({self.count - 1} earlier)" if self.count > 1 else ""
         point = f" at point {ev.point_index + 1}" if ev.point_index is not None else ""
         self.title.setText(f"{kind}: {ev.name}{point}{more}")
@@ -50,6 +50,17 @@ class FaultBanner(QFrame):
         self.action.setText(f"What the tool did: {ev.action}")
         self.advice.setText(f"What you can do: {ev.advice}")
         self.setStyleSheet(FAULT_FATAL_STYLE if ev.fatal else FAULT_FLAG_STYLE)
+        self.show()
+
+    def show_problem(self, title: str, what: str, did: str, advice: str) -> None:
+        """A problem that is not an engine fault (e.g. a Start that failed), in the same three lines."""
+        self.count += 1
+        self.last = None
+        self.title.setText(title)
+        self.message.setText(f"What happened: {what}")
+        self.action.setText(f"What the tool did: {did}")
+        self.advice.setText(f"What you can do: {advice}")
+        self.setStyleSheet(FAULT_FATAL_STYLE)
         self.show()
 
     def reset(self) -> None:
