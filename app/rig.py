@@ -208,7 +208,15 @@ class Rig(_Strict):
     gas: Gas
     acquisition: Acquisition = Acquisition()
     hardware: dict[str, dict[str, Any]] = Field(default_factory=dict)
+    pressure_calibration: str | None = Field(default=None, min_length=1)  # docs/calibration-file.md
     source_path: str = ""
+
+    @model_validator(mode="after")
+    def _one_calibration_source(self) -> "Rig":
+        if self.pressure_calibration and any(s.calibration for s in self.pressure_sensors):
+            raise ValueError("give either 'pressure_calibration' (a calibration file) or per-sensor 'calibration' "
+                             "tables, not both")
+        return self
 
     @field_validator("pressure_sensors")
     @classmethod
@@ -251,9 +259,18 @@ class Rig(_Strict):
 
 def rig_from_dict(data: dict[str, Any], path: str = "<rig>", units_required: bool = False) -> Rig:
     """Validate a rig given as a dict: SI numbers, or with ``units_required`` (the text of a file) units."""
-    return model_from_dict(Rig, data, str(path), RIG_DOC, units_required=units_required)
+    return _with_calibration_file(model_from_dict(Rig, data, str(path), RIG_DOC, units_required=units_required))
 
 
 def load_rig(path: str | Path, units_required: bool = True) -> Rig:
     """Load and validate a rig file (``units_required=False`` reads an old file's bare numbers as SI)."""
-    return load_model(Rig, path, RIG_DOC, units_required=units_required)
+    return _with_calibration_file(load_model(Rig, path, RIG_DOC, units_required=units_required))
+
+
+def _with_calibration_file(rig: Rig) -> Rig:
+    """The rig with the factors of the calibration file it names in its sensors' tables (checked there)."""
+    if not rig.pressure_calibration:
+        return rig
+    from .calibration_file import attach  # local: that module reads this one's types
+
+    return attach(rig)
