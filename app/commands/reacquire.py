@@ -29,6 +29,7 @@ def run(args: argparse.Namespace) -> int:
     from ..plan import load_plan
     from ..storage import index
     from ..storage.reader import open_run
+    from ..storage.writer import ensure_not_busy
     from .reprocess_run import parse_points
     from .resume import check_snapshots, continue_run
 
@@ -45,6 +46,7 @@ def run(args: argparse.Namespace) -> int:
     if not wanted:
         print(f"{r.run_dir}: no point to reacquire")
         return 0
+    ensure_not_busy(r.run_dir)
     check_snapshots(r.run_dir, args.accept_changed_snapshot, "reacquire")
     print(f"reacquiring point(s) {', '.join(str(i + 1) for i in wanted)} of {r.run_dir}")
     reason = continue_run(r.run_dir, [i for i in planned if i in set(wanted)], fast=args.fast)

@@ -110,12 +110,13 @@ def run(args: argparse.Namespace) -> int:
     from ..plan import load_plan
     from ..storage import index
     from ..storage.reader import open_run
-    from ..storage.writer import set_aside_leftovers
+    from ..storage.writer import ensure_not_busy, set_aside_leftovers
 
     run_dir = index.require_run_folder(args.run_dir)
     if not (run_dir / index.INDEX_NAME).is_file():
         raise ResumeError(f"{run_dir}: cannot resume: the index {index.INDEX_NAME} is missing (the record "
                           f"files are still there; 'flamebode review {run_dir}' lists them)")
+    ensure_not_busy(run_dir)
     check_snapshots(run_dir, args.accept_changed_snapshot, "resume")
     for src, dst, why in set_aside_leftovers(run_dir):
         print(f"set aside {src.relative_to(run_dir)} -> {dst.relative_to(run_dir)}: {why}")

@@ -449,6 +449,20 @@ def hold_writer_lock(run_dir: Path) -> int:
     return fd
 
 
+def ensure_not_busy(run_dir: str | Path) -> None:
+    """:class:`RunBusy` when another process is writing the run (it holds ``writer.lock``)."""
+    run = Path(run_dir)
+    fd = os.open(run / LOCK_NAME, os.O_RDWR | os.O_CREAT, 0o644)
+    try:
+        if fcntl is not None:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except BlockingIOError:
+        raise RunBusy(f"{run}: a sweep, resume or re-acquire is still writing this run (it holds "
+                      f"{run / LOCK_NAME}); wait for it to end or stop it first") from None
+    finally:
+        os.close(fd)
+
+
 def set_aside_leftovers(run_dir: str | Path) -> list[tuple[Path, Path, str]]:
     """Move unfinished ``.part`` files and record files no index row names into RUN_DIR/set-aside/.
 
@@ -506,5 +520,5 @@ def set_aside_leftovers(run_dir: str | Path) -> list[tuple[Path, Path, str]]:
 
 __all__ = ["RunWriter", "RunFolderError", "writer_for_existing_run", "analysis_from_result",
            "record_file_name", "RECORDS_DIR", "SNAPSHOT_RIG", "SNAPSHOT_PLAN", "SNAPSHOT_SCENARIO",
-           "library_versions", "sha256_file", "set_aside_leftovers", "RunBusy", "SET_ASIDE_DIR", "LOCK_NAME",
+           "library_versions", "sha256_file", "set_aside_leftovers", "ensure_not_busy", "RunBusy", "SET_ASIDE_DIR", "LOCK_NAME",
            "refusal_message"]

@@ -139,7 +139,7 @@ def test_resume_sets_leftovers_aside_naming_each_and_deletes_nothing(tmp_path: P
 
 
 @pytest.mark.timeout(60)
-def test_resume_refuses_while_a_sweep_still_writes_the_run(tmp_path: Path):
+def test_resume_and_reacquire_refuse_while_a_sweep_still_writes_the_run(tmp_path: Path):
     run_dir, cmd = _made_run(tmp_path, record_s=2.0, fast=False)     # real time: it is still running
     sweep = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
     try:
@@ -154,6 +154,10 @@ def test_resume_refuses_while_a_sweep_still_writes_the_run(tmp_path: Path):
         assert proc.returncode != 0 and "Traceback" not in proc.stderr, proc.stderr
         assert "still writing this run" in proc.stderr
         assert part.exists() and not (run_dir / "set-aside").exists()
+        proc = subprocess.run([sys.executable, "-m", "app.cli", "reacquire", str(run_dir), "--points", "1",
+                               "--fast"], cwd=ROOT, capture_output=True, text=True, timeout=30)
+        assert proc.returncode != 0 and "still writing this run" in proc.stderr, proc.stdout + proc.stderr
+        assert "reacquiring" not in proc.stdout
     finally:
         sweep.send_signal(signal.SIGTERM)
         sweep.communicate(timeout=30)
