@@ -409,6 +409,8 @@ class MainWindow(QMainWindow):
         if isinstance(ev, StateChanged):
             self.status.state, self.status.point_index = ev.new, ev.point_index
             self.points.on_state(ev)
+            if ev.new == "tuning" and self.traces.light_start_v is None:
+                self.traces.light_start_v = self.traces.light_mean_v     # drive still off: the flame's own level
             if ev.new == "tuning" and ev.point_index is not None and self.points.row(ev.point_index) is not None:
                 self.tuning_model.begin_point(ev.point_index, self.points.row(ev.point_index).target_ratio)
             if ev.new == S.PAUSED:
@@ -442,6 +444,8 @@ class MainWindow(QMainWindow):
         self.tuning_model.max_steps = int(ev.plan.tuning.max_steps)
         self.tuning.set_ceiling(self.status.ceiling_v)
         self.roles = channel_roles(ev.rig)
+        self.traces.set_scales({s.channel: 1.0 / s.sensitivity for s in ev.rig.pressure_sensors})
+        self.traces.light_start_v = None
         freqs = [p.freq_hz for p in ev.plan.points()]
         self.response.set_truth(self._truth_for(ev, req), (0.9 * min(freqs), 1.05 * max(freqs)))
 
@@ -593,9 +597,18 @@ class MainWindow(QMainWindow):
         def done(result: TaskResult) -> None:
             if result.error is None and self.review.run is run:
                 rec = result.value
+                self.review.record.set_scales(self._pascal_per_volt(rec))
                 self.review.record.show_record(rec.data, rec.channels, rec.sample_rate_hz, self._roles_of(rec))
 
         self.tasks.submit("read record", lambda: run.read_record(att["attempt_id"]), on_done=done)
+
+    @classmethod
+    def _pascal_per_volt(cls, rec: Any) -> dict[str, float]:
+        sens = rec.attrs.get("channel_sensitivity_v_per_unit")
+        roles = cls._roles_of(rec)
+        if sens is None or len(list(sens)) != len(rec.channels):
+            return {}
+        return {c: 1.0 / float(v) for c, v in zip(rec.channels, list(sens)) if roles.get(c) == "pressure" and float(v) > 0}
 
     @staticmethod
     def _roles_of(rec: Any) -> dict[str, str]:

@@ -1,5 +1,10 @@
 """Live traces of every channel, grouped by role (pressures, light, drive reference).
 
+Pressures are drawn in pascals when the sensors' sensitivities are known (``set_scales``),
+otherwise in volts at the ADC. Channel names sit in each plot's title in their curves'
+colours (a legend box would cover the data). The light's title shows its mean level, and
+its value at the start of the sweep, so a flame-out is seen at a glance.
+
 Curves are created once per channel set; ``show_frame`` (called by the window's ~30 Hz
 timer) hands them a ``TraceFrame``: copies of the ring buffer's visible window, never the
 buffer itself. ``show_record`` draws a stored record in review. ``mark_stopped`` greys the
@@ -22,6 +27,7 @@ from .style import CHANNEL_COLOURS, STOPPED_PEN, STOPPED_STYLE, new_plot, pen
 
 ROLE_TITLES = {"pressure": ("Pressures", "V at the ADC"), "light": ("Heat-release light", "V"),
                "drive": ("Drive reference", "V"), "other": ("Other channels", "V")}
+PASCAL_UNIT = "Pa"
 
 
 class TracesView(QWidget):
@@ -39,6 +45,11 @@ class TracesView(QWidget):
         self._roles: dict[str, str] = {}
         self._rows_of: dict[str, list[int]] = {}             # role -> rows of the frame it draws
         self._y_range: dict[str, tuple[float, float]] = {}
+        self._scale: dict[str, float] = {}     # channel -> display units per volt (pressures: Pa/V)
+        self._scale_rows: np.ndarray | None = None
+        self.light_start_v: float | None = None   # the light's mean at the start, for its title
+        self.light_mean_v: float | None = None    # the light's mean over the frame drawn last
+        self._light_title = ""
         self.drawn_state: object = None    # state of the last frame drawn
         self.frames = 0                  # redraws done (for the benchmark)
         self.stopped_text = ""            # non-empty while the traces are marked as not live
@@ -75,6 +86,13 @@ class TracesView(QWidget):
         super().resizeEvent(event)
         self._place_overlay()
 
+    def set_scales(self, pascal_per_volt: dict[str, float]) -> None:
+        """Pressure channels drawn in pascals: ``pascal_per_volt`` = 1 / sensitivity (V/Pa) per channel."""
+        scale = {c: float(v) for c, v in pascal_per_volt.items() if np.isfinite(v) and v > 0}
+        if scale != self._scale:
+            self._scale = scale
+            self._channels = ()             # rebuild the plots with the new unit on the next configure
+
     def configure(self, channels: tuple[str, ...], roles: dict[str, str], x_label: str = "time (s)",
                   window_s: float = 0.2) -> None:
         """Create the plots and one curve per channel (only when the channels or their roles change:
@@ -89,16 +107,23 @@ class TracesView(QWidget):
         order = [r for r in ("pressure", "light", "drive", "other") if any(roles.get(c, "other") == r
                                                                            for c in channels)]
         first = None
+        pressures = [c for c in channels if roles.get(c) == "pressure"]
+        in_pascal = bool(pressures) and all(c in self._scale for c in pressures)
+        self._scale_rows = (np.array([self._scale.get(c, 1.0) if in_pascal else 1.0 for c in channels])[:, None]
+                            if in_pascal else None)
+        colour_of = {c: CHANNEL_COLOURS[i % len(CHANNEL_COLOURS)] for i, c in enumerate(channels)}
         for row, role in enumerate(order):
             title, unit = ROLE_TITLES[role]
+            if role == "pressure" and in_pascal:
+                unit = PASCAL_UNIT
+            mine = [c for c in channels if roles.get(c, "other") == role]
             p = new_plot(self.layout_widget, title, unit, x_label if row == len(order) - 1 else "", row=row, col=0,
                          live=True)
+            if len(mine) > 1:             # names in the title, in their colours: nothing covers the data
+                p.setTitle(f"{title}: " + "  ".join(f'<span style="color:{colour_of[c]}">{c}</span>' for c in mine))
             p.showGrid(x=False, y=False)   # blended grid lines cost more to paint than the curves
             p.enableAutoRange(x=False, y=False)  # ranges set from each frame (below): no search per paint
             p.setXRange(-self.window_s, 0.0, padding=0.0)
-            if len([c for c in channels if roles.get(c, "other") == role]) > 1:
-                p.addLegend(offset=(-5, 2), labelTextSize="8pt", colCount=8, brush=pg.mkBrush(255, 255, 255, 215),
-                            pen=pg.mkPen("#B0B0B0"))
             if first is None:
                 first = p
             else:
@@ -118,16 +143,34 @@ class TracesView(QWidget):
         if self.stopped_text:                  # curves made after the mark are not live either
             self.mark_stopped(self.stopped_text)
 
+    def _scaled(self, channels: tuple[str, ...], data: np.ndarray) -> np.ndarray:
+        if self._scale_rows is None or tuple(channels) != self._channels:
+            return data
+        return data * self._scale_rows
+
     def show_frame(self, frame: TraceFrame) -> None:
         """Draw a live frame (copies, owned by the curves from now on)."""
-        for ch, row in zip(frame.channels, frame.data):
+        data = self._scaled(frame.channels, frame.data)
+        for ch, row in zip(frame.channels, data):
             curve = self.curves.get(ch)
             if curve is not None:
                 curve.setData(frame.time_s, row, skipFiniteCheck=True)
-        if frame.channels == self._channels and frame.data.shape[1]:
-            self._follow_y(frame.data)
+        if frame.channels == self._channels and data.shape[1]:
+            self._follow_y(data)
+            self._light_level(data)
         self.drawn_state = frame.state
         self.frames += 1
+
+    def _light_level(self, data: np.ndarray) -> None:
+        rows = self._rows_of.get("light")
+        if not rows or "light" not in self.plots:
+            return
+        mean_v = self.light_mean_v = float(data[rows[0]].mean())
+        start = f" (start {self.light_start_v:.3g} V)" if self.light_start_v is not None else ""
+        text = f"{ROLE_TITLES['light'][0]}: mean {mean_v:.3g} V{start}"
+        if text != self._light_title:      # the title is redrawn only when its text changes
+            self._light_title = text
+            self.plots["light"].setTitle(text)
 
     def _follow_y(self, data: np.ndarray) -> None:
         """Each plot's y range follows its curves with hysteresis: it changes (and the axis is
@@ -144,6 +187,7 @@ class TracesView(QWidget):
         """A stored record (review): the whole record against time from its start."""
         self.configure(channels, roles)
         t = np.arange(data.shape[1]) / sample_rate_hz
+        data = self._scaled(tuple(channels), np.asarray(data, dtype=float))
         for ch, row in zip(channels, data):
             self.curves[ch].setData(t, np.array(row, copy=True), skipFiniteCheck=True)
         for p in self.plots.values():
