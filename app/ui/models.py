@@ -21,6 +21,7 @@ from typing import Any, Callable
 import numpy as np
 
 from app.engine.events import BlockAcquired, FaultRaised, PointSettled, StateChanged, TuningStep
+from app.core.quality import DEFAULT_LIMITS, QUALITY_RULES
 from app.storage.index import NEVER_ACCEPTED
 
 
@@ -408,3 +409,53 @@ def format_duration(seconds: float) -> str:
         return "–"
     seconds = int(round(seconds))
     return f"{seconds // 60} min {seconds % 60:02d} s" if seconds >= 60 else f"{seconds} s"
+
+
+# ====================================================================== quality figures for people
+FIGURE_LABELS = {
+    "snr_db_pressure_min": ("lowest pressure SNR", "dB"), "snr_db_light": ("light SNR", "dB"),
+    "mmm_residual": ("plane-wave fit residual", ""), "pair_spread": ("sensor-pair spread", ""),
+    "distortion_velocity": ("velocity harmonics", ""), "distortion_light": ("light harmonics", ""),
+    "drift_velocity": ("forcing drift (record halves)", ""), "drift_light": ("light drift (record halves)", ""),
+    "cond": ("fit condition number", ""), "relative_ci95": ("relative 95 % half-width", ""),
+}
+
+
+@dataclass(frozen=True)
+class FigureRow:
+    label: str
+    value: str
+    limit: str
+    ok: bool | None          # None: no limit or no value
+
+
+def quality_rows(figures: dict[str, Any], thresholds: Any) -> list[FigureRow]:
+    """Each quality figure the flags are judged on, with its limit and pass/fail, in words."""
+    rows = []
+    for key, _flag, attr, sense in QUALITY_RULES:
+        label, unit = FIGURE_LABELS.get(key, (key.replace("_", " "), ""))
+        value = figures.get(key)
+        limit = getattr(thresholds, attr, DEFAULT_LIMITS.get(attr))
+        if value is None:
+            continue
+        v = float(value)
+        text = f"{v:.3g}{' ' + unit if unit else ''}"
+        if limit is None or not math.isfinite(v):
+            rows.append(FigureRow(label, text, "", None))
+            continue
+        ok = v >= limit if sense == "min" else v <= limit
+        rows.append(FigureRow(label, text, f"{'≥' if sense == 'min' else '≤'} {limit:g}{' ' + unit if unit else ''}",
+                              bool(ok)))
+    return rows
+
+
+def run_thresholds(run: Any) -> Any:
+    """The run's own plan snapshot's [quality] table (its defaults when the plan cannot be read)."""
+    from app.configfile import read_toml
+    from app.errors import FlamebodeError
+    from app.plan import Quality, plan_from_dict
+
+    try:
+        return plan_from_dict(read_toml(run.plan_path), str(run.plan_path)).quality
+    except (FlamebodeError, OSError, AttributeError):
+        return Quality()

@@ -14,7 +14,7 @@ from PySide6.QtCore import Qt
 from PySide6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLabel, QPushButton, QSplitter,
                                QTextBrowser, QVBoxLayout, QWidget)
 
-from ..models import PointTable, TuningHistory
+from ..models import PointTable, TuningHistory, quality_rows, run_thresholds
 from .points import PointListView
 from .response import ResponseView
 from .traces import TracesView
@@ -89,6 +89,7 @@ class ReviewView(QWidget):
 
     def load(self, run: Any) -> None:
         self.run = run
+        self.thresholds = run_thresholds(run)
         self.points.load_run(run)
         kind = run.kind
         n_ok = len(run.accepted())
@@ -106,17 +107,31 @@ class ReviewView(QWidget):
         if self.run is None:
             return
         lines = [f"<b>Point {point_index + 1}</b>"]
+        on_curve = self.points.shown_phase_rad().get(point_index)
         for a in self.run.attempts_of(point_index):
             an = a.get("analysis") or {}
             q = an.get("quality") or {}
             gain, phase = an.get("gain"), an.get("phase_rad")
+            if phase is not None and on_curve is not None:     # the branch the curve and the table show
+                phase = phase + 2 * math.pi * round((on_curve - phase) / (2 * math.pi))
             res = (f"gain {gain:.4f} ± {an.get('gain_ci95') or math.nan:.4f}, phase "
-                   f"{math.degrees(phase):+.1f}° ± {math.degrees(an.get('phase_ci95_rad') or math.nan):.1f}°"
+                   f"{math.degrees(phase):.1f}° ± {math.degrees(an.get('phase_ci95_rad') or math.nan):.1f}° (95 %)"
                    if gain is not None and phase is not None else "no result")
-            figs = ", ".join(f"{k} {v:.3g}" for k, v in q.items() if v is not None)
-            lines.append(f"attempt {a['seq']} <tt>{a['attempt_id']}</tt> — <b>{a['decision'] or 'not used'}</b> "
-                         f"({a.get('decision_reason', '')}); drive {a['drive_v']:.3f} V; {res}; flags: "
-                         f"{', '.join(a['flags']) or 'none'}; record {a['record_status']}<br><small>{figs}</small>")
+            reason = f" ({a['decision_reason']})" if a.get("decision_reason") else ""
+            lines.append(f"<b>attempt {a['seq']}</b> — <b>{a['decision'] or 'not used'}</b>{reason}; drive "
+                         f"{a['drive_v'] * 1e3:.3g} mV; {res}; flags: {', '.join(a['flags']) or 'none'}; "
+                         f"record {a['record_status']}")
+            rows = quality_rows(q, getattr(self, "thresholds", None))
+            if rows:
+                cells = "".join(
+                    f"<tr><td>{r.label}</td><td align='right'>{r.value}</td><td>{r.limit}</td>"
+                    f"<td style='color:{'#2E7D32' if r.ok else '#C62828' if r.ok is False else '#555'}'>"
+                    f"{'pass' if r.ok else 'FAIL' if r.ok is False else '–'}</td></tr>" for r in rows)
+                lines.append("<table cellspacing='0' cellpadding='2'><tr><th align='left'>figure</th><th>value</th>"
+                             f"<th>limit</th><th></th></tr>{cells}</table>")
+            steps = a.get("tuning") or an.get("tuning") or ()
+            if steps:
+                lines.append("tuning: " + "; ".join(f"{float(d) * 1e3:.3g} mV → {float(r):.4f}" for d, r, *_ in steps))
         self.details.setHtml("<br>".join(lines))
         atts = self.run.attempts_of(point_index)
         accepted = [k for k, a in enumerate(atts) if a["decision"] == "accepted"]
