@@ -21,7 +21,7 @@ from typing import Any, Callable
 import numpy as np
 
 from app.engine.events import BlockAcquired, FaultRaised, PointSettled, StateChanged, TuningStep
-from app.core.quality import DEFAULT_LIMITS, QUALITY_RULES
+from app.core import quality as _quality
 from app.storage.index import NEVER_ACCEPTED
 
 
@@ -432,10 +432,11 @@ class FigureRow:
 def quality_rows(figures: dict[str, Any], thresholds: Any) -> list[FigureRow]:
     """Each quality figure the flags are judged on, with its limit and pass/fail, in words."""
     rows = []
-    for key, _flag, attr, sense in QUALITY_RULES:
+    defaults = getattr(_quality, "DEFAULT_LIMITS", {})
+    for key, _flag, attr, sense in _quality.QUALITY_RULES:
         label, unit = FIGURE_LABELS.get(key, (key.replace("_", " "), ""))
         value = figures.get(key)
-        limit = getattr(thresholds, attr, DEFAULT_LIMITS.get(attr))
+        limit = getattr(thresholds, attr, defaults.get(attr))
         if value is None:
             continue
         v = float(value)
