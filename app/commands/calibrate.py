@@ -91,6 +91,12 @@ def _quantity(option: str, text: str, kind: str, lo: float, hi: float, unit: str
     from ..units import parse_quantity
 
     try:
+        float(text)
+    except ValueError:
+        pass
+    else:   # a bare number: Pa or dB? seconds or periods? Never guessed for a drive target
+        raise CalibrateCommandError(f"{option} {text!r}: give the unit, e.g. \"{text} {unit}\"")
+    try:
         value = parse_quantity(text, kind, unit_required=True)
     except (ValueError, TypeError) as exc:
         raise CalibrateCommandError(f"{option} {text!r}: {exc}") from None

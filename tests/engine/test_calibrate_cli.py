@@ -1,0 +1,122 @@
+"""``flamebode calibrate`` as a user meets it: the real CLI in a subprocess on the simulated holder.
+
+Promises (user guide, docs/calibration-file.md): a run writes a calibration file the rig can
+name; bad options are refused with a message naming the option, exit 2, no traceback;
+frequencies at or above the duct's first transverse cut-on are refused with a warning naming
+them; a signal (SIGTERM, SIGINT) zeroes the output at once, exits 128 + the signal, writes
+nothing and leaves an older file of the same name as it was. The drive log
+(``FLAMEBODE_DRIVE_LOG``, every block the ceiling guard put out) shows zero after the signal
+(common practice for rig control: an emergency stop zeroes the actuator without a ramp).
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from app.calibration_file import read_calibration
+from app.rig import load_rig
+from drivers.drive_log import read_log
+from drivers.simulated import SimulatedBurner, truth
+
+ROOT = Path(__file__).resolve().parents[2]
+RIG = ROOT / "configs" / "demo-rig.toml"
+BLOCK_S = 0.1
+
+
+def _run(args: list[str], log: Path | None = None, timeout: float = 120) -> subprocess.CompletedProcess:
+    env = {**os.environ, "PYTHONUNBUFFERED": "1", **({"FLAMEBODE_DRIVE_LOG": str(log)} if log else {})}
+    return subprocess.run([sys.executable, "-m", "app.cli", "calibrate", *args], cwd=ROOT, env=env,
+                          capture_output=True, text=True, timeout=timeout)
+
+
+def test_calibrate_writes_a_file_that_matches_the_simulated_sensors(tmp_path):
+    out = tmp_path / "cal.toml"
+    log = tmp_path / "drive.csv"
+    proc = _run([str(RIG), "--method", "common-plane", "--band", "100-2000", "--step", "100", "--reference", "p1",
+                 "--check-reference", "p3", "--pressure", "20 Pa", "--fast", "--seed", "3", "--out", str(out)], log)
+    assert proc.returncode == 0, proc.stderr
+    assert "Traceback" not in proc.stderr
+    assert f"calibration file: {out}" in proc.stdout and "check against p3" in proc.stdout
+    cal = read_calibration(out)
+    assert cal.frequency_hz == tuple(float(f) for f in range(100, 2001, 100)) and cal.reference == "p1"
+    assert cal.conditions["check_reference"] == "p3" and cal.conditions["check_worst_z"] < 3.0
+    true = truth.true_relative_factors(SimulatedBurner(load_rig(RIG), seed=3, holder=True), "p1")
+    for s in cal.sensors:
+        c = np.array(s.gain) * np.exp(1j * np.radians(s.phase_deg))
+        err = c / true[s.name]
+        u_gain, u_phase = np.array(s.u_gain), np.radians(s.u_phase_deg)
+        assert np.all(np.abs(np.log(np.abs(err))) <= 4 * u_gain + 1e-12), s.name
+        assert np.all(np.abs(np.angle(err)) <= 4 * u_phase + 1e-12), s.name
+    drive = read_log(log)
+    assert drive["peak_v"].max() > 0 and drive["peak_v"].max() <= 2.0    # the demo rig's ceiling
+    assert drive["end_v"][-1] == 0.0                                       # ramped to zero at the end
+    first = drive[drive["n_samples"] > 0][0]
+    assert first["peak_v"] <= 0.002 * 2.0 + 1e-12                          # soft start: 0.2 % of the ceiling
+
+
+@pytest.mark.parametrize("args, expected", [
+    (["--band", "2000-100"], "--band '2000-100': expected LOW-HIGH in Hz with 0 < LOW <= HIGH"),
+    (["--band", "a-b"], "--band 'a-b': expected LOW-HIGH in Hz"),
+    (["--reference", "p9"], "--reference 'p9': not a pressure sensor"),
+    (["--pressure", "20"], "--pressure '20': give the unit"),
+    (["--pressure", "500 Pa"], "--pressure '500 Pa': must be more than 0 Pa and at most 200 Pa"),
+    (["--check-reference", "p1"], "--check-reference p1: must differ from the reference sensor"),
+    (["--band", "5000-6000", "--step", "500"], "every frequency is at or above the cut-on 4403 Hz"),
+])
+def test_bad_options_are_refused_naming_them(tmp_path, args, expected):
+    out = tmp_path / "cal.toml"
+    proc = _run([str(RIG), "--fast", "--out", str(out), *args])
+    assert proc.returncode == 2, proc.stderr
+    assert "Traceback" not in proc.stderr and expected in proc.stderr, proc.stderr
+    assert not out.exists()
+
+
+def test_frequencies_above_the_cut_on_are_refused_with_a_warning(tmp_path):
+    # First transverse cut-on of the 46 mm demo duct at 24 °C: 1.8412 c / (2π r) ≈ 4403 Hz (handbook zero).
+    out = tmp_path / "cal.toml"
+    proc = _run([str(RIG), "--band", "4000-5000", "--step", "500", "--fast", "--out", str(out)])
+    assert proc.returncode == 0, proc.stderr
+    assert "refused 4500, 5000 Hz: at or above the duct's first transverse cut-on 4403 Hz" in proc.stderr
+    assert read_calibration(out).frequency_hz == (4000.0,)
+
+
+@pytest.mark.slow
+@pytest.mark.timeout(120)
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
+def test_a_signal_halts_at_once_and_writes_nothing(tmp_path, sig):
+    out = tmp_path / "cal.toml"
+    out.write_text("an older calibration file\n", encoding="utf-8")
+    log = tmp_path / "drive.csv"
+    env = {**os.environ, "PYTHONUNBUFFERED": "1", "FLAMEBODE_DRIVE_LOG": str(log)}
+    proc = subprocess.Popen([sys.executable, "-m", "app.cli", "calibrate", str(RIG), "--band", "100-2000",
+                             "--step", "50", "--out", str(out)], cwd=ROOT, env=env, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    first = proc.stdout.readline()            # real time: the first frequency is done, the drive is on
+    assert "Hz" in first, first
+    time.sleep(0.7)
+    assert proc.poll() is None
+    t_signal = time.time()
+    proc.send_signal(sig)
+    rest, err = proc.communicate(timeout=30)
+    elapsed = time.time() - t_signal
+    name = signal.Signals(sig).name
+    assert proc.returncode == 128 + sig, err
+    assert "Traceback" not in err and f"{name} received: outputs zeroed at once; nothing written" in err, err
+    assert elapsed < 2.0
+    assert out.read_text(encoding="utf-8") == "an older calibration file\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cal.toml", "drive.csv"]   # no temporary file
+    drive = read_log(log)
+    assert drive[drive["wall_time_s"] < t_signal]["peak_v"].max() > 0.0
+    halts = drive[(drive["n_samples"] == 0) & (drive["latched"] == 1)]
+    assert halts.size and halts["wall_time_s"][0] >= t_signal
+    late = drive[drive["wall_time_s"] > min(t_signal + BLOCK_S, halts["wall_time_s"][0])]
+    assert np.all(late["peak_v"] == 0.0), late        # the halt line and anything after it: zero
+    assert drive["peak_v"][-1] == 0.0 and drive["end_v"][-1] == 0.0
