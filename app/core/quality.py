@@ -52,7 +52,14 @@ QUALITY_RULES = (
     ("drift_velocity", "drift-velocity", "drift_max", "max"),
     ("drift_light", "drift-light", "drift_max", "max"),
     ("cond", "ill-conditioned", "cond_max", "max"),
+    ("relative_ci95", "too-uncertain", "relative_ci95_max", "max"),
 )
+
+# Limits used when the thresholds object (a plan's [quality] table) does not define them.
+# relative_ci95 = max(gain half-width / gain, phase half-width in rad): 0.3 is ±30 % in gain or
+# ±17° in phase at 95 %, beyond which a point does not constrain a network model (judgement;
+# first-order propagation already fails near there, see app.core.uncertainty).
+DEFAULT_LIMITS = {"relative_ci95_max": 0.3}
 
 FLAG_TEXT = {
     "low-snr-pressure": "a pressure channel has a low signal-to-noise ratio at the forcing frequency",
@@ -64,18 +71,22 @@ FLAG_TEXT = {
     "drift-velocity": "the forcing at the reference plane drifted between the two halves of the record",
     "drift-light": "the mean light drifted between the two halves of the record (flow, temperature or flame)",
     "ill-conditioned": "the multi-microphone fit is badly conditioned at this frequency (sensor spacing)",
+    "too-uncertain": "the 95 % interval is too wide for the point to be used (low signal-to-noise ratio)",
 }
 
 
 def quality_flags(figures: Mapping[str, float], thresholds: object) -> tuple[str, ...]:
     """Flags for every figure beyond its threshold (``thresholds`` has the attributes named in
-    QUALITY_RULES, e.g. a plan's ``[quality]`` table); a NaN figure gives ``<flag>-unknown``."""
+    QUALITY_RULES, e.g. a plan's ``[quality]`` table, or DEFAULT_LIMITS for those it lacks); a NaN
+    figure gives ``<flag>-unknown``."""
     flags = []
     for key, flag, attr, sense in QUALITY_RULES:
         value = figures.get(key)
         if value is None:
             continue
-        limit = getattr(thresholds, attr)
+        limit = getattr(thresholds, attr, DEFAULT_LIMITS.get(attr))
+        if limit is None:
+            continue
         value = float(value)
         if not np.isfinite(value) and not (sense == "min" and value == np.inf):
             flags.append(f"{flag}-unknown")

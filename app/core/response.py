@@ -308,6 +308,8 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
         "coverage_factor_gain": interval.k_gain,
         "coverage_factor_phase": interval.k_phase,
         "interval_linear": float(interval.linear),
+        # the larger of the two relative 95 % half-widths (gain / gain, phase in rad): "too-uncertain"
+        "relative_ci95": float(max(interval.gain_ci95 / gain if gain > 0 else np.inf, interval.phase_ci95_rad)),
     }
     # SNR of every channel at the forcing frequency, by channel name.
     figures.update({f"snr_db_ch_{name}": float(db) for name, db in zip(channels, fit.snr_db)})

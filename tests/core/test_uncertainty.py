@@ -146,3 +146,89 @@ def test_generalised_fit_with_an_estimated_covariance_reports_its_actual_varianc
         stated.append(fit.velocity_variance_at(0.0))
     ratio = np.mean(errors) / np.mean(stated)
     assert abs(ratio - 1) < 0.08        # 3000 draws: standard error about 0.03
+
+
+def test_systematic_terms_split_by_their_complex_direction():
+    # JCGM 100:2008 §5.1.2: a shift d of δF/F moves the gain by Re d and the phase by Im d.
+    from app.core.uncertainty import PhasorCovariance, ratio_interval
+
+    quiet = PhasorCovariance(np.diag([1e-14, 1e-14]).astype(complex), 50.0)
+    phase_only = ratio_interval(0.05 + 0j, 0.05 + 0j, quiet, np.array([0.03j]))
+    assert phase_only.systematic_gain_var == 0.0
+    assert phase_only.systematic_phase_var == pytest.approx(9e-4)
+    assert phase_only.gain_ci95 < 1e-5 and phase_only.phase_ci95_rad == pytest.approx(1.959964 * 0.03, rel=1e-4)
+    mixed = ratio_interval(0.05 + 0j, 0.05 + 0j, quiet, np.array([0.03 + 0.04j, -0.01 + 0j]))
+    assert mixed.sigma_gain_rel == pytest.approx(np.sqrt(0.03**2 + 0.01**2), rel=1e-6)
+    assert mixed.sigma_phase_rad == pytest.approx(0.04, rel=1e-6)
+
+
+def test_temperature_error_moves_gain_and_phase_as_the_budget_says():
+    # A record made in gas 1 K warmer than the rig file states, analysed with the nominal rig,
+    # against the budget for a 1 K standard uncertainty (linear in a small error, JCGM 100:2008
+    # §5.1.2): the actual complex shift of F splits into gain and phase like the budget's terms.
+    f = 800.0
+    exact = rig_variant(0.0, None, temperature_uncertainty=0.0)
+    for s_ in exact.pressure_sensors:
+        assert s_.position_uncertainty > 0     # the demo rig states them; remove for this test
+    data = exact.model_dump()
+    data.pop("source_path")
+    for s_ in data["pressure_sensors"]:
+        s_["position_uncertainty"] = 0.0
+    nominal_rig = rig_from_dict(data, "nominal")
+    warm = rig_from_dict({**data, "gas": {**data["gas"], "temperature": data["gas"]["temperature"] + 1.0}}, "warm")
+    budget_rig = rig_from_dict({**data, "gas": {**data["gas"], "temperature_uncertainty": 1.0}}, "budget")
+    rec = make_record(warm, f, n_tau(1.0, 2e-3), noise_pa=1e-4, light_noise_v=1e-6, white=True)
+    nominal = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, f, nominal_rig)
+    budget = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, f, budget_rig).interval
+    shift = nominal.ftf / rec.true_ftf - 1.0
+    assert abs(shift) > 3e-3
+    assert abs(shift.real) == pytest.approx(np.sqrt(budget.systematic_gain_var), rel=0.1, abs=2e-4)
+    assert abs(shift.imag) == pytest.approx(np.sqrt(budget.systematic_phase_var), rel=0.1, abs=2e-4)
+
+
+def test_welch_satterthwaite_and_student_t_coverage_factor():
+    # JCGM 100:2008 Annex G: ν_eff = u_c⁴ / Σ u_i⁴/ν_i (G.2b); k = t_{0.975}(ν_eff) (Table G.2:
+    # t = 2.23 at ν = 10, 2.09 at ν = 20, 1.96 at ν = ∞).
+    from app.core.uncertainty import coverage_factor, welch_satterthwaite
+
+    assert welch_satterthwaite(np.array([1.0, 1.0]), np.array([10.0, np.inf])) == pytest.approx(40.0)
+    assert welch_satterthwaite(np.array([1.0, 3.0]), np.array([5.0, 15.0])) == pytest.approx(16 / (1 / 5 + 9 / 15))
+    assert coverage_factor(10.0) == pytest.approx(2.23, abs=0.005)
+    assert coverage_factor(20.0) == pytest.approx(2.09, abs=0.005)
+    assert coverage_factor(np.inf) == pytest.approx(1.96, abs=0.005)
+
+
+def test_short_record_gets_a_student_t_factor():
+    # 5 periods per record: one segment's worth of noise estimate, few degrees of freedom; the
+    # factor is the t quantile at the point's Welch–Satterthwaite ν (JCGM 100:2008 Annex G).
+    from scipy import stats
+
+    rig = rig_variant(0.0, None, temperature_uncertainty=0.0)
+    rec = make_record(rig, 100.0, n_tau(0.9, 2e-3), duration_s=0.07, noise_pa=0.05, light_noise_v=0.002,
+                      rng=np.random.default_rng(9), white=True)
+    pt = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, 100.0, rig)
+    q = pt.quality
+    assert 1.0 < q["dof_gain"] < 20.0
+    assert q["coverage_factor_gain"] == pytest.approx(stats.t.ppf(0.975, q["dof_gain"]), rel=1e-9)
+    assert q["coverage_factor_gain"] > 2.1
+
+
+def test_low_snr_interval_stays_within_half_a_turn_and_is_flagged():
+    # Below ~20 dB first-order propagation fails; the interval comes from the ratio's own
+    # distribution (parametric bootstrap, Efron & Tibshirani 1993 ch. 6): a phase half-width is
+    # at most π, and the point carries the too-uncertain flag.
+    from app.core.quality import quality_flags
+    from app.plan import Quality
+
+    rig = rig_variant(0.0, None, temperature_uncertainty=0.0)
+    rec = make_record(rig, 220.0, n_tau(0.9, 2e-3), duration_s=0.1, noise_pa=40.0, light_noise_v=0.6,
+                      rng=np.random.default_rng(4), white=True)
+    pt = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, 220.0, rig)
+    assert pt.quality["interval_linear"] == 0.0
+    assert 0.3 < pt.phase_ci95_rad <= np.pi
+    assert pt.quality["relative_ci95"] > 0.3
+    assert "too-uncertain" in quality_flags(pt.quality, Quality())
+    quiet = make_record(rig, 220.0, n_tau(0.9, 2e-3), duration_s=1.0, rng=np.random.default_rng(4))
+    good = evaluate_point(quiet.data, quiet.channels, quiet.sample_rate_hz, 220.0, rig)
+    assert good.quality["interval_linear"] == 1.0
+    assert "too-uncertain" not in quality_flags(good.quality, Quality())
