@@ -11,17 +11,14 @@ Imports: standard library, numpy, h5py (via record.py) only. No Qt, no drivers.
 
 from __future__ import annotations
 
-import json
 import sqlite3
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import h5py
-
 from ..errors import FlamebodeError, RecordError
 from . import index
-from .record import RawRecord, file_digest, is_tmp, read_record
+from .record import RawRecord, file_digest, is_tmp, read_record, read_record_attrs
 from .writer import RECORDS_DIR, SNAPSHOT_PLAN, SNAPSHOT_RIG
 
 
@@ -177,10 +174,9 @@ def _rebuild_from_records(run_dir: Path, problems: list[str]) -> Run:
     records = run_dir / RECORDS_DIR
     for f in sorted(records.glob("*.h5")) if records.is_dir() else ():
         try:
-            with h5py.File(f, "r") as h:
-                at = dict(h.attrs)
-        except OSError as exc:
-            problems.append(f"{f}: record file is damaged ({exc}); not used")
+            at = read_record_attrs(f)
+        except RecordError as exc:
+            problems.append(f"{exc}; not used")
             continue
         atts.append(_attempt_from_attrs(f, at))
     atts.sort(key=lambda a: (a["point_index"], a["started_wall_s"]))
@@ -197,15 +193,11 @@ def _rebuild_from_records(run_dir: Path, problems: list[str]) -> Run:
 
 
 def _attempt_from_attrs(f: Path, at: dict[str, Any]) -> dict[str, Any]:
-    def s(v: Any) -> str:
-        return v.decode() if isinstance(v, bytes) else str(v)
-
-    analysis = json.loads(s(at.get("analysis", "{}")) or "{}")
-    return {"attempt_id": s(at.get("attempt_id", f.stem)), "point_index": int(at.get("point_index", -1)),
-            "record_file": f"{RECORDS_DIR}/{f.name}", "freq_hz": float(at.get("freq_hz", float("nan"))),
-            "target_ratio": float(at.get("target_ratio", float("nan"))),
-            "drive_v": float(at.get("drive_v", float("nan"))),
-            "sample_rate_hz": float(at.get("sample_rate_hz", float("nan"))),
-            "overflows": int(at.get("overflows", 0)), "flags": tuple(json.loads(s(at.get("flags", "[]")))),
-            "started_wall_s": float(at.get("started_wall_s", 0.0)), "decided_by": "", "decision_reason": "",
-            "record_status": "ok", "analysis": {**analysis, "rig_path": SNAPSHOT_RIG}}
+    """An attempt row from a record's checked attributes (record.check_attrs); absent ones get defaults."""
+    return {"attempt_id": at.get("attempt_id", f.stem), "point_index": at.get("point_index", -1),
+            "record_file": f"{RECORDS_DIR}/{f.name}", "freq_hz": at["freq_hz"],
+            "target_ratio": at.get("target_ratio", float("nan")), "drive_v": at.get("drive_v", float("nan")),
+            "sample_rate_hz": at["sample_rate_hz"], "overflows": at.get("overflows", 0),
+            "flags": tuple(at.get("flags", ())), "started_wall_s": at.get("started_wall_s", 0.0),
+            "decided_by": "", "decision_reason": "", "record_status": "ok",
+            "analysis": {**at.get("analysis", {}), "rig_path": SNAPSHOT_RIG}}
