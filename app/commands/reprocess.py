@@ -1,7 +1,9 @@
 """``flamebode reprocess RECORD --rig RIG.toml``: compute one FTF point from a record.
 
-RECORD is an HDF5 record written by flamebode or a plain CSV (``time_s`` then one
-column per channel named as in the rig file). The forcing frequency comes from
+RECORD is an HDF5 record written by flamebode (named .h5/.hdf5, or recognised by its
+first bytes) or a plain CSV (``time_s`` then one column per channel named as in the rig
+file). The rig's pressure and light channels must be in the record; the missing ones are
+named before anything else. The forcing frequency comes from
 ``--freq-hz``, the record's own attributes, or is estimated from the drive reference
 channel (or the first pressure channel when none is recorded).
 """
@@ -9,6 +11,7 @@ channel (or the first pressure channel when none is recorded).
 from __future__ import annotations
 
 import argparse
+import difflib
 import json
 import math
 from pathlib import Path
@@ -23,9 +26,23 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
 
 
+HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
+
+
+def _is_hdf5(path: Path) -> bool:
+    """Named .h5/.hdf5, or an HDF5 file under another name (its first eight bytes say so)."""
+    if path.suffix.lower() in (".h5", ".hdf5"):
+        return True
+    try:
+        with open(path, "rb") as fh:
+            return fh.read(8) == HDF5_SIGNATURE
+    except OSError:
+        return False
+
+
 def _load(path: Path):
     """(data, channels, sample_rate_hz, freq_hz or None) from an HDF5 or CSV record."""
-    if path.suffix.lower() in (".h5", ".hdf5"):
+    if _is_hdf5(path):
         from ..storage.record import read_record
 
         rec = read_record(path)
@@ -34,6 +51,33 @@ def _load(path: Path):
 
     rec = read_csv_record(path)
     return rec.data, rec.channels, rec.sample_rate_hz, None
+
+
+def _check_channels(path: Path, channels: tuple[str, ...], rig, rig_path: str) -> None:
+    """The rig's pressure and light channels must be in the record: say which are not, first."""
+    needed = [s.channel for s in rig.pressure_sensors] + [rig.light.channel]
+    missing = [c for c in needed if c not in channels]
+    if not missing:
+        return
+    spare = [c for c in channels if c not in needed and c != rig.drive.reference_channel]
+    hints = []
+    for c in missing:
+        same = [s for s in spare if s.casefold() == c.casefold()]
+        close = same or difflib.get_close_matches(c, spare, n=1, cutoff=0.75)
+        if close:
+            hints.append(f"'{close[0]}' for '{c}'?")
+    column = "channel names" if _is_hdf5(path) else "column names in its header"
+    raise RecordError(f"{path}: lacks channel(s) {', '.join(missing)} named in the rig file '{rig_path}' "
+                      f"(the file has: {', '.join(channels) or 'none'}"
+                      f"{'; ' + ' '.join(hints) if hints else ''}); rename the {column} or use a rig file "
+                      f"whose channel names match the record")
+
+
+def _given_freq(freq_hz: float, sample_rate_hz: float) -> float:
+    if not (math.isfinite(freq_hz) and 0 < freq_hz < sample_rate_hz / 2):
+        raise RecordError(f"--freq-hz: found {freq_hz:g}, expected a frequency in Hz above 0 and below half the "
+                          f"record's sample rate ({sample_rate_hz / 2:g} Hz)")
+    return freq_hz
 
 
 def _estimate_freq(data, channels, sample_rate_hz, rig) -> tuple[float, str]:
@@ -52,9 +96,10 @@ def run(args: argparse.Namespace) -> int:
 
     rig = load_rig(args.rig)
     data, channels, fs, freq = _load(Path(args.record))
-    how = "given" if args.freq_hz else "from the record"
+    _check_channels(Path(args.record), channels, rig, str(args.rig))
+    how = "given" if args.freq_hz is not None else "from the record"
     if args.freq_hz is not None:
-        freq = args.freq_hz
+        freq = _given_freq(args.freq_hz, fs)
     if freq is None:
         freq, source = _estimate_freq(data, channels, fs, rig)
         how = f"estimated from channel '{source}'"

@@ -5,7 +5,10 @@ Convention: x(t) = Re{x̂ e^{+iωt}}; the synthetic flame is Crocco's n–τ mod
 
 from __future__ import annotations
 
+import io
 import json
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -94,3 +97,56 @@ def test_hdf5_record_from_a_run_reprocesses_to_its_stored_point(tmp_path, capsys
     assert out["frequency_hz"] == pytest.approx(330.0)
     assert out["gain"] == pytest.approx(stored["gain"], rel=1e-9)
     assert out["phase_rad"] == pytest.approx(stored["phase_rad"], rel=1e-9)
+
+
+def _cli(*args: str) -> subprocess.CompletedProcess:
+    root = Path(__file__).resolve().parents[2]
+    return subprocess.run([sys.executable, "-m", "app.cli", *args], capture_output=True, text=True, cwd=root,
+                          timeout=120)
+
+
+def test_csv_exported_by_another_program_reprocesses(tmp_path):
+    # numpy.savetxt with "%.6E" (7 significant digits, as acquisition programs export), a UTF-8
+    # byte-order mark, CRLF line ends and a header row; stamps above 1 s are rounded to 1 us,
+    # 2.6 % of a step at 25.6 kHz, which was refused as "uneven" before
+    rec = make_record(load_rig(RIG), 275.0, n_tau(0.85, 2.2e-3), duration_s=2.0, sample_rate_hz=25600.0,
+                      rng=np.random.default_rng(6))
+    buf = io.StringIO()
+    t = np.arange(rec.data.shape[1]) / rec.sample_rate_hz
+    np.savetxt(buf, np.column_stack([t, rec.data.T]), fmt="%.6E", delimiter=",",
+               header=",".join(("time_s",) + rec.channels), comments="", newline="\r\n")
+    path = tmp_path / "export.csv"
+    path.write_bytes(b"\xef\xbb\xbf" + buf.getvalue().encode())
+    res = _cli("reprocess", str(path), "--rig", str(RIG), "--json")
+    assert res.returncode == 0, res.stderr
+    out = json.loads(res.stdout)
+    assert out["frequency_hz"] == pytest.approx(275.0, abs=0.01)
+    assert out["gain"] == pytest.approx(0.85, abs=max(2 * out["gain_ci95"], 0.01))
+
+
+def test_wrong_channel_names_are_named_before_any_frequency_advice(tmp_path, record):
+    path = _write_csv(tmp_path / "rec.csv", record.data[:, :4000], ("mic1", "mic2", "p3", "p4", "PMT", "ref"),
+                      record.sample_rate_hz)
+    res = _cli("reprocess", str(path), "--rig", str(RIG))
+    assert res.returncode == 2 and "Traceback" not in res.stderr
+    err = res.stderr
+    assert f"{path}: lacks channel(s) p1, p2, pmt named in the rig file" in err
+    assert "(the file has: mic1, mic2, p3, p4, PMT, ref" in err and "'PMT' for 'pmt'?" in err
+    assert "--freq-hz" not in err
+
+
+@pytest.mark.parametrize("value", ["nan", "inf", "-5", "0", "20000"])
+def test_an_impossible_freq_hz_is_refused_naming_the_option(tmp_path, capsys, record, value):
+    path = _write_csv(tmp_path / "rec.csv", record.data[:, :4000], record.channels, record.sample_rate_hz)
+    assert main(["reprocess", str(path), "--rig", str(RIG), "--freq-hz", value]) == 2
+    assert "--freq-hz: found" in capsys.readouterr().err
+
+
+def test_an_hdf5_record_under_another_name_is_read_as_hdf5(tmp_path, capsys, record):
+    from app.storage.record import write_record
+
+    final, _, _ = write_record(tmp_path, "rec.dat", "a1", record.data,
+                               {"channels": list(record.channels), "sample_rate_hz": record.sample_rate_hz,
+                                "freq_hz": 275.0})
+    assert main(["reprocess", str(final), "--rig", str(RIG), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["frequency_hz"] == pytest.approx(275.0)
