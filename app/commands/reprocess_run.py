@@ -3,8 +3,9 @@
 Every usable attempt of the chosen points (default: all) is evaluated again from its
 stored raw record with the given rig file; each result is added as a new row of the
 ``analyses`` table naming the rig file (path and sha256) and tool version. Raw records
-are only read. A copy of the rig file is kept in RUN_DIR/rigs/<sha256[:12]>.toml.
-Must not import Qt.
+are only read. A copy of the rig file is kept in RUN_DIR/rigs/<sha256[:12]>.toml. A record
+that cannot be read or evaluated is named with the reason and skipped; the exit code is
+then 1. Must not import Qt.
 """
 
 from __future__ import annotations
@@ -62,7 +63,8 @@ def run(args: argparse.Namespace) -> int:
     known = {p["point_index"] for p in r.points}
     missing = sorted(set(wanted or ()) - known)
     if missing:
-        raise FlamebodeError(f"--points: {', '.join(map(str, missing))} not in this run (0-{max(known, default=0)})")
+        raise FlamebodeError(f"--points: {', '.join(str(i + 1) for i in missing)} not in this run (points 1-"
+                             f"{max(known, default=-1) + 1})")
     digest = sha256_file(args.rig)
     copy = r.run_dir / "rigs" / f"{digest[:12]}.toml"
     copy.parent.mkdir(exist_ok=True)
@@ -70,15 +72,22 @@ def run(args: argparse.Namespace) -> int:
         shutil.copyfile(args.rig, copy)
     conn = index.connect(r.run_dir / index.INDEX_NAME)
     n_ok = 0
+    not_done: list[str] = []
     try:
         for a in r.attempts:
-            if (wanted is not None and a["point_index"] not in wanted) or a["record_status"] != "ok":
+            if wanted is not None and a["point_index"] not in wanted:
+                continue
+            where = f"point {a['point_index'] + 1} attempt {a['attempt_id']}"
+            if a["record_status"] != "ok":
+                not_done.append(where)
+                print(f"{where}: not reprocessed: its record file is {a['record_status']} (see the problems above)")
                 continue
             try:
                 rec = r.read_record(a["attempt_id"])
                 point = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, rec.freq_hz, rig)
             except FlamebodeError as exc:
-                print(f"point {a['point_index']} attempt {a['attempt_id']}: not reprocessed: {exc}")
+                not_done.append(where)
+                print(f"{where}: not reprocessed: {exc}")
                 continue
             analysis = analysis_from_result(point)
             analysis.update(rig_path=str(Path(args.rig).resolve()), rig_sha256=digest, tool_version=__version__,
@@ -86,9 +95,11 @@ def run(args: argparse.Namespace) -> int:
             with conn:
                 aid = index.insert_analysis(conn, a["attempt_id"], analysis)
             n_ok += 1
-            print(f"point {a['point_index']} attempt {a['attempt_id']}: analysis {aid}: gain "
-                  f"{analysis['gain']:.4f}, phase {analysis['phase_rad']:+.4f} rad")
+            print(f"{where}: analysis {aid}: gain {analysis['gain']:.4f}, phase {analysis['phase_rad']:+.4f} rad")
     finally:
         conn.close()
     print(f"{n_ok} attempt(s) reprocessed with {args.rig} (sha256 {digest[:12]}, copy in {copy})")
+    if not_done:
+        print(f"{len(not_done)} attempt(s) not reprocessed ({', '.join(not_done)}); their records are unchanged")
+        return 1
     return 0

@@ -466,3 +466,37 @@ def test_mutated_csv_is_read_or_refused_naming_the_file(raw, tmp_path, capsys):
     assert code in (0, 2), err
     if code == 2:
         assert err.startswith("flamebode reprocess: ") and "Traceback" not in err
+
+
+# --- reprocess-run over a run holding one malformed record ---------------------------------------
+
+def test_reprocess_run_names_a_malformed_record_and_keeps_everything(tmp_path):
+    import sqlite3
+
+    from app.storage.record import file_digest
+
+    plan = tmp_path / "plan.toml"
+    plan.write_text('name = "reprocess-run fuzz"\n')
+    run = tmp_path / "run"
+    write_run(run, plan, plan_of([100.0, 200.0, 300.0]))
+    con = sqlite3.connect(run / "index.sqlite")
+    aid, rel = con.execute("SELECT attempt_id, record_file FROM attempts WHERE point_index = 1").fetchone()
+    # a record written malformed (its hash in the index matches, so only the reader can tell)
+    _set("sample_rate_hz", "fast")(run / rel)
+    size, digest = file_digest(run / rel)
+    with con:
+        con.execute("UPDATE attempts SET record_bytes = ?, record_sha256 = ? WHERE attempt_id = ?", (size, digest, aid))
+    n_analyses = con.execute("SELECT COUNT(*) FROM analyses").fetchone()[0]
+    con.close()
+    res = subprocess.run([sys.executable, "-m", "app.cli", "reprocess-run", str(run), "--rig", str(RIG)],
+                         capture_output=True, text=True, cwd=ROOT, timeout=120)
+    assert res.returncode == 1, res.stdout + res.stderr
+    assert "Traceback" not in res.stderr + res.stdout
+    assert (f"point 2 attempt {aid}: not reprocessed: {run / rel}: attribute 'sample_rate_hz': found the text "
+            f"'fast'") in res.stdout
+    assert "2 attempt(s) reprocessed" in res.stdout and f"1 attempt(s) not reprocessed (point 2 attempt {aid})" \
+        in res.stdout
+    assert file_digest(run / rel) == (size, digest)               # the record itself untouched
+    con = sqlite3.connect(run / "index.sqlite")
+    assert con.execute("SELECT COUNT(*) FROM analyses").fetchone()[0] == n_analyses + 2
+    con.close()
