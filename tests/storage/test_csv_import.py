@@ -150,3 +150,15 @@ def test_absurd_voltages_are_refused_naming_line_and_column(tmp_path):
 def test_printed_resolution(text, res, digits):
     got_res, got_digits = resolution_s(text)
     assert got_res == pytest.approx(res) and got_digits == digits
+
+
+@pytest.mark.parametrize("cell", ["nan", "inf", "-inf", "1e999"])
+def test_non_finite_samples_are_refused_naming_line_and_column(tmp_path, cell):
+    path = write_like_another_program(tmp_path / "a.csv", grid(12800.0, 0.1))
+    lines = path.read_text(encoding="utf-8-sig").splitlines()
+    cells = lines[20].split(",")
+    cells[5] = cell
+    lines[20] = ",".join(cells)
+    path.write_text("\n".join(lines) + "\n")
+    with pytest.raises(RecordError, match="line 21, column 'pmt' is not a finite number"):
+        read_csv_record(path)
