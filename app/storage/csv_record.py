@@ -129,7 +129,8 @@ def read_csv_record(path: str | Path) -> CsvRecord:
         raise RecordError(f"{p}: rows have {table.shape[1]} cells, the header has {len(names)}")
     if not np.isfinite(table).all():
         row, col = np.argwhere(~np.isfinite(table))[0]
-        raise RecordError(f"{p}: line {rows[row][0]}, column '{names[col]}' is not a finite number")
+        raise RecordError(f"{p}: line {rows[row][0]} (sample {row}), column '{names[col]}' is not a finite number "
+                          f"({int((~np.isfinite(table[:, col])).sum())} such cell(s) in that column)")
     if table.shape[1] > 1 and not (np.abs(table[:, 1:]) <= VOLTS_MAX).all():
         row, col = np.argwhere(~(np.abs(table[:, 1:]) <= VOLTS_MAX))[0]
         raise RecordError(f"{p}: line {rows[row][0]}, column '{names[col + 1]}': {table[row, col + 1]:g} is not "

@@ -160,5 +160,5 @@ def test_non_finite_samples_are_refused_naming_line_and_column(tmp_path, cell):
     cells[5] = cell
     lines[20] = ",".join(cells)
     path.write_text("\n".join(lines) + "\n")
-    with pytest.raises(RecordError, match="line 21, column 'pmt' is not a finite number"):
+    with pytest.raises(RecordError, match=r"line 21 \(sample 19\), column 'pmt' is not a finite number \(1 such cell"):
         read_csv_record(path)
