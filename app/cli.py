@@ -24,6 +24,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "reprocess-run": ("reprocess_run", "recompute a run's points from their raw records with a changed rig file"),
     "resume": ("resume", "continue an interrupted sweep from its first point without an accepted attempt"),
     "reacquire": ("reacquire", "measure chosen or flagged points of a run again (new attempts, old ones kept)"),
+    "fit": ("fit", "fit flame models (n-tau, Gaussian distributed delays) to a run's points, with intervals"),
     "calibrate": ("calibrate", "relative calibration of the pressure sensors in a holder (writes a calibration file)"),
     "backends": ("backends", "list hardware back-ends and whether they can be used here"),
     "window": ("window", "open the desktop window (the simulated burner unless told otherwise)"),

@@ -1,0 +1,76 @@
+"""``flamebode fit RUN_DIR``: flame models fitted to a run's accepted points, per forcing amplitude.
+
+Models: ``n-tau`` (F = n e^{-iωτ}) or ``delays`` (a sum of K Gaussian distributed delays; K
+chosen by AIC up to ``--terms``, or fixed with ``--terms K --fixed``), optionally with the
+low-frequency limit F(0) = 1 of a perfectly premixed flame (``--unit-gain``). Each point is
+weighted by its own 95 % intervals (and coverage factors where the run stored them). Prints
+the parameters with their 95 % intervals, the reduced χ² and the AIC; a flagged point is
+used unless ``--good-only``. The fitting itself is ``app.core.fits``. Must not import Qt.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+from collections import defaultdict
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("run_dir", help="run folder written by 'flamebode sweep'")
+    p.add_argument("--model", choices=("n-tau", "delays"), default="delays", help="flame model (default: delays)")
+    p.add_argument("--terms", type=int, default=3, help="delays: at most this many Gaussian terms (default 3)")
+    p.add_argument("--fixed", action="store_true", help="delays: exactly --terms terms, no choice by AIC")
+    p.add_argument("--unit-gain", action="store_true", help="impose F(0) = 1 (perfectly premixed flame)")
+    p.add_argument("--good-only", action="store_true", help="leave flagged points out")
+
+
+def run(args: argparse.Namespace) -> int:
+    import numpy as np
+
+    from ..core.fits import Z95, FitError, choose_delays, fit
+    from ..storage.reader import open_run
+
+    run_ = open_run(args.run_dir, verify=False)
+    targets = {p["point_index"]: float(p["target_ratio"]) for p in run_.points}
+    by_amp: dict[float, list[tuple[float, complex, float, float, float]]] = defaultdict(list)
+    skipped = 0
+    for i, a in sorted(run_.accepted().items()):
+        an = a.get("analysis") or {}
+        if args.good_only and a.get("flags"):
+            skipped += 1
+            continue
+        gain, phase = an.get("gain"), an.get("phase_rad")
+        if gain is None or phase is None:
+            continue
+        k = an.get("coverage_factor_gain") or Z95
+        by_amp[round(targets.get(i, math.nan), 9)].append(
+            (float(a["freq_hz"]), complex(gain * np.exp(1j * phase)), float(an.get("gain_ci95") or math.nan),
+             float(an.get("phase_ci95_rad") or math.nan), float(k)))
+    if not by_amp:
+        raise FitError(f"{args.run_dir}: no accepted point with a result to fit")
+    print(f"run {args.run_dir}: {args.model} fit, e^{{+iwt}} convention"
+          + (f"; {skipped} flagged point(s) left out" if skipped else ""))
+    failed = 0
+    for amp, pts in sorted(by_amp.items()):
+        f, F, gci, pci, k = (np.array(c) for c in zip(*pts))
+        print(f"|u'|/u_mean = {amp:g}: {len(pts)} points, {f.min():g}-{f.max():g} Hz")
+        try:
+            if args.model == "n-tau":
+                result, others = fit(f, F, gci, pci, "n_tau", coverage=k), []
+            elif args.fixed:
+                result, others = fit(f, F, gci, pci, "delays", args.terms, args.unit_gain, coverage=k), []
+            else:
+                result, others = choose_delays(f, F, gci, pci, args.terms, args.unit_gain, coverage=k)
+        except FitError as exc:
+            print(f"  not fitted: {exc}")
+            failed += 1
+            continue
+        if others:
+            print("  terms by AIC: " + ", ".join(f"K={r.k_terms} AIC {r.aic:.4g}" for r in others)
+                  + f" -> K={result.k_terms}")
+        for line in result.describe():
+            print(f"  {line}")
+        if result.reduced_chi2 > 3:
+            print("  note: the model does not fit within the points' intervals (reduced chi2 > 3); "
+                  "try more terms or look at the flagged points")
+    return 1 if failed == len(by_amp) else 0
