@@ -127,3 +127,41 @@ def test_ftf_gain_with_the_calibration_file_is_within_half_a_percent_of_the_trut
     assert np.all(cal_err < 0.005), cal_err
     assert np.max(raw_err) > 0.05 and np.median(raw_err) > 0.015, raw_err
     assert np.mean(raw_err) > 4 * np.mean(cal_err), (raw_err, cal_err)
+
+
+def test_holder_mode_has_no_flame_and_one_pressure_at_every_sensor():
+    # The holder's premise (common practice): below the cut-on every sensor at one plane sees
+    # the same pressure; without a flame the light channel reads its dark offset only.
+    rig = load_rig(RIG)
+    sim = SimulatedBurner(rig, seed=2, holder=True)
+    assert not sim.flame_on and sim.warnings == () and "calibration holder" in sim.identity()["model"]
+    assert np.all(sim.model.sensor_positions_m == rig.sensor("p1").position)
+    state = sim.model.nominal_state()
+    p = sim.model.response(700.0, 0.1, state, flame=False).pressure_per_v
+    assert np.ptp(np.abs(p)) == 0.0 and np.ptp(np.angle(p)) == 0.0
+    sim.start()
+    sim.set_drive(700.0, 0.1)
+    light = np.concatenate([sim.read_block().data[sim.channels.index("pmt")] for _ in range(5)])
+    assert abs(light.mean() - sim.model.dark_offset_v) < 1e-3
+    with pytest.raises(ValueError, match="outside the sensor duct"):
+        SimulatedBurner(rig, seed=2, holder=True, holder_plane=1.0)
+
+
+def test_soft_start_on_a_rig_with_sharp_resonances():
+    # The resonant scenario's drive-to-pressure ratio changes by far more than 10x between
+    # neighbouring frequencies: opening each frequency at a tenth of the previous drive and
+    # rising by at most 4x per step keeps every tuning window within 2.5x the target pressure,
+    # and every frequency still reaches the target under the ceiling.
+    scenario = CONFIGS / "resonant-scenario.toml"
+    rig = load_rig(RIG)
+    sim = SimulatedBurner(rig, scenario=scenario, seed=1, holder=True)
+    names = [s.channel for s in rig.pressure_sensors]
+    run = HolderRun(sim, names, [s.sensitivity for s in rig.pressure_sensors], "p1",
+                    DriveSettings(target_pa=20.0, ceiling_v=rig.drive.ceiling), 0.3, rig.acquisition.block_duration)
+    seen: list[float] = []
+    measure = run._pressure
+    run._pressure = lambda f: seen.append(measure(f)) or seen[-1]
+    records = run.run([float(f) for f in range(100, 2001, 50)], lambda rec: None)
+    assert max(seen) <= 2.5 * 20.0, max(seen)
+    assert all(abs(r.pressure_pa / 20.0 - 1) <= 0.1 and not r.at_ceiling for r in records)
+    assert sim.guard.clip_events == 0 and sim.drive_status().amplitude_v == 0.0
