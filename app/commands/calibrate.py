@@ -195,9 +195,15 @@ def _calibrate(args: argparse.Namespace, rig: Any, reference: str, second: str |
             holder.run(freqs, on_record)
         except Halted:
             pass
+        except FlamebodeError:
+            if stops.received is None:   # after a signal, a refused request (halt latched) is the stop itself
+                raise
         finally:
             try:
                 holder.ramp_to_zero()
+            except Exception as exc:     # never leave the drive on: zero it at once instead
+                holder.halt(f"the ramp to zero failed: {exc}")
+                print(f"warning: the ramp to zero failed ({exc}); the output was zeroed at once", file=sys.stderr)
             finally:
                 close_backend(device)
         if stops.received is not None:
