@@ -234,6 +234,19 @@ def test_estimate_frequency_on_a_noisy_sine(freq_hz: float):
     assert abs(got - freq_hz) < 0.01 * fs / n          # a small fraction of a bin
 
 
+def test_estimate_frequency_in_heavy_noise_falls_back_to_the_likelihood_search():
+    # Blocks too noisy for their phases to be followed: the sine-fit power maximum (the ML
+    # estimator in white noise, Rife & Boorstyn 1974) still lands within a few CRLB.
+    from app.core.harmonic import _block_phase_refine
+
+    rng = np.random.default_rng(8)
+    fs, n, f, amp, sigma = 5120.0, 51_200, 321.123, 1.0, 20.0      # A²/(2σ²) = 1/800 per sample
+    x = tone(n, fs, f, amp * np.exp(0.4j)) + sigma * rng.standard_normal(n)
+    assert _block_phase_refine(x, fs, f) is None
+    crlb_hz = np.sqrt(12 * sigma**2 * fs**2 / ((2 * np.pi) ** 2 * amp**2 * n * (n**2 - 1)))
+    assert abs(estimate_frequency(x, fs, f_min_hz=100.0) - f) < 5 * crlb_hz
+
+
 def test_estimate_frequency_respects_the_search_band():
     fs, n = 4000.0, 8000
     x = tone(n, fs, 50.0, 5.0) + tone(n, fs, 731.25, 1.0)
