@@ -265,7 +265,8 @@ def consistency(first: Calibration, second: Calibration, limit: float = CONSISTE
         ratio = first.factor[ia, a] * second.factor[ib, r1] / second.factor[ib, b]
         for part, dev, u in (
                 ("gain", np.log(np.abs(ratio)),
-                 np.sqrt(first.u_gain_rel[ia, a] ** 2 + second.u_gain_rel[ib, r1] ** 2 + second.u_gain_rel[ib, b] ** 2)),
+                 np.sqrt(first.u_gain_rel[ia, a] ** 2 + second.u_gain_rel[ib, r1] ** 2
+                         + second.u_gain_rel[ib, b] ** 2)),
                 ("phase", np.angle(ratio),
                  np.sqrt(first.u_phase_rad[ia, a] ** 2 + second.u_phase_rad[ib, r1] ** 2
                          + second.u_phase_rad[ib, b] ** 2))):

@@ -79,9 +79,11 @@ def _quiet_scenario(tmp_path: Path) -> Path:
     3 % spread and p2's stated error. Quiet and without drift so that the FTF's random error
     and the drift of ū stay well below the 0.5 % the check asks for."""
     text = (CONFIGS / "demo-scenario.toml").read_text(encoding="utf-8")
-    for old, new in (('rig = "demo-rig.toml"', f"rig = {str(RIG)!r}"), ('pressure_rms = "4 Pa"', 'pressure_rms = "0.2 Pa"'),
+    for old, new in (('rig = "demo-rig.toml"', f"rig = {str(RIG)!r}"),
+                     ('pressure_rms = "4 Pa"', 'pressure_rms = "0.2 Pa"'),
                      ("light_flame_noise = 0.04", "light_flame_noise = 0.002"),
-                     ("temperature_swing_k = 0.5", "temperature_swing_k = 0.0"), ("flow_swing = 0.003", "flow_swing = 0.0")):
+                     ("temperature_swing_k = 0.5", "temperature_swing_k = 0.0"),
+                     ("flow_swing = 0.003", "flow_swing = 0.0")):
         assert old in text
         text = text.replace(old, new)
     path = tmp_path / "quiet-scenario.toml"
