@@ -5,7 +5,10 @@ chosen by AIC up to ``--terms``, or fixed with ``--terms K --fixed``), optionall
 low-frequency limit F(0) = 1 of a perfectly premixed flame (``--unit-gain``). Each point is
 weighted by its own 95 % intervals (and coverage factors where the run stored them). Prints
 the parameters with their 95 % intervals, the reduced χ² and the AIC; a flagged point is
-used unless ``--good-only``. The fitting itself is ``app.core.fits``. Must not import Qt.
+used unless ``--good-only``. With two or more amplitudes (an FDF) it also says whether the
+response at the two lowest amplitudes is the same within the uncertainties, naming the
+frequencies where it is not, and fits a saturation limit across amplitudes
+(``app.core.fdf``). The fitting itself is ``app.core.fits``. Must not import Qt.
 """
 
 from __future__ import annotations
@@ -73,4 +76,29 @@ def run(args: argparse.Namespace) -> int:
         if result.reduced_chi2 > 3:
             print("  note: the model does not fit within the points' intervals (reduced chi2 > 3); "
                   "try more terms or look at the flagged points")
+    if len(by_amp) > 1:
+        _amplitude_report(by_amp)
     return 1 if failed == len(by_amp) else 0
+
+
+def _amplitude_report(by_amp: dict) -> None:
+    from ..core.fdf import amplitude_independence, fit_saturation
+    from ..core.fits import FitError
+
+    points = [(f, amp, F, g, p, k) for amp, pts in by_amp.items() for f, F, g, p, k in pts]
+    comparisons = amplitude_independence(points)
+    if comparisons:
+        bad = [c for c in comparisons if c.fails]
+        lo = sorted(by_amp)[:2]
+        print(f"amplitude dependence: at the two lowest amplitudes ({lo[0]:g}, {lo[1]:g}) the response is the same "
+              f"within the uncertainties at {len(comparisons) - len(bad)} of {len(comparisons)} frequencies "
+              f"(5 % test per frequency: about 1 in 20 differs by chance)")
+        if bad:
+            print("  differs at: " + ", ".join(f"{c.freq_hz:g} Hz (p = {c.p_value:.2g})" for c in bad))
+        if len(bad) > max(1, 0.1 * len(comparisons)):
+            print("  note: the lowest amplitudes are not in the linear range at these frequencies; report it "
+                  "with the FTF")
+    try:
+        print(fit_saturation(points).describe())
+    except FitError as exc:
+        print(f"saturation: not fitted: {exc}")

@@ -65,3 +65,22 @@ def test_too_few_points_are_refused_with_the_reason(tmp_path: Path) -> None:
     assert out.returncode == 1 and "Traceback" not in out.stderr
     assert "not fitted" in out.stdout and "needs at least 3 points" in out.stdout, out.stdout
     assert "not a run folder" in _cli("fit", str(tmp_path)).stderr
+
+
+@pytest.mark.slow
+@pytest.mark.timeout(300)
+def test_an_fdf_run_gets_the_amplitude_report(tmp_path: Path) -> None:
+    # the demo flame saturates at |Q'|/Q_mean = 0.30 (configs/demo-scenario.toml): forced at
+    # 0.03 and 0.35 the response differs; the fitted limit is near the scenario's value
+    plan = tmp_path / "plan.toml"
+    plan.write_text(short_plan_text("fdf fit", 150, 450, 100, 0.6).replace("values = [0.05]", "values = [0.03, 0.35]"))
+    run = tmp_path / "run"
+    out = _cli("sweep", str(plan), "--rig", str(RIG), "--scenario", str(ROOT / "configs" / "demo-scenario.toml"),
+               "--out", str(run), "--fast", "--seed", "5")
+    assert out.returncode == 0, out.stderr[-2000:]
+    out = _cli("fit", str(run), "--model", "n-tau")
+    assert out.returncode == 0, out.stderr[-2000:]
+    assert "amplitude dependence: at the two lowest amplitudes (0.03, 0.35)" in out.stdout, out.stdout
+    assert "differs at:" in out.stdout
+    limit = float(re.search(r"saturation of the heat release at \|Q'\|/Q_mean = ([0-9.]+)", out.stdout).group(1))
+    assert 0.2 < limit < 0.4, out.stdout
