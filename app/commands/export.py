@@ -1,6 +1,8 @@
 """``flamebode export RUN_DIR [--out DIR]``: CSV, JSON summary and gain/phase plots.
 
-Uses each point's accepted attempt and its newest analysis. Must not import Qt.
+Uses each point's accepted attempt (the acceptance rule, or a person's choice) and its newest
+analysis, and names it in every file (``used``: point/attempt, e.g. ``7/2``); phases in degrees,
+unwrapped along frequency per forcing amplitude (app.core.phase). Must not import Qt.
 """
 
 from __future__ import annotations

@@ -92,7 +92,9 @@ def continue_run(run_dir: str | Path, point_indices: list[int], fast: bool | Non
     bus.subscribe(writer)
     closers: tuple = (writer.close,)
     if show_progress:
-        display = ProgressDisplay()
+        from ..storage.export import kept_phases
+
+        display = ProgressDisplay(known=kept_phases(run))   # phases unwrapped on the run's kept points
         bus.subscribe(display)
         display.start()
         closers = (display.close, writer.close)

@@ -1,5 +1,10 @@
 """``flamebode review RUN_DIR``: the run's points with their attempts, decisions and flags.
 
+One row per point: the attempt it uses (``used``: point/attempt, both from 1, e.g. ``7/2``,
+chosen by the acceptance rule or a person), gain and phase as people read them (degrees,
+unwrapped along frequency per forcing amplitude, ±95 %; the same numbers as the export),
+and a last line counting points with a result, flagged ones and points without one.
+
 Problems found while opening the run (leftover temporary files, missing or damaged
 records, a locked index) are printed first; the table shows what is still readable.
 Must not import Qt.
@@ -17,18 +22,36 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-verify", action="store_true", help="skip re-hashing the record files (faster)")
 
 
+# (header, alignment) of each column; phases in degrees, unwrapped along frequency (app.core.phase)
+COLUMNS = (("point", ">"), ("freq_hz", ">"), ("target", ">"), ("achieved", ">"), ("gain", ">"), ("±95%", ">"),
+           ("phase_deg", ">"), ("±95%", ">"), ("used", ">"), ("of", ">"), ("chosen", "<"), ("flags", "<"))
+
+
 def _fmt(v: float | None, spec: str) -> str:
-    width = int("".join(c for c in spec.split(".")[0] if c.isdigit()) or 0)
-    return f"{'-':>{width}}" if v is None or (isinstance(v, float) and not math.isfinite(v)) else format(v, spec)
+    return "-" if v is None or (isinstance(v, float) and not math.isfinite(v)) else format(v, spec)
+
+
+def _cells(row: dict) -> list[str]:
+    """The printed cells of one point; the digits printed are those compared with the export's files."""
+    return [str(row["point"]), _fmt(row["freq_hz"], ".2f"), _fmt(row["amplitude_ratio_target"], ".4f"),
+            _fmt(row["amplitude_ratio_achieved"], ".4f"), _fmt(row["gain"], ".4f"), _fmt(row["gain_ci95"], ".4f"),
+            _fmt(row["phase_deg"], "+.2f"), _fmt(row["phase_ci95_deg"], ".2f"), row["used"] or "(none)",
+            str(row["n_attempts"]), row["chosen_by"], row["flags"].replace(";", ", ")]
+
+
+def _attempt_flags(a: dict) -> list[str]:
+    an = a.get("analysis") or {}
+    return list(a["flags"]) + [w for w in an.get("warnings", ()) if w not in a["flags"]]
 
 
 def run(args: argparse.Namespace) -> int:
     from ..storage import index
-    from ..storage.export import point_rows
+    from ..storage.export import counts, describe_counts, plan_name, point_rows
+    from ..storage.index import attempt_label
     from ..storage.reader import open_run
 
     r = open_run(index.require_run_folder(args.run_dir), verify=not args.no_verify)
-    print(f"run {r.run_dir}  ({r.kind}, back-end {r.info.get('backend', '?')}, "
+    print(f"run {r.run_dir}: {plan_name(r)}  ({r.kind}, back-end {r.info.get('backend', '?')}, "
           f"{len(r.points)} points, {len(r.attempts)} attempts)")
     for p in r.problems:
         print(f"problem: {p}")
@@ -40,21 +63,24 @@ def run(args: argparse.Namespace) -> int:
               f"{'; '.join(c['keys']) or 'content changed'} (sha256 {c['old_sha256'][:12]} → {c['new_sha256'][:12]})")
     for f in r.faults:
         print(f"fault at point {_num(f['point_index'])}: {f['name']}: {f['message']} ({f['action']})")
-    head = (f"{'pt':>4} {'freq_hz':>9} {'target':>7} {'achieved':>8} {'gain':>7} {'±95%':>6} "
-            f"{'phase_rad':>9} {'±95%':>6} {'att':>3}  accepted      flags")
-    print(head)
-    print("-" * len(head))
-    for row in point_rows(r):
-        print(f"{row['point_index'] + 1:>4} {row['frequency_hz']:>9.2f} {row['amplitude_ratio_target']:>7.4f} "
-              f"{_fmt(row['amplitude_ratio_achieved'], '8.4f')} {_fmt(row['gain'], '7.4f')} "
-              f"{_fmt(row['gain_ci95'], '6.4f')} {_fmt(row['phase_rad'], '+9.4f')} "
-              f"{_fmt(row['phase_ci95_rad'], '6.4f')} {row['n_attempts']:>3}  "
-              f"{row['attempt_id'] or '(none)':<12}  {row['flags'] or ''}")
+    rows = point_rows(r)
+    cells = [_cells(row) for row in rows]
+    widths = [max([len(h)] + [len(c[k]) for c in cells]) for k, (h, _) in enumerate(COLUMNS)]
+    line = "  ".join
+    head = line(f"{h:<{w}}" if align == "<" else f"{h:>{w}}" for (h, align), w in zip(COLUMNS, widths))
+    print(head.rstrip())
+    print("-" * len(head.rstrip()))
+    for row, c in zip(rows, cells):
+        print(line(f"{v:<{w}}" if align == "<" else f"{v:>{w}}"
+                   for v, (_, align), w in zip(c, COLUMNS, widths)).rstrip())
         if args.attempts:
-            for a in r.attempts_of(row["point_index"]):
+            for a in r.attempts_of(row["point"] - 1):
                 reason = f" ({a['decided_by']}: {a['decision_reason']})" if a.get("decision_reason") else ""
-                print(f"{'':>6}attempt {a['attempt_id']} #{a.get('seq', '?')}: {a['decision'] or 'not chosen'}"
-                      f"{reason}, record {a['record_status']}, flags {', '.join(a['flags']) or 'none'}")
+                flags = ", ".join(_attempt_flags(a)) or "none"
+                print(f"{'':>6}attempt {attempt_label(a['point_index'], a.get('seq'))}: "
+                      f"{a['decision'] or 'not used'}{reason}, record {a['record_status']}, flags {flags}, "
+                      f"id {a['attempt_id']}")
+    print(describe_counts(counts(rows)))
     pending = r.pending_points()
     if pending:
         print(f"{len(pending)} point(s) without an accepted attempt: {', '.join(str(i + 1) for i in pending)} "

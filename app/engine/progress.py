@@ -6,7 +6,13 @@ live line (point i/N, state, frequency, amplitude error, drive voltage against t
 ETA) on a terminal, and one result line per settled point and one line per fault
 everywhere (plain lines when the output is not a terminal).
 
-Imports: standard library, rich and ``app.engine.events`` only.
+Result lines number points from 1 and show the phase as people read it everywhere
+(app.core.phase: degrees, unwrapped along frequency per forcing amplitude, ±95 %), over
+the points settled so far plus the run's kept points given as ``known`` (re-acquire,
+resume), so a line reads what ``review`` and the export will show for an ascending sweep.
+The finish line counts flagged points among those settled.
+
+Imports: standard library, numpy, rich, ``app.core.phase`` and ``app.engine.events`` only.
 """
 
 from __future__ import annotations
@@ -15,12 +21,13 @@ import math
 import queue
 import threading
 import time
-from typing import IO, Any
+from typing import IO, Any, Iterable
 
 from rich.console import Console
 from rich.live import Live
 from rich.text import Text
 
+from ..core.phase import phase_as_read_deg
 from .events import (DriveChanged, Event, FaultRaised, PointSettled, StateChanged, SweepFinished,
                      SweepStarted, TuningStep)
 
@@ -30,7 +37,9 @@ _STOP = object()
 class ProgressDisplay:
     """Subscribe with ``bus.subscribe(display)``; ``start()`` before the sweep, ``close()`` after."""
 
-    def __init__(self, file: IO[str] | None = None, estimated_s: float | None = None):
+    def __init__(self, file: IO[str] | None = None, estimated_s: float | None = None,
+                 known: Iterable[tuple[int, float, float, float]] = ()):
+        """``known``: (point_index, freq_hz, target_ratio, phase_rad) of points the run already keeps."""
         self.console = Console(file=file, highlight=False, soft_wrap=True)
         self._queue: queue.Queue[Any] = queue.Queue()
         self._thread: threading.Thread | None = None
@@ -40,6 +49,10 @@ class ProgressDisplay:
                                        "settled": 0}
         self._t0 = time.monotonic()
         self.lines: list[str] = []     # every result/fault line printed (for the caller's summary)
+        # point index -> (freq_hz, target_ratio, wrapped phase_rad): the curve the phase is unwrapped on
+        self._phases: dict[int, tuple[float, float, float]] = {int(i): (float(f), float(a), float(ph))
+                                                               for i, f, a, ph in known}
+        self._flagged: dict[int, bool] = {}    # points settled in this sweep -> newest attempt flagged
 
     # -- engine thread: copy and enqueue only
     def __call__(self, event: Event) -> None:
@@ -47,7 +60,8 @@ class ProgressDisplay:
             r = event.result
             self._queue.put(("settled", event.point_index, event.freq_hz, event.target_ratio,
                              float(r.velocity.amplitude_ratio), float(r.gain), float(r.gain_ci95),
-                             float(r.phase_rad), float(r.phase_ci95_rad), event.drive_v, event.flags))
+                             float(r.phase_rad), float(r.phase_ci95_rad), event.drive_v,
+                             tuple(dict.fromkeys((*event.flags, *map(str, getattr(r, "warnings", ()) or ()))))))
         elif isinstance(event, (StateChanged, DriveChanged, TuningStep, FaultRaised, SweepStarted, SweepFinished)):
             self._queue.put(event if not isinstance(event, SweepStarted)
                             else ("started", event.n_points, event.run_label, event.backend))
@@ -104,20 +118,35 @@ class ProgressDisplay:
             return Text(f"  {'FAULT' if item.fatal else 'flag '} {item.name}: {where}{item.message}. "
                         f"{item.action}. {item.advice}", style=style)
         elif isinstance(item, SweepFinished):
-            return Text(f"sweep {item.reason}: {item.n_settled} of {item.n_points} points settled and kept",
-                        style="bold")
+            flagged = [i + 1 for i, f in sorted(self._flagged.items()) if f]
+            which = (f"{len(flagged)} flagged: point{'s' if len(flagged) > 1 else ''} {', '.join(map(str, flagged))}"
+                     if flagged else "none flagged")
+            return Text(f"sweep {item.reason}: {item.n_settled} of {item.n_points} points settled and kept "
+                        f"({which})", style="bold")
         return None
 
     def _result_line(self, item: tuple) -> Text:
         _, index, freq, target, achieved, gain, gain_ci, phase, phase_ci, drive_v, flags = item
         self.status["settled"] += 1
         n = self.status["n"] or "?"
+        interrupted = "interrupted" in flags
+        if not interrupted:          # a record cut short is never kept: it does not join the curve
+            self._phases[index] = (freq, target, phase)
+            self._flagged[index] = bool(flags)
+        shown = self._phase_deg(index, freq, target, phase)
         text = (f"  {self.status['settled']:>3}/{n}  point {index + 1:<4}{freq:8.1f} Hz  a {achieved:.4f} ({(achieved / target - 1) * 100:+5.1f} %)  "
-                f"gain {gain:.3f} ± {gain_ci:.3f}  phase {math.degrees(phase):+7.1f}° ± {math.degrees(phase_ci):.1f}°  "
+                f"gain {gain:.3f} ± {gain_ci:.3f}  phase {shown:+7.1f}° ± {math.degrees(phase_ci):.1f}°  "
                 f"drive {drive_v:.3f} V")
         if flags:
             text += f"  [{', '.join(flags)}]"
         return Text(text, style="yellow" if flags else "")
+
+    def _phase_deg(self, index: int, freq: float, target: float, phase: float) -> float:
+        """This point's phase unwrapped along frequency with the other points of its amplitude."""
+        curve = {**self._phases, index: (freq, target, phase)}
+        keys = list(curve)
+        f, a, ph = (list(col) for col in zip(*(curve[k] for k in keys)))
+        return float(phase_as_read_deg(f, ph, a)[keys.index(index)])
 
     def _status_text(self) -> Text:
         s = self.status

@@ -5,13 +5,15 @@ inside transactions; WAL journal with ``synchronous=FULL`` so that a killed proc
 loses at most the transaction it was in. Readers open it read-only. The schema is
 documented in docs/run-layout.md; keep the two in step.
 
-Acceptance rule: the accepted attempt of a point is the one whose ``decision`` is
-``accepted``. A newly stored attempt becomes accepted (``decided_by = 'auto'``) unless the
-user has accepted another attempt of that point; a flagged attempt is accepted only when
-the point has no accepted attempt yet, so the newest *good* attempt wins. An attempt whose
-record was cut short (flag ``interrupted``: a halt, an abort or a fatal fault such as a
-flame-out during the record) is stored as evidence, marked rejected, and can never be
-accepted.
+Acceptance rule (:func:`rule_choice`): the accepted attempt of a point is the one whose
+``decision`` is ``accepted``. Unless a person accepted an attempt of that point, each new
+attempt makes the point take, among its attempts not rejected, the newest one with no flags
+(neither attempt flags nor analysis warnings); where every such attempt is flagged, the
+newest one (``decided_by = 'auto'``). A person's decision (``accept``/``reject``) is kept
+when new attempts are added. An attempt whose record was cut short (flag ``interrupted``:
+a halt, an abort or a fatal fault such as a flame-out during the record) is stored as
+evidence, marked rejected, and can never be accepted. People name an attempt by its point
+number and its attempt number, both from 1 (:func:`attempt_label`, e.g. ``7/2``).
 
 Guards for run folders (used by every command that takes one): :func:`require_run_folder`
 refuses a path that is not a run folder before anything is read or written;
@@ -167,11 +169,16 @@ def upsert_points(conn: sqlite3.Connection, points: Iterable[tuple[int, float, f
                      [(int(i), float(f), float(a)) for i, f, a in points])
 
 
+def next_seq(conn: sqlite3.Connection, point_index: int) -> int:
+    """The attempt number (from 1) the point's next stored attempt gets."""
+    return int(conn.execute("SELECT COALESCE(MAX(seq), 0) + 1 FROM attempts WHERE point_index = ?",
+                            (int(point_index),)).fetchone()[0])
+
+
 def insert_attempt(conn: sqlite3.Connection, row: dict[str, Any], analysis: dict[str, Any]) -> None:
     """Insert one attempt with its first analysis and apply the acceptance rule (caller commits)."""
     upsert_points(conn, [(row["point_index"], row["freq_hz"], row["target_ratio"])])
-    seq = conn.execute("SELECT COALESCE(MAX(seq), 0) + 1 FROM attempts WHERE point_index = ?",
-                       (row["point_index"],)).fetchone()[0]
+    seq = next_seq(conn, row["point_index"])
     cols = ("attempt_id", "point_index", "record_file", "record_bytes", "record_sha256", "freq_hz",
             "target_ratio", "drive_v", "sample_rate_hz", "n_samples", "overflows", "flags",
             "started_wall_s", "stored_wall_s")
@@ -179,7 +186,7 @@ def insert_attempt(conn: sqlite3.Connection, row: dict[str, Any], analysis: dict
     conn.execute(f"INSERT INTO attempts({', '.join(cols)}, seq) VALUES ({', '.join('?' * len(cols))}, ?)",
                  (*values, seq))
     insert_analysis(conn, row["attempt_id"], analysis)
-    _auto_accept(conn, row["point_index"], row["attempt_id"], good=not row["flags"])
+    _auto_accept(conn, row["point_index"], row["attempt_id"])
 
 
 def insert_analysis(conn: sqlite3.Connection, attempt_id: str, analysis: dict[str, Any]) -> int:
@@ -192,25 +199,76 @@ def insert_analysis(conn: sqlite3.Connection, attempt_id: str, analysis: dict[st
     return int(cur.lastrowid)
 
 
-def _auto_accept(conn: sqlite3.Connection, point_index: int, attempt_id: str, good: bool) -> None:
+def attempt_label(point_index: int, seq: Any) -> str:
+    """How people name an attempt: point number / attempt number, both from 1 (e.g. ``7/2``)."""
+    return f"{int(point_index) + 1}/{seq if seq is not None else '?'}"
+
+
+def is_flagged(attempt: dict[str, Any]) -> bool:
+    """An attempt with attempt flags or analysis warnings (under ``analysis`` or ``warnings``)."""
+    warnings = attempt.get("warnings")
+    if warnings is None:
+        warnings = (attempt.get("analysis") or {}).get("warnings", ())
+    return bool(tuple(attempt.get("flags") or ()) or tuple(warnings or ()))
+
+
+def rule_choice(attempts_of_point: list[dict[str, Any]]) -> dict[str, Any] | None:
+    """The attempt the acceptance rule takes for one point (attempts in order of ``seq``).
+
+    Among attempts not rejected and never-accepted flags aside: the newest with no flags,
+    else the newest. A person's accepted attempt is not overridden (the caller checks)."""
+    candidates = [a for a in attempts_of_point if a.get("decision") != "rejected"
+                  and not NEVER_ACCEPTED & set(a.get("flags") or ())]
+    candidates.sort(key=lambda a: a.get("seq") or 0)
+    good = [a for a in candidates if not is_flagged(a)]
+    return (good or candidates)[-1] if candidates else None
+
+
+def _point_attempts(conn: sqlite3.Connection, point_index: int) -> list[dict[str, Any]]:
+    rows = conn.execute("SELECT at.attempt_id, at.seq, at.flags, at.decision, at.decided_by, "
+                        "(SELECT an.warnings FROM analyses an WHERE an.attempt_id = at.attempt_id "
+                        "ORDER BY an.analysis_id DESC LIMIT 1) AS warnings FROM attempts at "
+                        "WHERE at.point_index = ? ORDER BY at.seq", (point_index,)).fetchall()
+    return [{**dict(r), "flags": tuple(json.loads(r["flags"])), "warnings": tuple(json.loads(r["warnings"] or "[]"))}
+            for r in rows]
+
+
+def _auto_accept(conn: sqlite3.Connection, point_index: int, attempt_id: str) -> None:
     flags = conn.execute("SELECT flags FROM attempts WHERE attempt_id = ?", (attempt_id,)).fetchone()
+    now = time.time()
     if flags is not None and NEVER_ACCEPTED & set(json.loads(flags["flags"])):
         conn.execute("UPDATE attempts SET decision = 'rejected', decided_by = 'auto', decision_reason = ?, "
                      "decided_wall_s = ? WHERE attempt_id = ?",
-                     ("record interrupted before its end (kept as evidence, never accepted)", time.time(),
-                      attempt_id))
+                     ("record interrupted before its end (kept as evidence, never accepted)", now, attempt_id))
         return
-    current = conn.execute("SELECT attempt_id, decided_by FROM attempts WHERE point_index = ? "
-                           "AND decision = 'accepted'", (point_index,)).fetchone()
-    if current is not None and (current["decided_by"] == "user" or not good):
+    atts = _point_attempts(conn, point_index)
+    current = next((a for a in atts if a["decision"] == "accepted"), None)
+    if current is not None and current["decided_by"] == "user":
         return
-    now = time.time()
+    chosen = rule_choice(atts)
+    if chosen is None or (current is not None and current["attempt_id"] == chosen["attempt_id"]):
+        return
     conn.execute("UPDATE attempts SET decision = '', decided_by = 'auto', decision_reason = 'superseded by a "
                  "newer attempt', decided_wall_s = ? WHERE point_index = ? AND decision = 'accepted'",
                  (now, point_index))
+    why = ("newest attempt with no flags" if not is_flagged(chosen)
+           else "newest attempt (every attempt of the point is flagged)")
     conn.execute("UPDATE attempts SET decision = 'accepted', decided_by = 'auto', decision_reason = ?, "
-                 "decided_wall_s = ? WHERE attempt_id = ?",
-                 ("newest attempt" + ("" if good else " (flagged; no other attempt)"), now, attempt_id))
+                 "decided_wall_s = ? WHERE attempt_id = ?", (why, now, chosen["attempt_id"]))
+
+
+def find_attempt(conn: sqlite3.Connection, point_number: int, attempt_number: int) -> str:
+    """The attempt id of point ``point_number``'s attempt ``attempt_number`` (both from 1);
+    :class:`LookupError` naming what exists when there is none."""
+    rows = conn.execute("SELECT attempt_id, seq FROM attempts WHERE point_index = ? ORDER BY seq",
+                        (int(point_number) - 1,)).fetchall()
+    for r in rows:
+        if r["seq"] == attempt_number:
+            return str(r["attempt_id"])
+    if not rows:
+        raise LookupError(f"point {point_number} has no attempt")
+    raise LookupError(f"point {point_number} has no attempt {attempt_number} (it has attempt(s) "
+                      f"{', '.join(str(r['seq']) for r in rows)})")
 
 
 class NotAcceptable(FlamebodeError):

@@ -21,7 +21,6 @@ import json
 import os
 import platform
 import queue
-import re
 import shutil
 import threading
 import time
@@ -127,12 +126,12 @@ def plan_points(plan: Any) -> list[tuple[int, float, float]]:
     return out
 
 
-def safe_id(attempt_id: str) -> str:
-    return re.sub(r"[^A-Za-z0-9_.-]", "_", attempt_id)[:80]
-
-
-def record_file_name(point_index: int, attempt_id: str) -> str:
-    return f"p{point_index:04d}-{safe_id(attempt_id)}.h5"
+def record_file_name(point_index: int, attempt_number: int, copy: int = 1) -> str:
+    """``point0007-attempt02.h5`` for point 7's second attempt (numbers from 1, as people read them);
+    ``copy`` > 1 appends ``-<copy>`` when an unindexed file left by a kill already has the name.
+    Runs written before this scheme have ``p<index from 0>-<attempt id>.h5``; readers take the
+    name from the index (or any ``*.h5`` in records/), never from the pattern."""
+    return f"point{point_index + 1:04d}-attempt{attempt_number:02d}{f'-{copy}' if copy > 1 else ''}.h5"
 
 
 def _copy_snapshot(src: Path, dst: Path) -> None:
@@ -328,11 +327,15 @@ class RunWriter:
         if self.fault is not None:
             self.bus.acknowledge(ev.attempt_id, error=self.fault)
             return
-        name = record_file_name(ev.point_index, ev.attempt_id)
+        try:
+            number = index.next_seq(conn, int(ev.point_index))
+        except Exception:              # an unreadable index fails below, where the fault is named
+            number = 1
+        name = record_file_name(ev.point_index, number)
         n = 1
         while (self.records_dir / name).exists():  # an unindexed file left by a kill keeps its name
             n += 1
-            name = record_file_name(ev.point_index, f"{ev.attempt_id}-{n}")
+            name = record_file_name(ev.point_index, number, n)
         final = None
         try:
             analysis = analysis_from_result(ev.result)

@@ -177,12 +177,18 @@ def test_export_csv_equals_index(tmp_path: Path, plan_file: Path):
         "an.phase_ci95_rad, at.attempt_id, at.flags FROM points p JOIN attempts at ON at.point_index = p.point_index "
         "AND at.decision = 'accepted' JOIN analyses an ON an.attempt_id = at.attempt_id ORDER BY p.point_index", conn)
     conn.close()
-    np.testing.assert_array_equal(df["point_index"], q["point_index"])
-    for csv_col, sql_col in [("frequency_hz", "freq_hz"), ("amplitude_ratio_target", "target_ratio"),
+    np.testing.assert_array_equal(df["point"], q["point_index"] + 1)       # people count points from 1
+    for csv_col, sql_col in [("freq_hz", "freq_hz"), ("amplitude_ratio_target", "target_ratio"),
                              ("amplitude_ratio_achieved", "achieved_ratio"), ("gain", "gain"),
-                             ("gain_ci95", "gain_ci95"), ("phase_rad", "phase_rad"),
+                             ("gain_ci95", "gain_ci95"), ("phase_wrapped_rad", "phase_rad"),
                              ("phase_ci95_rad", "phase_ci95_rad")]:
         np.testing.assert_array_equal(df[csv_col].astype(float), q[sql_col].astype(float))
+    # the unwrapped phase differs from the stored one by whole turns only, and degrees match radians
+    turns = (df["phase_rad"] - df["phase_wrapped_rad"]) / (2 * np.pi)
+    np.testing.assert_allclose(turns, np.round(turns), atol=1e-12)
+    np.testing.assert_allclose(df["phase_deg"], np.degrees(df["phase_rad"]), rtol=1e-15)
+    np.testing.assert_allclose(df["phase_ci95_deg"], np.degrees(df["phase_ci95_rad"]), rtol=1e-15)
+    assert list(df["used"]) == [f"{p}/1" for p in df["point"]] and set(df["chosen_by"]) == {"auto"}
     assert list(df["attempt_id"]) == list(q["attempt_id"])
     assert list(df["flags"]) == [";".join(json.loads(f)) for f in q["flags"]]
     summary = json.loads((tmp_path / "out" / "summary.json").read_text())
