@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import argparse
 import datetime as _dt
+import json
 import math
 import signal
 import sys
@@ -222,6 +223,8 @@ def _calibrate(args: argparse.Namespace, rig: Any, reference: str, second: str |
                     f"one plane, sealed) and repeat")
         written = _write(out, cal, rig, args, target_pa, record_s, cut_on, check)   # atomic: whole or absent
     print(f"calibration file: {written}")
+    print(f"to use it, add to {rig.source_path} (before its first table): "
+          f"pressure_calibration = {json.dumps(str(written.resolve()))}")
     return 0
 
 
