@@ -81,6 +81,26 @@ def test_newest_good_attempt_is_accepted_unless_user_chose(tmp_path: Path, plan_
     assert main(["accept", str(tmp_path / "run"), "--attempt", "zz"]) == 2
 
 
+def test_all_flagged_takes_the_newest_and_warnings_count_as_flags(tmp_path: Path, plan_file: Path):
+    """The rule: the newest attempt with no flags, else the newest; analysis warnings are flags too."""
+    import dataclasses
+
+    plan = plan_of([100.0, 200.0])
+    warned = settled(1, 200.0, attempt_id="b1")
+    warned = dataclasses.replace(warned, result=dataclasses.replace(warned.result, warnings=("pair-spread",)))
+    write_run(tmp_path / "run", plan_file, plan, [settled(0, 100.0, flags=("snr-low",), attempt_id="a0"),
+                                                  settled(1, 200.0, attempt_id="b0")])
+    write_run(tmp_path / "run", plan_file, plan, [settled(0, 100.0, flags=("snr-low", "pair-spread"),
+                                                          attempt_id="a1"), warned])
+    acc = open_run(tmp_path / "run").accepted()
+    assert acc[0]["attempt_id"] == "a1" and "every attempt" in acc[0]["decision_reason"]
+    assert acc[1]["attempt_id"] == "b0"                  # b1 has an analysis warning: b0 is still the newest good
+    assert main(["accept", str(tmp_path / "run"), "1", "1"]) == 0
+    write_run(tmp_path / "run", plan_file, plan, [settled(0, 100.0, flags=("snr-low",), attempt_id="a2")])
+    acc = open_run(tmp_path / "run").accepted()
+    assert acc[0]["attempt_id"] == "a0" and acc[0]["decided_by"] == "user"   # a person's choice is kept
+
+
 def test_leftover_temp_file_reported_never_read(run3: Path):
     part = run3 / "records" / tmp_name("deadbeef")
     part.write_bytes(b"\x89HDF\r\n\x1a\n half a file")
