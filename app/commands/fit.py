@@ -25,6 +25,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--fixed", action="store_true", help="delays: exactly --terms terms, no choice by AIC")
     p.add_argument("--unit-gain", action="store_true", help="impose F(0) = 1 (perfectly premixed flame)")
     p.add_argument("--good-only", action="store_true", help="leave flagged points out")
+    p.add_argument("--save", metavar="FILE", help="write the points and the fitted models to FILE (.mat or .h5)")
+    p.add_argument("--convention", choices=("plus", "minus"), default="plus",
+                   help="time convention of the saved file: plus = e^{+iwt} (flamebode's), minus = e^{-iwt} "
+                        "(conjugated)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -54,6 +58,7 @@ def run(args: argparse.Namespace) -> int:
     print(f"run {args.run_dir}: {args.model} fit, e^{{+iwt}} convention"
           + (f"; {skipped} flagged point(s) left out" if skipped else ""))
     failed = 0
+    saved_models = []
     for amp, pts in sorted(by_amp.items()):
         f, F, gci, pci, k = (np.array(c) for c in zip(*pts))
         print(f"|u'|/u_mean = {amp:g}: {len(pts)} points, {f.min():g}-{f.max():g} Hz")
@@ -71,6 +76,7 @@ def run(args: argparse.Namespace) -> int:
         if others:
             print("  terms by AIC: " + ", ".join(f"K={r.k_terms} AIC {r.aic:.4g}" for r in others)
                   + f" -> K={result.k_terms}")
+        saved_models.append((amp, result))
         for line in result.describe():
             print(f"  {line}")
         if result.reduced_chi2 > 3:
@@ -78,6 +84,11 @@ def run(args: argparse.Namespace) -> int:
                   "try more terms or look at the flagged points")
     if len(by_amp) > 1:
         _amplitude_report(by_amp)
+    if args.save:
+        from ..storage.interchange import CONVENTIONS, write_interchange
+
+        path = write_interchange(args.run_dir, args.save, args.convention, saved_models)
+        print(f"wrote {path} (points and {len(saved_models)} fitted model(s), {CONVENTIONS[args.convention]})")
     return 1 if failed == len(by_amp) else 0
 
 
