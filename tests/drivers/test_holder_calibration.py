@@ -42,6 +42,7 @@ def holder_calibration(rig: Rig, freqs: list[float], seed: int | None, scenario:
     return core.assemble(points, names, reference), sim
 
 
+@pytest.mark.slow
 def test_holder_calibration_recovers_the_true_sensor_errors_within_their_uncertainty():
     # Two-sided coverage of the stated standard uncertainty over seeds (common practice for an
     # uncertainty estimate): about 68 % within 1 u and 95 % within 2 u, for gain and phase.
@@ -149,6 +150,7 @@ def test_holder_mode_has_no_flame_and_one_pressure_at_every_sensor():
         SimulatedBurner(rig, seed=2, holder=True, holder_plane=1.0)
 
 
+@pytest.mark.slow
 def test_soft_start_on_a_rig_with_sharp_resonances():
     # The resonant scenario's drive-to-pressure ratio changes by far more than 10x between
     # neighbouring frequencies: opening each frequency at a tenth of the previous drive and

@@ -37,6 +37,7 @@ def _run(args: list[str], log: Path | None = None, timeout: float = 120) -> subp
                           capture_output=True, text=True, timeout=timeout)
 
 
+@pytest.mark.slow
 def test_calibrate_writes_a_file_that_matches_the_simulated_sensors(tmp_path):
     out = tmp_path / "cal.toml"
     log = tmp_path / "drive.csv"
