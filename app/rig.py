@@ -25,7 +25,8 @@ from .configfile import load_model, model_from_dict, read_toml  # noqa: F401 (re
 
 # Bounds of every number (SI; see docs/rig-file.md, which states them key by key). Wide enough
 # for any laboratory rig, narrow enough that a slip of unit or a non-number is refused.
-Position = quantity("length", -100.0, 100.0, unit="m")
+Position = quantity("length", -10.0, 10.0, unit="m")
+MAX_DUCT_M = 10.0        # sensor duct length; also keeps the simulator's stability search to seconds
 Temperature = quantity("temperature", 150.0, 3500.0, lo_open=True, hi_open=True, unit="K")
 MeterTemperature = quantity("temperature", 200.0, 400.0, unit="K")
 Pressure = quantity("pressure", 1e3, 1e7, lo_open=True, hi_open=True, unit="Pa")
@@ -33,6 +34,7 @@ Sensitivity = quantity("sensitivity", 1e-7, 10.0, unit="V/Pa")
 Frequency = quantity("frequency", 0.0, 1e6, lo_open=True, unit="Hz")
 VolumeFlow = quantity("volume_flow", 0.0, 1.0, unit="L/min")
 MAX_CEILING_V = 20.0     # peak volts at an amplifier input: generators give at most 10-20 V peak
+MAX_BLOCK_SAMPLES = 1e6  # per channel and block: a block is a tenth of a second or so, not minutes
 
 RIG_DOC = "docs/rig-file.md"
 KNOWN_SPECIES = ("N2", "O2", "AR", "CO2", "H2O", "CH4", "H2", "C3H8", "NH3")
@@ -112,6 +114,9 @@ class Duct(_Strict):
             raise ValueError("give exactly one of 'radius' or 'diameter'")
         if self.upstream_end >= self.reference_plane:
             raise ValueError("'upstream_end' must lie upstream of (less than) 'reference_plane'")
+        if self.reference_plane - self.upstream_end > MAX_DUCT_M:
+            raise ValueError(f"the duct from 'upstream_end' to 'reference_plane' is "
+                             f"{self.reference_plane - self.upstream_end:g} m long; at most {MAX_DUCT_M:g} m")
         return self
 
     @property
@@ -193,9 +198,13 @@ class Acquisition(_Strict):
 
     @model_validator(mode="after")
     def _block(self) -> "Acquisition":
-        if self.sample_rate * self.block_duration < 16:
+        n = self.sample_rate * self.block_duration
+        if n < 16:
             raise ValueError(f"a block of {self.block_duration:g} s at {self.sample_rate:g} Hz holds fewer than "
                              f"16 samples; use a longer 'block_duration'")
+        if n > MAX_BLOCK_SAMPLES:
+            raise ValueError(f"a block of {self.block_duration:g} s at {self.sample_rate:g} Hz holds {n:.3g} samples, "
+                             f"more than {MAX_BLOCK_SAMPLES:g} per channel; use a shorter 'block_duration'")
         return self
 
 

@@ -82,6 +82,22 @@ def test_a_block_holds_at_least_16_samples(tmp_path):
         load_rig(_write(tmp_path, text))
 
 
+def test_a_block_holds_at_most_a_million_samples(tmp_path):
+    text = DEMO.read_text().replace('sample_rate = "25.6 kHz"', 'sample_rate = "1000 kHz"').replace(
+        'block_duration = "0.1 s"', 'block_duration = "2 s"')
+    with pytest.raises(ConfigError, match=r"acquisition: a block of 2 s at 1e\+06 Hz holds 2e\+06 samples, more "
+                                          r"than 1e\+06 per channel"):
+        load_rig(_write(tmp_path, text))
+
+
+def test_a_duct_is_at_most_10_m_long(tmp_path):
+    text = DEMO.read_text().replace('upstream_end = "-900 mm"', 'upstream_end = "-9 m"').replace(
+        'reference_plane = "0 mm"', 'reference_plane = "2 m"')
+    with pytest.raises(ConfigError, match=r"duct: the duct from 'upstream_end' to 'reference_plane' is 11 m long; "
+                                          r"at most 10 m"):
+        load_rig(_write(tmp_path, text))
+
+
 def test_every_flow_zero_is_refused(tmp_path):
     text = DEMO.read_text().replace('flow = "180 L/min"', 'flow = "0 L/min"').replace('flow = "18.1 L/min"',
                                                                                       'flow = "0 L/min"')

@@ -30,12 +30,16 @@ from app.errors import ConfigError
 from app.rig import Rig, load_rig
 
 # Bounds (SI; docs/scenario-file.md states them key by key)
-Length = quantity("length", 0.0, 20.0, unit="m")
-PosLength = quantity("length", 0.0, 20.0, lo_open=True, unit="m")
-Diameter = quantity("length", 0.0, 5.0, lo_open=True, unit="m")
+# Lengths and delays are bounded also so that the linear-stability search at start-up stays
+# within seconds (a 20 m plenum or a 1 s flame delay holds hundreds of modes in the band), and
+# noise corners so that the noise filters stay small (a corner at 1e-9 Hz asked for 4 PB).
+Length = quantity("length", 0.0, 3.0, unit="m")
+PosLength = quantity("length", 0.0, 3.0, lo_open=True, unit="m")
+Diameter = quantity("length", 0.0, 2.0, lo_open=True, unit="m")
 Temperature = quantity("temperature", 150.0, 3500.0, lo_open=True, hi_open=True, unit="K")
-Frequency = quantity("frequency", 0.0, 1e6, lo_open=True, unit="Hz")
-Delay = quantity("time", 0.0, 1.0, unit="ms")
+Frequency = quantity("frequency", 1.0, 1e6, unit="Hz")
+Delay = quantity("time", 0.0, 0.02, unit="ms")
+Spread = quantity("time", 0.0, 0.005, unit="ms")
 FaultTime = quantity("time", 0.0, 1e7, unit="s")
 Period = quantity("time", 0.0, 1e7, lo_open=True, unit="s")
 Angle = quantity("angle", -2 * math.pi, 2 * math.pi, unit="deg")
@@ -78,7 +82,7 @@ class BurnerSpec(_Strict):
 class DelayTerm(_Strict):
     n: Gain
     tau: Delay
-    sigma: Delay = 0.0
+    sigma: Spread = 0.0
 
 
 class FlameSpec(_Strict):
