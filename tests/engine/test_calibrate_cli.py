@@ -11,8 +11,10 @@ nothing and leaves an older file of the same name as it was. The drive log
 
 from __future__ import annotations
 
+import json
 import os
 import signal
+import sqlite3
 import subprocess
 import sys
 import time
@@ -25,6 +27,7 @@ from app.calibration_file import read_calibration
 from app.rig import load_rig
 from drivers.drive_log import read_log
 from drivers.simulated import SimulatedBurner, truth
+from run_watch import short_plan_text
 
 ROOT = Path(__file__).resolve().parents[2]
 RIG = ROOT / "configs" / "demo-rig.toml"
@@ -121,3 +124,39 @@ def test_a_signal_halts_at_once_and_writes_nothing(tmp_path, sig):
     late = drive[drive["wall_time_s"] > min(t_signal + BLOCK_S, halts["wall_time_s"][0])]
     assert np.all(late["peak_v"] == 0.0), late        # the halt line and anything after it: zero
     assert drive["peak_v"][-1] == 0.0 and drive["end_v"][-1] == 0.0
+
+
+@pytest.mark.slow
+def test_reprocess_run_applies_a_new_calibration_to_an_old_run(tmp_path):
+    # An old run measured without calibration, then the sensors calibrated and the rig file
+    # naming the new file: reprocess-run keeps the attempts and adds analyses with it. With the
+    # sensors' spread removed the pressures fit plane waves better (common practice: a
+    # mis-calibrated sensor shows as a larger multi-microphone residual).
+    plan = tmp_path / "plan.toml"
+    plan.write_text(short_plan_text("old run", 200, 400, 100, 0.5), encoding="utf-8")
+    run_dir = tmp_path / "run"
+    env = {**os.environ, "PYTHONUNBUFFERED": "1"}
+    sweep = subprocess.run([sys.executable, "-m", "app.cli", "sweep", str(plan), "--rig", str(RIG), "--fast",
+                            "--seed", "3", "--out", str(run_dir)], cwd=ROOT, env=env, capture_output=True, text=True,
+                           timeout=120)
+    assert sweep.returncode == 0, sweep.stderr
+    cal = tmp_path / "cal.toml"
+    made = _run([str(RIG), "--band", "100-500", "--step", "100", "--fast", "--seed", "3", "--out", str(cal)])
+    assert made.returncode == 0, made.stderr
+    rig = tmp_path / "rig.toml"
+    rig.write_text(RIG.read_text(encoding="utf-8").replace(
+        "\n[duct]", f"\npressure_calibration = {str(cal)!r}\n\n[duct]", 1), encoding="utf-8")
+    again = subprocess.run([sys.executable, "-m", "app.cli", "reprocess-run", str(run_dir), "--rig", str(rig)],
+                           cwd=ROOT, env=env, capture_output=True, text=True, timeout=120)
+    assert again.returncode == 0 and "Traceback" not in again.stderr, again.stderr
+    con = sqlite3.connect(run_dir / "index.sqlite")
+    try:
+        rows = con.execute("SELECT attempt_id, quality FROM analyses ORDER BY analysis_id").fetchall()
+        n_attempts = con.execute("SELECT COUNT(*) FROM attempts").fetchone()[0]
+    finally:
+        con.close()
+    assert n_attempts == 3 and len(rows) == 6
+    before = {a: json.loads(q)["mmm_residual"] for a, q in rows[:3]}
+    after = {a: json.loads(q)["mmm_residual"] for a, q in rows[3:]}
+    assert before.keys() == after.keys()
+    assert all(after[a] < 0.5 * before[a] for a in before), (before, after)
