@@ -1,6 +1,7 @@
 """``flamebode fit RUN_DIR``: flame models fitted to a run's accepted points, per forcing amplitude.
 
-Models: ``n-tau`` (F = n e^{-iωτ}) or ``delays`` (a sum of K Gaussian distributed delays; K
+Models: ``n-tau`` (F = n e^{-iωτ}), ``rational`` (poles and residues with a pure delay by
+vector fitting, ``app.core.rational``, with its state-space form) or ``delays`` (a sum of K Gaussian distributed delays; K
 chosen by AIC up to ``--terms``, or fixed with ``--terms K --fixed``), optionally with the
 low-frequency limit F(0) = 1 of a perfectly premixed flame (``--unit-gain``). Each point is
 weighted by its own 95 % intervals (and coverage factors where the run stored them). Prints
@@ -20,7 +21,10 @@ from collections import defaultdict
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("run_dir", help="run folder written by 'flamebode sweep'")
-    p.add_argument("--model", choices=("n-tau", "delays"), default="delays", help="flame model (default: delays)")
+    p.add_argument("--model", choices=("n-tau", "delays", "rational"), default="delays",
+                   help="flame model (default: delays; rational: poles and residues with a pure delay, by vector "
+                        "fitting, with its state-space form)")
+    p.add_argument("--poles", type=int, default=6, help="rational: number of poles (default 6)")
     p.add_argument("--terms", type=int, default=3, help="delays: at most this many Gaussian terms (default 3)")
     p.add_argument("--fixed", action="store_true", help="delays: exactly --terms terms, no choice by AIC")
     p.add_argument("--unit-gain", action="store_true", help="impose F(0) = 1 (perfectly premixed flame)")
@@ -65,6 +69,10 @@ def run(args: argparse.Namespace) -> int:
         try:
             if args.model == "n-tau":
                 result, others = fit(f, F, gci, pci, "n_tau", coverage=k), []
+            elif args.model == "rational":
+                from ..core.rational import vector_fit
+
+                result, others = vector_fit(f, F, gci, pci, args.poles, coverage=float(np.median(k))), []
             elif args.fixed:
                 result, others = fit(f, F, gci, pci, "delays", args.terms, args.unit_gain, coverage=k), []
             else:

@@ -17,7 +17,9 @@ Contents, in SI units and named so:
 * ``run``: the run folder, the plan's name, the rig file's text (the operating point: flows,
   temperatures, geometry) and the back-end;
 * ``models`` (optional): each fitted model's name, parameters, their covariance, reduced χ²,
-  AIC, and the model evaluated on a dense frequency grid (same convention).
+  AIC, and the model evaluated on a dense frequency grid (same convention); a rational model
+  also its state-space matrices A, B, C, D and delay ``tau_s`` (in flamebode's e^{+iωt}
+  convention: a real system does not change with the convention, only the sign of ω does).
 
 Imports: numpy, scipy.io, h5py and ``app.storage`` only. Must not import Qt or drivers.
 """
@@ -109,6 +111,9 @@ def write_interchange(run_dir: str | Path, path: str | Path, convention: str = "
                        "covariance": np.asarray(m.covariance, dtype=float), "reduced_chi2": float(m.reduced_chi2),
                        "aic": float(m.aic), "grid_hz": grid,
                        "grid_ftf": np.conj(values) if convention == "minus" else values})
+        if hasattr(m, "state_space"):          # the rational model: (A, B, C, D) and the delay
+            A, B, C, D, tau = m.state_space()
+            fitted[-1].update(A=A, B=B, C=C, D=D, tau_s=float(tau))
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = out.with_name(f".{out.name}.part")
     if suffix == ".mat":
@@ -155,5 +160,8 @@ def _write_h5(path: Path, pts, info, fitted, convention: str) -> None:
             mg.attrs["reduced_chi2"] = m["reduced_chi2"]
             mg.attrs["aic"] = m["aic"]
             mg.attrs["amplitude_ratio"] = m["amplitude_ratio"]
-            for key in ("values", "covariance", "grid_hz", "grid_ftf"):
-                mg.create_dataset(key, data=m[key])
+            for key in ("values", "covariance", "grid_hz", "grid_ftf", "A", "B", "C", "D"):
+                if key in m:
+                    mg.create_dataset(key, data=m[key])
+            if "tau_s" in m:
+                mg.attrs["tau_s"] = m["tau_s"]

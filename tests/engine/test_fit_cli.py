@@ -37,12 +37,17 @@ def _sweep(tmp_path: Path, start: float, stop: float, step: float) -> Path:
     return run
 
 
+@pytest.fixture(scope="module")
+def band_run(tmp_path_factory) -> Path:
+    return _sweep(tmp_path_factory.mktemp("band"), 100, 700, 50)
+
+
 @pytest.mark.slow
 @pytest.mark.timeout(300)
-def test_fit_of_a_simulated_run_follows_the_true_flame(tmp_path: Path) -> None:
+def test_fit_of_a_simulated_run_follows_the_true_flame(band_run: Path) -> None:
     from drivers.simulated import truth
 
-    run = _sweep(tmp_path, 100, 700, 50)
+    run = band_run
     out = _cli("fit", str(run), "--model", "delays", "--terms", "2", "--fixed")
     assert out.returncode == 0 and "Traceback" not in out.stderr, out.stderr[-2000:]
     assert "reduced chi2" in out.stdout and "tau1 =" in out.stdout and "sigma2 =" in out.stdout, out.stdout
@@ -84,3 +89,19 @@ def test_an_fdf_run_gets_the_amplitude_report(tmp_path: Path) -> None:
     assert "differs at:" in out.stdout
     limit = float(re.search(r"saturation of the heat release at \|Q'\|/Q_mean = ([0-9.]+)", out.stdout).group(1))
     assert 0.2 < limit < 0.4, out.stdout
+
+
+@pytest.mark.slow
+@pytest.mark.timeout(300)
+def test_a_rational_fit_is_saved_with_its_state_space_form(band_run: Path, tmp_path: Path) -> None:
+    import h5py
+    import control as ct
+
+    out = _cli("fit", str(band_run), "--model", "rational", "--poles", "4", "--save", str(tmp_path / "m.h5"))
+    assert out.returncode == 0 and "state-space form: 4 states" in out.stdout, out.stdout + out.stderr
+    with h5py.File(tmp_path / "m.h5") as f:
+        m = f["models/1"]
+        A, B, C, D, tau = m["A"][...], m["B"][...], m["C"][...], m["D"][...], m.attrs["tau_s"]
+        grid, model = m["grid_hz"][...], m["grid_ftf"][...]
+    resp = ct.frequency_response(ct.ss(A, B, C, D), 2 * np.pi * grid)     # python-control as the reference
+    assert np.allclose(np.squeeze(resp.complex) * np.exp(-2j * np.pi * grid * tau), model, atol=1e-9)
