@@ -292,3 +292,26 @@ def test_random_values_at_any_numeric_key(tmp_path_factory, key, data) -> None:
     if unit is not None and not isinstance(number, bool) and data.draw(st.booleans()):
         value = f"{number!r} {unit}"
     _check(kind, path, value, tmp_path_factory.mktemp("mut"))
+
+
+@pytest.mark.slow
+def test_the_simulator_starts_at_the_slowest_bounds() -> None:
+    # the bounds of the scenario's lengths and delays were chosen so the stability search at
+    # start-up stays within seconds (a 20 m plenum or a 1 s delay took minutes); here all at once
+    import time
+
+    from app.rig import load_rig
+    from drivers.simulated.burner import SimulatedBurner
+    from drivers.simulated.scenario import scenario_from_dict
+
+    data = demo_data("scenario")
+    data["chamber"] = {**data["chamber"], "length": 3.0}
+    data["plenum"] = {**data["plenum"], "length": 3.0}
+    data["flame"] = {**data["flame"], "terms": [{"n": 1.0, "tau": 0.02, "sigma": 0.005}]}
+    t0 = time.monotonic()
+    sim = SimulatedBurner(load_rig(DEMO["rig"]), scenario=scenario_from_dict(data), seed=1)
+    sim.start()
+    sim.set_drive(300.0, 0.5)
+    block = sim.read_block()
+    assert math.isfinite(float(abs(block.data).max()))
+    assert time.monotonic() - t0 < 60.0
