@@ -103,7 +103,8 @@ class ProgressDisplay:
         s = self.status
         if isinstance(item, tuple) and item[0] == "started":
             s["n"] = item[1]
-            return Text(f"sweep {item[2]}: {item[1]} points on {item[3] or 'back-end'}", style="bold")
+            return Text(f"sweep {item[2]}: {item[1]} point{'' if item[1] == 1 else 's'} on {item[3] or 'back-end'}",
+                        style="bold")
         if isinstance(item, tuple) and item[0] == "settled":
             return self._result_line(item)
         if isinstance(item, StateChanged):
