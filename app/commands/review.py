@@ -36,7 +36,7 @@ def _cells(row: dict) -> list[str]:
     return [str(row["point"]), _fmt(row["freq_hz"], ".2f"), _fmt(row["amplitude_ratio_target"], ".4f"),
             _fmt(row["amplitude_ratio_achieved"], ".4f"), _fmt(row["gain"], ".4f"), _fmt(row["gain_ci95"], ".4f"),
             _fmt(row["phase_deg"], "+.2f"), _fmt(row["phase_ci95_deg"], ".2f"), row["used"] or "(none)",
-            str(row["n_attempts"]), row["chosen_by"], row["flags"].replace(";", ", ")]
+            str(row["n_attempts"]), row["chosen_by"] or "-", row["flags"].replace(";", ", ")]
 
 
 def _attempt_flags(a: dict) -> list[str]:

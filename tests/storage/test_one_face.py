@@ -124,6 +124,15 @@ def test_phase_and_gain_read_alike_in_review_csv_json_and_window(tmp_path: Path)
               "json": f"{js[n]['phase_ci95_deg']:.2f}", "window": f"{math.degrees(c['phase_ci95_rad'][k]):.2f}"}
         assert len(set(ci.values())) == 1, (n, ci)
         assert shown[n]["used"] == table[n]["used"] == js[n]["used"] == f"{n}/1"
+    # review's columns line up under their headings, whatever the ids and flags
+    lines = rev.stdout.splitlines()
+    head = next(ln for ln in lines if ln.startswith("point "))
+    for name in ("gain", "phase_deg", "used"):
+        end = head.index(f" {name} " if name != "used" else " used") + 1 + len(name)
+        for n in shown:
+            row = next(ln for ln in lines if ln.split()[:1] == [str(n)] and "/" in ln)
+            value = shown[n]["gain" if name == "gain" else name]
+            assert row[end - len(value):end] == value, (name, head, row)
     # unwrapped: the phase falls point after point (a delay, e^{+iωt}) and has left (-180°, 180°]
     phases = [float(table[n]["phase_deg"]) for n in sorted(table)]
     assert all(b < a for a, b in zip(phases, phases[1:])) and phases[-1] < -360.0
