@@ -8,6 +8,9 @@ Models (time convention x(t) = Re{x̂ e^{+iωt}}, a delay gives a falling phase)
   132:061503), parameters n_j, τ_j, σ_j. With ``unit_gain`` the low-frequency limit
   F(0) = Σ n_j = 1 of a perfectly premixed flame is imposed (n_K = 1 - Σ_{j<K} n_j).
 
+Delays are searched up to max(3 τ₀, 1/(2Δf)) (τ₀ from the phase slope, Δf the median spacing
+of the frequencies): a longer delay aliases and cannot be identified from the points.
+
 Weights: a point's error is taken as independent in gain and in phase, with standard
 deviations σ_g = gain_ci95/k and σ_φ = phase_ci95/k (k the point's coverage factor, 1.96 by
 default). To first order δF = e^{iφ}(δg + i g δφ), so the residual rotated by the measured
@@ -157,9 +160,13 @@ def fit(freq_hz, ftf, gain_ci95, phase_ci95_rad, model: str = "n_tau", k_terms: 
         return np.concatenate([r.real, r.imag]) * scale
 
     tau0 = _delay_guess(f, F)
+    # delays beyond half the inverse frequency spacing alias (e^{-iωτ} sampled every Δf repeats
+    # with period 1/Δf): they cannot be told apart, so they are not searched
+    spacing = float(np.median(np.diff(np.unique(f)))) if np.unique(f).size > 1 else float(f.max())
+    tau_max = max(3.0 * tau0, 0.5 / spacing)
     if model == "n_tau":
         starts = [np.array([float(np.median(g)), tau0])]
-        lower, upper = [-np.inf, 0.0], [np.inf, 1.0]
+        lower, upper = [-np.inf, 0.0], [np.inf, tau_max]
     else:
         from itertools import combinations
 
@@ -173,7 +180,7 @@ def fit(freq_hz, ftf, gain_ci95, phase_ci95_rad, model: str = "n_tau", k_terms: 
         starts = starts[:: max(1, len(starts) // 40)]   # at most ~40 starts
         n_len = k - 1 if unit_gain else k
         lower = [-np.inf] * n_len + [0.0] * k + [0.0] * k
-        upper = [np.inf] * n_len + [1.0] * k + [1.0] * k
+        upper = [np.inf] * n_len + [tau_max] * k + [tau_max] * k
     best = None
     for x0 in starts:
         x0 = np.clip(x0, np.array(lower) + 1e-12, np.array(upper) - 1e-12)
