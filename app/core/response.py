@@ -280,6 +280,9 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     pair = cov_ch.propagate(np.vstack([row_light, row_u / vel.mean_velocity_ref_m_s]))
     pair = PhasorCovariance(pair.matrix, min(cov_ch.dof, vel.dof))
     directions = -_systematic_directions(fit, prep, rig, mean, vel_ratio) / vel_ratio   # δF/F = −δU/U
+    # The dark offset's standard uncertainty shifts Q̄ = mean light − dark, hence |Q̂'/Q̄|: a real
+    # (gain-only) direction u_dark/Q̄ (JCGM 100:2008 §5.1.2; the rig file states u_dark).
+    directions = np.append(directions, rig.light.dark_offset_uncertainty / light_mean)
     interval = ratio_interval(light_ratio, vel_ratio, pair, directions)
     rel_var_random = interval.random_rel_var
     rel_var_sys = interval.systematic_gain_var + interval.systematic_phase_var

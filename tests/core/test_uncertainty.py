@@ -18,9 +18,9 @@ from synth import make_record, n_tau
 DEMO_RIG = Path(__file__).resolve().parents[2] / "configs" / "demo-rig.toml"
 
 
-def rig_variant(shift_m: float = 0.0, sensors: tuple[int, ...] | None = None, **gas):
+def rig_variant(shift_m: float = 0.0, sensors: tuple[int, ...] | None = None, light: dict | None = None, **gas):
     """The demo rig with every axial position (reference plane and duct end included) moved by
-    ``shift_m``, optionally only the sensors numbered in ``sensors``, and gas fields replaced."""
+    ``shift_m``, optionally only the sensors numbered in ``sensors``, light and gas fields replaced."""
     data = load_rig(DEMO_RIG).model_dump()
     data.pop("source_path")
     duct = data["duct"]
@@ -31,6 +31,7 @@ def rig_variant(shift_m: float = 0.0, sensors: tuple[int, ...] | None = None, **
         s["position"] += shift_m
     data["pressure_sensors"] = chosen
     data["gas"].update(gas)
+    data["light"].update(light or {})
     return rig_from_dict(data, "variant")
 
 
@@ -203,7 +204,7 @@ def test_short_record_gets_a_student_t_factor():
     # factor is the t quantile at the point's Welch–Satterthwaite ν (JCGM 100:2008 Annex G).
     from scipy import stats
 
-    rig = rig_variant(0.0, None, temperature_uncertainty=0.0)
+    rig = rig_variant(0.0, None, light={"dark_offset_uncertainty": 1e-9}, temperature_uncertainty=0.0)
     rec = make_record(rig, 100.0, n_tau(0.9, 2e-3), duration_s=0.07, noise_pa=0.05, light_noise_v=0.002,
                       rng=np.random.default_rng(9), white=True)
     pt = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, 100.0, rig)
@@ -232,3 +233,24 @@ def test_low_snr_interval_stays_within_half_a_turn_and_is_flagged():
     good = evaluate_point(quiet.data, quiet.channels, quiet.sample_rate_hz, 220.0, rig)
     assert good.quality["interval_linear"] == 1.0
     assert "too-uncertain" not in quality_flags(good.quality, Quality())
+
+
+def test_dark_offset_uncertainty_enters_the_gain_only():
+    # A dark offset stated δ too low raises Q̄ = mean − dark by δ and lowers |Q̂'/Q̄| by δ/Q̄:
+    # the budget's real (gain-only) term u_dark/Q̄ (JCGM 100:2008 §5.1.2) must match that shift.
+    data = rig_variant(0.0, None, temperature_uncertainty=0.0).model_dump()
+    data.pop("source_path")
+    for s_ in data["pressure_sensors"]:
+        s_["position_uncertainty"] = 0.0
+    u_dark = 0.02
+    exact = rig_from_dict({**data, "light": {**data["light"], "dark_offset_uncertainty": 1e-9}}, "exact")
+    stated = rig_from_dict({**data, "light": {**data["light"], "dark_offset_uncertainty": u_dark}}, "stated")
+    wrong = rig_from_dict({**data, "light": {**data["light"], "dark_offset": data["light"]["dark_offset"] - u_dark,
+                                               "dark_offset_uncertainty": 1e-9}}, "wrong")
+    rec = make_record(exact, 300.0, n_tau(1.0, 2e-3), noise_pa=1e-4, light_noise_v=1e-6, white=True)
+    pt = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, 300.0, stated)
+    off = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, 300.0, wrong)
+    iv = pt.interval
+    assert iv.systematic_phase_var == pytest.approx(0.0, abs=1e-12)
+    assert np.sqrt(iv.systematic_gain_var) == pytest.approx(u_dark / 2.0, rel=0.01)   # light mean 2 V
+    assert off.gain / abs(rec.true_ftf) - 1 == pytest.approx(-np.sqrt(iv.systematic_gain_var), rel=0.03)
