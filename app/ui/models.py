@@ -22,6 +22,7 @@ import numpy as np
 
 from app.engine.events import BlockAcquired, FaultRaised, PointSettled, StateChanged, TuningStep
 from app.core import quality as _quality
+from app.core.phase import unwrapped_phase_rad
 from app.storage.index import NEVER_ACCEPTED
 
 
@@ -340,7 +341,7 @@ class PointTable(Observable):
             a = np.array([(r.freq_hz, r.gain, r.gain_ci95, r.phase_rad, r.phase_ci95_rad, r.index)
                           for r in rows], dtype=float)
             curves[amp] = {"freq_hz": a[:, 0], "gain": a[:, 1], "gain_ci95": np.nan_to_num(a[:, 2]),
-                           "phase_rad": np.unwrap(a[:, 3]), "phase_ci95_rad": np.nan_to_num(a[:, 4]),
+                           "phase_rad": unwrapped_phase_rad(a[:, 0], a[:, 3]), "phase_ci95_rad": np.nan_to_num(a[:, 4]),
                            "index": a[:, 5].astype(int),
                            "flagged": np.array([r.status == FLAGGED or bool(r.flags) for r in rows], dtype=bool)}
         return curves
