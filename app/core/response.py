@@ -336,6 +336,10 @@ def point_summary(point: FtfPoint) -> Mapping[str, object]:
         "phase_rad": point.phase_rad,
         "phase_ci95_rad": point.phase_ci95_rad,
         "mean_velocity_ref_m_s": point.velocity.mean_velocity_ref_m_s,
+        "velocity_ratio_sigma": point.velocity.sigma_ratio,
+        "gain_dof": point.interval.dof_gain if point.interval is not None else None,
+        "phase_dof": point.interval.dof_phase if point.interval is not None else None,
+        "interval_method": None if point.interval is None else ("linear" if point.interval.linear else "bootstrap"),
         "quality": dict(point.quality),
         "warnings": list(point.warnings),
     }

@@ -254,3 +254,17 @@ def test_dark_offset_uncertainty_enters_the_gain_only():
     assert iv.systematic_phase_var == pytest.approx(0.0, abs=1e-12)
     assert np.sqrt(iv.systematic_gain_var) == pytest.approx(u_dark / 2.0, rel=0.01)   # light mean 2 V
     assert off.gain / abs(rec.true_ftf) - 1 == pytest.approx(-np.sqrt(iv.systematic_gain_var), rel=0.03)
+
+
+def test_point_summary_carries_the_velocity_uncertainty_and_the_interval_basis():
+    import json
+
+    from app.core.response import point_summary
+
+    rig = rig_variant(0.0, None)
+    rec = make_record(rig, 300.0, n_tau(1.0, 2e-3), rng=np.random.default_rng(2))
+    pt = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, 300.0, rig)
+    summary = json.loads(json.dumps(point_summary(pt), allow_nan=False))
+    assert summary["velocity_ratio_sigma"] == pytest.approx(pt.velocity.sigma_ratio)
+    assert summary["gain_dof"] > 10 and summary["interval_method"] == "linear"
+    assert summary["quality"]["coverage_factor_gain"] > 1.95
