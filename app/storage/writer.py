@@ -305,8 +305,14 @@ class RunWriter:
         try:
             with conn:
                 if isinstance(event, SweepStarted):
-                    index.set_info(conn, {"backend": event.backend, "run_label": event.run_label,
-                                          "n_points": str(event.n_points), "identity": event.identity,
+                    # the run's own label and size stay those of its first sweep; a resume or
+                    # re-acquire of a few points is recorded as the last sweep beside them
+                    old = index.get_info(conn)
+                    first = {k: v for k, v in (("run_label", event.run_label), ("n_points", str(event.n_points)))
+                             if k not in old}
+                    index.set_info(conn, {**first, "backend": event.backend, "identity": event.identity,
+                                          "last_sweep_label": event.run_label,
+                                          "last_sweep_n_points": str(event.n_points),
                                           "sweep_started_wall_s": repr(event.wall_time_s)})
                     basis = getattr(getattr(event.plan, "amplitude", None), "basis", None)
                     if basis:

@@ -175,7 +175,9 @@ def test_reacquire_flagged_then_export_uses_the_rule_and_counts_the_flags(tmp_pa
     assert {n: r["used"] for n, r in shown.items()} == expected
     summary = json.loads((tmp_path / "x" / "summary.json").read_text())
     assert summary["plan_name"] == "one face rule" and summary["n_flagged"] == len(still)
-    assert summary["run_info"]["run_label"].startswith("r")     # the re-acquire's label is not the title
+    info = summary["run_info"]                       # the run keeps its own label and size after a re-acquire
+    assert info["last_sweep_label"].startswith("r") and info["run_label"] != info["last_sweep_label"]
+    assert (info["n_points"], info["last_sweep_n_points"]) == ("5", str(len(flagged)))
 
 
 @pytest.mark.slow
