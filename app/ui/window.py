@@ -62,6 +62,7 @@ STATE_WORDS = {S.IDLE: "ready", S.PREPARING: "preparing the point", S.TUNING: "t
                S.HALTED: "HALTED (outputs zeroed)", S.FAULTED: "stopped by a fault (drive at zero)"}
 NOT_LIVE = {"halted": "halted — outputs zeroed", "aborted": "aborted — drive ramped to zero",
             "fault": "ended by a fault — drive at zero", "complete": "sweep complete", "stopped": "sweep stopped"}
+NOT_TRIGGERED = (S.PAUSED, S.HALTED, S.ABORTED, S.FAULTED, S.FINISHED)   # traces then show the whole 0.2 s
 MIN_SIZE = (720, 540)             # the control strip and every tab fit (halt button whole) at this size
 HALT_WHY_WINDOW = "emergency halt in the window"
 HALT_WHY_CLOSED = "window closed during the sweep"
@@ -508,7 +509,8 @@ class MainWindow(ReviewActions, QMainWindow):
         frame = self.live.frame(self.traces.drawn_state)
         if frame is not None:
             self.traces.configure(frame.channels, self.roles or {}, window_s=TRACE_SECONDS)
-            self.traces.show_frame(frame)
+            live_drive = self.status.drive_v > 0 and self.status.state not in NOT_TRIGGERED
+            self.traces.show_frame(frame, self.status.freq_hz if live_drive else 0.0)
         self._state_line()
 
     def _state_line(self) -> None:

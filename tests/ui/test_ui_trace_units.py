@@ -37,3 +37,30 @@ def test_without_sensitivities_pressures_stay_in_volts(qtbot):
     qtbot.addWidget(view)
     view.configure(("p1", "p2"), {"p1": "pressure", "p2": "pressure"})
     assert view.plots["pressure"].getAxis("left").labelText == "V at the ADC"
+
+
+def test_a_kilohertz_trace_is_shown_for_a_few_periods_triggered_on_the_drive(qtbot):
+    # 200 periods of 1 kHz in 0.2 s are a grey band; a few periods, standing still, are readable
+    from app.ui.views.traces import trigger
+
+    fs, f = 25600.0, 1000.0
+    t = np.arange(-0.2, 0.0, 1 / fs)
+    rng = np.random.default_rng(1)
+    for phase in (0.3, 1.7, 4.0):                     # wherever the frame happens to end
+        drive = 0.1 * np.sin(2 * np.pi * f * t + phase) + 1e-4 * rng.standard_normal(t.size)
+        data = np.vstack([np.sin(2 * np.pi * f * t + phase + 1.0), drive])
+        shifted, window = trigger(t, data, 1, f, 0.2)
+        assert window == 0.01                           # 6 periods is 6 ms: at least 10 ms shown
+        at0 = np.interp(0.0, shifted, drive)
+        slope = np.interp(1e-5, shifted, drive) - np.interp(-1e-5, shifted, drive)
+        assert abs(at0) < 2e-3 and slope > 0            # the newest rising zero crossing at t = 0
+        assert shifted[0] <= -window                     # a whole window of signal before it
+    view = TracesView()
+    qtbot.addWidget(view)
+    view.configure(("p1", "drv"), {"p1": "pressure", "drv": "drive"})
+    view.show_frame(TraceFrame(("p1", "drv"), t, data, state=1), freq_hz=f)
+    lo, hi = view.plots["pressure"].getViewBox().viewRange()[0]
+    assert abs(lo + 0.01) < 1e-3 and abs(hi) < 1e-3
+    view.show_frame(TraceFrame(("p1", "drv"), t, data, state=2), freq_hz=0.0)   # drive off: the whole 0.2 s
+    lo, _ = view.plots["pressure"].getViewBox().viewRange()[0]
+    assert abs(lo + 0.2) < 1e-3

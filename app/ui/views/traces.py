@@ -5,6 +5,11 @@ otherwise in volts at the ADC. Channel names sit in each plot's title in their c
 colours (a legend box would cover the data). The light's title shows its mean level, and
 its value at the start of the sweep, so a flame-out is seen at a glance.
 
+While the drive runs at a known frequency, the live window shows a few forcing periods
+(``PERIODS_SHOWN``, at least 10 ms, at most the buffer's 0.2 s) and is triggered on the drive
+reference: the newest rising zero crossing sits at t = 0, so a steady sine stands still and a
+1 kHz trace is readable (``trigger``).
+
 Curves are created once per channel set; ``show_frame`` (called by the window's ~30 Hz
 timer) hands them a ``TraceFrame``: copies of the ring buffer's visible window, never the
 buffer itself. ``show_record`` draws a stored record in review. ``mark_stopped`` greys the
@@ -28,6 +33,27 @@ from .style import CHANNEL_COLOURS, STOPPED_PEN, STOPPED_STYLE, new_plot, pen
 ROLE_TITLES = {"pressure": ("Pressures", "V at the ADC"), "light": ("Heat-release light", "V"),
                "drive": ("Drive reference", "V"), "other": ("Other channels", "V")}
 PASCAL_UNIT = "Pa"
+PERIODS_SHOWN = 6
+MIN_WINDOW_S = 0.01
+
+
+def trigger(time_s: np.ndarray, data: np.ndarray, drive_row: int | None, freq_hz: float,
+            full_window_s: float) -> tuple[np.ndarray, float]:
+    """(time axis, window) for a frame: shifted so the drive reference's newest rising zero
+    crossing with a whole window before it is at t = 0, and a window of PERIODS_SHOWN periods.
+    Without a drive row or frequency: the frame's own time axis and the full window."""
+    if drive_row is None or not (freq_hz > 0) or time_s.size < 4:
+        return time_s, full_window_s
+    window = float(min(full_window_s, max(MIN_WINDOW_S, PERIODS_SHOWN / freq_hz)))
+    ref = data[drive_row] - float(np.mean(data[drive_row]))
+    rising = np.flatnonzero((ref[:-1] < 0.0) & (ref[1:] >= 0.0))
+    usable = rising[time_s[rising] - time_s[0] >= window]
+    if usable.size == 0:
+        return time_s, window
+    k = int(usable[-1])
+    frac = -ref[k] / (ref[k + 1] - ref[k]) if ref[k + 1] != ref[k] else 0.0     # linear between the samples
+    t0 = time_s[k] + frac * (time_s[k + 1] - time_s[k])
+    return time_s - t0, window
 
 
 class TracesView(QWidget):
@@ -50,6 +76,8 @@ class TracesView(QWidget):
         self.light_start_v: float | None = None   # the light's mean at the start, for its title
         self.light_mean_v: float | None = None    # the light's mean over the frame drawn last
         self._light_title = ""
+        self.window_s = 0.2
+        self._shown_window_s = 0.2
         self.drawn_state: object = None    # state of the last frame drawn
         self.frames = 0                  # redraws done (for the benchmark)
         self.stopped_text = ""            # non-empty while the traces are marked as not live
@@ -103,7 +131,7 @@ class TracesView(QWidget):
         self.layout_widget.clear()
         self.curves, self.plots, self._channels, self._roles = {}, {}, tuple(channels), roles
         self._rows_of, self._y_range = {}, {}
-        self.window_s = window_s
+        self.window_s = self._shown_window_s = window_s
         order = [r for r in ("pressure", "light", "drive", "other") if any(roles.get(c, "other") == r
                                                                            for c in channels)]
         first = None
@@ -148,13 +176,20 @@ class TracesView(QWidget):
             return data
         return data * self._scale_rows
 
-    def show_frame(self, frame: TraceFrame) -> None:
-        """Draw a live frame (copies, owned by the curves from now on)."""
+    def show_frame(self, frame: TraceFrame, freq_hz: float = 0.0) -> None:
+        """Draw a live frame (copies, owned by the curves from now on); ``freq_hz`` > 0 (the
+        drive's frequency) shows a few periods triggered on the drive reference."""
         data = self._scaled(frame.channels, frame.data)
+        drive = self._rows_of.get("drive")
+        t, window = trigger(frame.time_s, frame.data, drive[0] if drive else None, freq_hz, self.window_s)
+        if window != self._shown_window_s and self.plots:
+            self._shown_window_s = window
+            first = next(iter(self.plots.values()))
+            first.setXRange(-window, 0.0, padding=0.0)     # the others are linked to it
         for ch, row in zip(frame.channels, data):
             curve = self.curves.get(ch)
             if curve is not None:
-                curve.setData(frame.time_s, row, skipFiniteCheck=True)
+                curve.setData(t, row, skipFiniteCheck=True)
         if frame.channels == self._channels and data.shape[1]:
             self._follow_y(data)
             self._light_level(data)
