@@ -461,3 +461,15 @@ def run_thresholds(run: Any) -> Any:
         return plan_from_dict(read_toml(run.plan_path), str(run.plan_path)).quality
     except (FlamebodeError, OSError, AttributeError):
         return Quality()
+
+
+def amplitude_spectrum(x: np.ndarray, sample_rate_hz: float) -> tuple[np.ndarray, np.ndarray]:
+    """(frequency Hz, peak amplitude) of a Hann-windowed FFT: a sine on a bin reads its peak
+    amplitude (the window's coherent gain, its mean of 0.5, divided out; common practice)."""
+    x = np.asarray(x, dtype=float)
+    if x.size < 2:
+        return np.zeros(0), np.zeros(0)
+    w = np.hanning(x.size)
+    spec = np.fft.rfft((x - x.mean()) * w)
+    amp = 2.0 * np.abs(spec) / w.sum()
+    return np.fft.rfftfreq(x.size, 1.0 / sample_rate_hz), amp

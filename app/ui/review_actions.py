@@ -13,6 +13,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 from PySide6.QtWidgets import QFileDialog
 
 from .bridge import TaskResult
@@ -52,8 +53,13 @@ class ReviewActions:
         def done(result: TaskResult) -> None:
             if result.error is None and self.review.run is run:
                 rec = result.value
-                self.review.record.set_scales(self._pascal_per_volt(rec))
+                scales = self._pascal_per_volt(rec)
+                self.review.record.set_scales(scales)
                 self.review.record.show_record(rec.data, rec.channels, rec.sample_rate_hz, self._roles_of(rec))
+                factor = [scales.get(c, 1.0) for c in rec.channels]
+                self.review.spectrum.show_record(rec.data * np.array(factor)[:, None], rec.channels,
+                                                 rec.sample_rate_hz, rec.freq_hz,
+                                                 {c: "Pa" for c in scales})
 
         self.tasks.submit("read record", lambda: run.read_record(att["attempt_id"]), on_done=done)
 

@@ -12,11 +12,12 @@ from typing import Any
 
 from PySide6.QtCore import Qt
 from PySide6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLabel, QPushButton, QSplitter,
-                               QTextBrowser, QVBoxLayout, QWidget)
+                               QTabWidget, QTextBrowser, QVBoxLayout, QWidget)
 
 from ..models import PointTable, TuningHistory, quality_rows, run_thresholds
 from .points import PointListView
 from .response import ResponseView
+from .spectrum import SpectrumView
 from .traces import TracesView
 
 
@@ -32,6 +33,7 @@ class ReviewView(QWidget):
         self.point_list = PointListView(self.points)
         self.response = ResponseView(self.points)
         self.record = TracesView("Record")
+        self.spectrum = SpectrumView()
         self.details = QTextBrowser()
         self.details.setMinimumHeight(120)
         self.accept_button = QPushButton("Accept attempt")
@@ -71,7 +73,10 @@ class ReviewView(QWidget):
         ll.addWidget(self.details, 2)
         right = QSplitter(Qt.Orientation.Vertical)
         right.addWidget(self.response)
-        right.addWidget(self.record)
+        self.record_tabs = QTabWidget()          # the record against time, or its spectrum
+        self.record_tabs.addTab(self.record, "Record")
+        self.record_tabs.addTab(self.spectrum, "Spectrum")
+        right.addWidget(self.record_tabs)
         split = QSplitter()
         split.addWidget(left)
         split.addWidget(right)
