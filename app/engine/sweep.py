@@ -392,7 +392,7 @@ class SweepEngine:
             result = self._evaluate(data, self._channels, self._fs, rec.point.freq_hz, self.rig)
         except Exception:       # too short or no flame: the raw record is the evidence
             result = None
-        attempt_id = f"{self.run_label}-p{rec.point.index:04d}-{uuid.uuid4().hex[:8]}"
+        attempt_id = f"{self.run_label}-point{rec.point.index + 1:04d}-{uuid.uuid4().hex[:8]}"
         flags = tuple(dict.fromkeys(["interrupted", cause] + self._point_flags))
         self.bus.publish(PointSettled(
             attempt_id=attempt_id, point_index=rec.point.index, freq_hz=rec.point.freq_hz,
@@ -524,7 +524,7 @@ class SweepEngine:
     def _store(self, point: Any, drive_v: float, record: np.ndarray, result: Any, started_wall_s: float,
                recorded_wall_s: float) -> None:
         flags = tuple(dict.fromkeys(self._point_flags + list(quality_flags(result.quality, self.plan.quality))))
-        attempt_id = f"{self.run_label}-p{point.index:04d}-{uuid.uuid4().hex[:8]}"
+        attempt_id = f"{self.run_label}-point{point.index + 1:04d}-{uuid.uuid4().hex[:8]}"
         self.bus.publish(PointSettled(
             attempt_id=attempt_id, point_index=point.index, freq_hz=point.freq_hz,
             target_ratio=point.amplitude_ratio, drive_v=drive_v, record=record, channels=self._channels,
