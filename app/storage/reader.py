@@ -186,10 +186,18 @@ def _rebuild_from_records(run_dir: Path, problems: list[str]) -> Run:
                                              "target_ratio": a["target_ratio"]})
         a["seq"] = sum(1 for b in atts if b["point_index"] == a["point_index"] and b is not a and
                        b["started_wall_s"] <= a["started_wall_s"]) + 1
-    latest = {a["point_index"]: a for a in atts}
-    for a in atts:
-        a["decision"] = "accepted" if latest[a["point_index"]] is a else ""
+    choose_by_rule(atts)
     return Run(run_dir=run_dir, info={}, points=list(points.values()), attempts=atts, index_readable=False)
+
+
+def choose_by_rule(atts: list[dict[str, Any]]) -> None:
+    """Mark each point's attempt by the index's own rule (newest unflagged, else newest; never an
+    interrupted one), as the index would have: for a run rebuilt from its records."""
+    for i in {a["point_index"] for a in atts}:
+        chosen = index.rule_choice([a for a in atts if a["point_index"] == i])
+        for a in atts:
+            if a["point_index"] == i:
+                a["decision"] = "accepted" if a is chosen else ""
 
 
 def _attempt_from_attrs(f: Path, at: dict[str, Any]) -> dict[str, Any]:
