@@ -153,6 +153,7 @@ class RunWriter:
     def __init__(self, run_dir: str | Path, rig_path: str | Path, plan_path: str | Path, bus: EventBus,
                  scenario_path: str | Path | None = None, options: dict[str, Any] | None = None) -> None:
         self.run_dir = Path(run_dir)
+        self._rig_source = Path(rig_path)
         self.records_dir = self.run_dir / RECORDS_DIR
         self.index_path = self.run_dir / index.INDEX_NAME
         self.bus = bus
@@ -261,12 +262,17 @@ class RunWriter:
     # -- writer thread -------------------------------------------------------------------
 
     def _load_channel_map(self) -> dict[str, dict[str, Any]]:
+        """Roles, units and sensitivities for the records, from the rig file the sweep was started
+        with (a calibration file it names by a relative path resolves against it), else from the
+        run's snapshot of it."""
         from ..rig import load_rig
 
-        try:
-            return channel_map(load_rig(self.run_dir / SNAPSHOT_RIG))
-        except FlamebodeError:
-            return {}
+        for path in (self._rig_source, self.run_dir / SNAPSHOT_RIG):
+            try:
+                return channel_map(load_rig(path))
+            except FlamebodeError:
+                continue
+        return {}
 
     def _set_fault(self, message: str) -> None:
         with self._fault_lock:

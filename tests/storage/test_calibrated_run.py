@@ -1,0 +1,39 @@
+"""A sweep with a rig that names its calibration file by a relative path stores complete records.
+
+Seen: the run writer rebuilt the records' channel map (roles, units, sensitivities) from the
+run's snapshot of the rig file, where the relative calibration path no longer resolves, and
+silently stored an empty map in every record. Run through the real CLI.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+from app.rig import load_rig
+from app.storage.reader import open_run
+from run_watch import short_plan_text
+from test_calibration_file import _rig_naming, _write
+
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def test_records_keep_their_channel_map_with_a_relative_calibration_file(tmp_path: Path) -> None:
+    demo = ROOT / "configs" / "demo-rig.toml"
+    rig_dir = tmp_path / "rig"
+    rig_dir.mkdir()
+    _write(load_rig(demo), rig_dir / "cal.toml")
+    rig = _rig_naming(rig_dir, demo)                 # pressure_calibration = "cal.toml", relative
+    plan = tmp_path / "plan.toml"
+    plan.write_text(short_plan_text("calibrated", 200, 300, 100, 0.3))
+    out = subprocess.run([sys.executable, "-m", "app.cli", "sweep", str(plan), "--rig", str(rig), "--out",
+                          str(tmp_path / "run"), "--fast", "--seed", "2"], cwd=tmp_path, capture_output=True,
+                         text=True, timeout=170)
+    assert out.returncode == 0, out.stderr[-2000:]
+    run = open_run(tmp_path / "run", verify=False)
+    [a, *_] = run.attempts
+    attrs = run.read_record(a["attempt_id"]).attrs
+    roles = list(attrs["channel_roles"])
+    assert roles.count("pressure") == 4 and "light" in roles and "drive_reference" in roles
+    assert len(list(attrs["channel_sensitivity_v_per_unit"])) == len(roles)
