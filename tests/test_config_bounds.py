@@ -123,6 +123,16 @@ def test_records_and_windows_hold_two_periods_and_16_samples(tmp_path) -> None:
     plan.check_against(load_rig(DEMO["rig"]))       # 256 samples at the demo's 25.6 kHz
 
 
+def test_frequencies_stay_below_the_rigs_sample_rate(tmp_path) -> None:
+    # 0.8 x half of the demo rig's 25.6 kHz is 10.24 kHz
+    data = with_value(demo_data("plan"), ("frequencies", "linear"),
+                      {"start": "100 Hz", "stop": "10.5 kHz", "step": "100 Hz"})
+    f = tmp_path / "plan.toml"
+    f.write_text(dump_toml(data))
+    with pytest.raises(ConfigError, match=r"frequencies: 10500 Hz is too close to half the sample rate \(12800 Hz\)"):
+        load("plan", f)
+
+
 def test_too_many_points_are_refused(tmp_path) -> None:
     data = with_value(demo_data("plan"), ("frequencies", "linear"),
                       {"start": "100 Hz", "stop": "1000 Hz", "step": "0.1 Hz"})
