@@ -286,7 +286,7 @@ def decompose(
     if np.count_nonzero(w) < 2:
         raise MultimicInputError("at least 2 sensors need a weight > 0")
     sqrt_w = np.sqrt(w)
-    cond = float(np.linalg.cond(sqrt_w[:, None] * h))
+    cond = _condition_2col(sqrt_w[:, None] * h)
     sigma = _noise_matrix(noise_var, noise_cov, n)
     weight_matrix, used_gls, inflation, dof = np.diag(w).astype(complex), False, 1.0, float(noise_dof)
     m = noise_dof / 2.0
@@ -299,7 +299,7 @@ def decompose(
         except np.linalg.LinAlgError:
             pass
     hw = h.conj().T @ weight_matrix
-    bread = np.linalg.pinv(hw @ h)
+    bread = _inverse_2x2(hw @ h)
     estimator = bread @ hw                                  # a = E p
     a = estimator @ p
     p_norm = float(np.linalg.norm(p))
@@ -323,13 +323,32 @@ def decompose(
     )
 
 
+def _condition_2col(a: np.ndarray) -> float:
+    """2-norm condition number of an (n, 2) matrix from the eigenvalues of its 2 × 2 Gram matrix."""
+    g = a.conj().T @ a
+    half_trace = 0.5 * float(np.real(g[0, 0] + g[1, 1]))
+    radius = float(np.hypot(0.5 * np.real(g[0, 0] - g[1, 1]), abs(g[0, 1])))
+    low = half_trace - radius
+    if low <= 1e-15 * max(half_trace, 1e-300):
+        return float("inf")
+    return float(np.sqrt((half_trace + radius) / low))
+
+
+def _inverse_2x2(g: np.ndarray) -> np.ndarray:
+    """Inverse of a 2 × 2 matrix; the pseudo-inverse when it is singular."""
+    det = g[0, 0] * g[1, 1] - g[0, 1] * g[1, 0]
+    if abs(det) <= 1e-14 * max(float(np.max(np.abs(g))), 1e-300) ** 2:
+        return np.linalg.pinv(g)
+    return np.array([[g[1, 1], -g[0, 1]], [-g[1, 0], g[0, 0]]]) / det
+
+
 def _noise_matrix(noise_var: np.ndarray | float | None, noise_cov: np.ndarray | None, n: int) -> np.ndarray | None:
     """Σ = E[δp δpᴴ] from per-sensor variances or a full covariance (checked Hermitian, n × n)."""
     if noise_cov is not None:
         sigma = np.asarray(noise_cov, dtype=complex)
         if sigma.shape != (n, n) or not np.all(np.isfinite(sigma)):
             raise MultimicInputError(f"noise_cov must be a finite {n} × {n} matrix, got shape {sigma.shape}")
-        if not np.allclose(sigma, sigma.conj().T, rtol=1e-9, atol=1e-300):
+        if np.max(np.abs(sigma - sigma.conj().T), initial=0.0) > 1e-9 * np.max(np.abs(sigma), initial=0.0):
             raise MultimicInputError("noise_cov must be Hermitian (E[δp δpᴴ])")
         return 0.5 * (sigma + sigma.conj().T)
     if noise_var is not None:
