@@ -2,7 +2,7 @@
 
 Models: ``n-tau`` (F = n e^{-iωτ}), ``rational`` (poles and residues with a pure delay by
 vector fitting, ``app.core.rational``, with its state-space form) or ``delays`` (a sum of K Gaussian distributed delays; K
-chosen by AIC up to ``--terms``, or fixed with ``--terms K --fixed``), optionally with the
+chosen by AICc up to ``--terms`` (at most one per three points), or fixed with ``--terms K --fixed``), optionally with the
 low-frequency limit F(0) = 1 of a perfectly premixed flame (``--unit-gain``). Each point is
 weighted by its own 95 % intervals (and coverage factors where the run stored them). Prints
 the parameters with their 95 % intervals, the reduced χ² and the AIC; a flagged point is
@@ -82,14 +82,18 @@ def run(args: argparse.Namespace) -> int:
             failed += 1
             continue
         if others:
-            print("  terms by AIC: " + ", ".join(f"K={r.k_terms} AIC {r.aic:.4g}" for r in others)
+            print("  terms by AICc: " + ", ".join(f"K={r.k_terms} AICc {r.aic:.4g}" for r in others)
                   + f" -> K={result.k_terms}")
         saved_models.append((amp, result))
         for line in result.describe():
             print(f"  {line}")
         if result.reduced_chi2 > 3:
-            print("  note: the model does not fit within the points' intervals (reduced chi2 > 3); "
-                  "try more terms or look at the flagged points")
+            advice = ("try --model delays" if args.model == "n-tau" else
+                      "try more poles" if args.model == "rational" else
+                      "more terms are not supported by these points" if not args.fixed
+                      else "try without --fixed (terms chosen by AICc)")
+            print(f"  note: the model does not fit within the points' intervals (reduced chi2 > 3): {advice}, "
+                  "or look at the flagged points")
     if len(by_amp) > 1:
         _amplitude_report(by_amp)
     if args.save:

@@ -18,9 +18,10 @@ phase, e^{-iφ}(F_meas - F_model), has independent real and imaginary parts with
 deviations σ_g and g σ_φ (derived). The fit minimises the sum of their squares
 (scipy.optimize.least_squares); the parameter covariance is (JᵀJ)⁻¹ of the weighted
 residuals, the usual first-order result for weighted least squares, not rescaled by the
-residual. The reduced χ² (χ²/(2N - p)) says whether the model and the stated uncertainties
-agree (about 1); AIC = χ² + 2p (Akaike 1974, for Gaussian errors of known variance) chooses
-between models and orders.
+residual; when the reduced χ² (χ²/(2N - p)) exceeds 1 the intervals are widened by its square
+root (the model does not fit within the points' intervals). AICc = χ² + 2p + 2p(p+1)/(n-p-1)
+(Akaike 1974 with the small-sample correction of Hurvich & Tsai 1989, n = 2N) chooses between
+models and orders; a delays model gets at most one term per three points.
 
 Imports: numpy, scipy and ``app.errors`` only.
 """
@@ -53,6 +54,7 @@ class FitResult:
     n_points: int
     unit_gain: bool = False
     k_terms: int = 1
+    at_bound: tuple[str, ...] = ()  # parameters that ended on a search bound (not identified)
 
     @property
     def dof(self) -> int:
@@ -64,10 +66,21 @@ class FitResult:
 
     @property
     def aic(self) -> float:
-        return self.chi2 + 2.0 * len(self.names)
+        """AICc: Akaike's criterion with the small-sample correction 2p(p+1)/(n-p-1) (Hurvich &
+        Tsai 1989), n = 2N real residuals; without it a model with as many parameters as points
+        wins on a short sweep."""
+        p, n = len(self.names), 2 * self.n_points
+        return self.chi2 + 2.0 * p + (2.0 * p * (p + 1) / (n - p - 1) if n - p - 1 > 0 else math.inf)
+
+    @property
+    def widened(self) -> bool:
+        """True when the intervals were widened by √(reduced χ²) (the model does not fit the points'
+        own intervals: common practice in weighted least squares, e.g. scipy's curve_fit)."""
+        return self.reduced_chi2 > 1.0
 
     def stderr(self) -> np.ndarray:
-        return np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
+        scale = self.reduced_chi2 if self.widened else 1.0
+        return np.sqrt(np.clip(np.diag(self.covariance) * scale, 0.0, None))
 
     def params(self) -> dict[str, float]:
         return dict(zip(self.names, (float(v) for v in self.values)))
@@ -85,7 +98,12 @@ class FitResult:
             else:
                 lines.append(f"{name} = {v:.4g} ± {Z95 * s:.2g} (95 %)")
         lines.append(f"reduced chi2 {self.reduced_chi2:.3g} over {self.n_points} points ({self.dof} degrees of "
-                     f"freedom); AIC {self.aic:.4g}")
+                     f"freedom); AICc {self.aic:.4g}")
+        if self.widened:
+            lines.append(f"intervals widened by sqrt(reduced chi2) = {math.sqrt(self.reduced_chi2):.3g}: the model "
+                         f"does not fit within the points' own intervals")
+        if self.at_bound:
+            lines.append(f"not identified (at a search bound): {', '.join(self.at_bound)}; use fewer terms")
         return lines
 
 
@@ -193,13 +211,20 @@ def fit(freq_hz, ftf, gain_ci95, phase_ci95_rad, model: str = "n_tau", k_terms: 
     except np.linalg.LinAlgError:
         cov = np.linalg.pinv(J.T @ J)
     chi2 = float(np.sum(best.fun ** 2))
-    return FitResult(model, names, best.x, cov, chi2, int(f.size), unit_gain, k)
+    lo, hi = np.array(lower, dtype=float), np.array(upper, dtype=float)
+    span = np.where(np.isfinite(hi - lo), hi - lo, np.abs(best.x) + 1.0)
+    near = (np.abs(best.x - lo) <= 1e-6 * span) | (np.abs(best.x - hi) <= 1e-6 * span)
+    bounded = tuple(n for n, b, l_ in zip(names, near, lo) if b and (n.startswith("tau") or n.startswith("sigma"))
+                    and not (l_ == 0.0 and n.startswith("sigma") and k == 1))
+    return FitResult(model, names, best.x, cov, chi2, int(f.size), unit_gain, k, bounded)
 
 
 def choose_delays(freq_hz, ftf, gain_ci95, phase_ci95_rad, k_max: int = 3, unit_gain: bool = False,
                   coverage: float | np.ndarray = Z95) -> tuple[FitResult, list[FitResult]]:
     """Fits with 1..k_max Gaussian terms (as many as the points allow); the one of lowest AIC first."""
     fits = []
+    n_points = int(np.count_nonzero(np.isfinite(np.asarray(freq_hz, dtype=float))))
+    k_max = max(1, min(k_max, n_points // 3))     # at least three points per term (3 parameters each)
     for k in range(1, k_max + 1):
         try:
             fits.append(fit(freq_hz, ftf, gain_ci95, phase_ci95_rad, "delays", k, unit_gain, coverage))

@@ -691,4 +691,4 @@ class SweepEngine:
         if self._point_index is None:
             return "before the first point"
         p = self._all_points[self._point_index]
-        return f"point {p.index + 1}/{len(self._all_points)} at {p.freq_hz:g} Hz, a = {p.amplitude_ratio:g}"
+        return f"point {p.index + 1} of {len(self._all_points)} at {p.freq_hz:g} Hz, a = {p.amplitude_ratio:g}"

@@ -251,7 +251,9 @@ def _auto_accept(conn: sqlite3.Connection, point_index: int, attempt_id: str) ->
     conn.execute("UPDATE attempts SET decision = '', decided_by = 'auto', decision_reason = 'superseded by a "
                  "newer attempt', decided_wall_s = ? WHERE point_index = ? AND decision = 'accepted'",
                  (now, point_index))
+    rejected = any(a.get("decision") == "rejected" for a in atts)
     why = ("newest attempt with no flags" if not is_flagged(chosen)
+           else "newest attempt (every other attempt is flagged or rejected)" if rejected
            else "newest attempt (every attempt of the point is flagged)")
     conn.execute("UPDATE attempts SET decision = 'accepted', decided_by = 'auto', decision_reason = ?, "
                  "decided_wall_s = ? WHERE attempt_id = ?", (why, now, chosen["attempt_id"]))

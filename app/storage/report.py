@@ -142,7 +142,7 @@ def _fit_lines(rows: list[dict[str, Any]], run: Any, fitted: dict[float, Any] | 
             best, _ = choose_delays(_col(rs, "freq_hz"), F, _col(rs, "gain_ci95"), _col(rs, "phase_ci95_rad"))
             if fitted is not None:
                 fitted[amp] = best
-            lines.append(f"|u'|/u = {amp:.3g}: {best.k_terms} Gaussian delay term(s) (lowest AIC)")
+            lines.append(f"|u'|/u = {amp:.3g}: {best.k_terms} Gaussian delay term(s) (lowest AICc)")
             lines += [f"    {t}" for t in best.describe()]
         except FitError as exc:
             lines.append(f"|u'|/u = {amp:.3g}: no model fitted ({exc})")

@@ -84,3 +84,18 @@ def test_too_few_points_or_no_intervals_are_refused_with_the_reason():
         fit([100.0, 200.0, 300.0], [1 + 0j, 1, 1], [0.02, math.nan, 0.02], [0.02, 0.02, 0.02])
     with pytest.raises(FitError, match="unknown flame model"):
         fit([1.0, 2, 3], [1, 1, 1], [1, 1, 1], [1, 1, 1], model="spline")
+
+
+def test_a_short_sweep_does_not_get_more_terms_than_it_can_carry_and_a_bad_fit_widens():
+    # seven points cannot carry three Gaussian terms (nine parameters): at most two, by AICc
+    rng = np.random.default_rng(3)
+    freqs = np.linspace(100, 700, 7)
+    w = TWO_PI * freqs
+    truth = 1.2 * np.exp(-1j * w * 1.6e-3 - 0.5 * (w * 0.3e-3) ** 2)
+    best, fits = choose_delays(freqs, _noisy(truth, 0.02, 0.02, rng), np.full(7, 0.04), np.full(7, 0.04), k_max=3)
+    assert max(r.k_terms for r in fits) <= 2 and best.k_terms == 1
+    # an n-tau model on that flame: chi2/dof >> 1, so its intervals are widened by sqrt(chi2/dof)
+    r = fit(freqs, truth, np.full(7, 0.004), np.full(7, 0.004))
+    assert r.reduced_chi2 > 10 and r.widened
+    assert r.stderr()[0] == pytest.approx(np.sqrt(r.covariance[0, 0] * r.reduced_chi2))
+    assert any("widened" in line for line in r.describe())
