@@ -250,6 +250,9 @@ class Plan(_Strict):
                         self.duration_problem(ramp_time_s=rig.drive.ramp_time)):
             if problem:
                 problems.append(problem)
+        from .calibration_file import band_problems   # a calibration is never extrapolated
+
+        problems += [f"frequencies: {p}" for p in band_problems(rig, self.frequencies.all_hz())]
         if problems:
             raise ConfigError(self.source_path or "<plan>", problems)
 

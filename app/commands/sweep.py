@@ -166,6 +166,9 @@ def dry_run(plan: Any, rig: Any, out: Any = None, backend: str | None = None, sc
     basis = plan.amplitude.basis
     print(f"plan {plan.source_path}: {plan.name}", file=out)
     print(f"rig  {rig.source_path}: {rig.name}", file=out)
+    cal = _calibration_line(rig)
+    if cal:
+        print(cal, file=out)
     print(f"{len(pts)} points, amplitude |u'|/u_mean at the reference plane ({basis}), "
           f"{plan.order.major}-major:", file=out)
     for p in pts:
@@ -180,6 +183,25 @@ def dry_run(plan: Any, rig: Any, out: Any = None, backend: str | None = None, sc
     print("checks:", file=out)
     for line in plan.describe_checks(rig):
         print(f"  - {line}", file=out)
+
+
+def _calibration_line(rig: Any) -> str:
+    """What the dry run says of the pressure sensors' relative calibration."""
+    if getattr(rig, "pressure_calibration", None):
+        from ..calibration_file import resolve
+
+        pts = rig.pressure_sensors[0].calibration
+        band = f", {min(p.frequency for p in pts):g}-{max(p.frequency for p in pts):g} Hz" if pts else ""
+        return f"calibration {resolve(rig)} (relative calibration of the pressure sensors{band})"
+    if any(s.calibration for s in rig.pressure_sensors):
+        return "calibration: per-sensor tables in the rig file"
+    return "calibration: none (the sensors' nominal sensitivities; see 'flamebode calibrate')"
+
+
+REAL_HARDWARE_CAUTION = ("caution: real hardware. Forcing is loud: hearing protection on. The ceiling protects the "
+                         "speakers only if set from their ratings. Flame, fuel and photomultiplier high voltage "
+                         "stay live: flamebode zeroes only the drive. Your lab's checklist and rules come first "
+                         "(this command asks for no checklist).")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -207,6 +229,8 @@ def _run_sweep(args: argparse.Namespace, plan: Any, rig: Any, plan_path: Path, r
     from .running import StoppedBySignal, open_device, run_engine
 
     bus = EventBus()
+    if not args.backend.startswith("simulated"):
+        print(REAL_HARDWARE_CAUTION, file=sys.stderr)
     device = open_device(args.backend, rig, scenario, args.fast, args.seed)
     writer = None
     if args.out:
