@@ -250,12 +250,13 @@ class SetupView(QWidget):
 
     # -------------------------------------------------------------- validation
     def _validate_rig(self, text: str, where: str) -> None:
-        rig_from_dict(parse_toml_text(text, where), where)
+        rig_from_dict(parse_toml_text(text, where), where, units_required=True)
 
     def _validate_plan(self, text: str, where: str) -> None:
-        plan = plan_from_dict(parse_toml_text(text, where), where)
+        plan = plan_from_dict(parse_toml_text(text, where), where, units_required=True)
         try:
-            rig = rig_from_dict(parse_toml_text(self.rig_editor.text(), "<rig>"), "<rig>")
+            where_rig = str(self.rig_editor.path) if self.rig_editor.path else "<rig>"
+            rig = rig_from_dict(parse_toml_text(self.rig_editor.text(), where_rig), where_rig, units_required=True)
         except ConfigError:
             return                       # the rig's own problems are listed beside the rig editor
         plan.check_against(rig)
