@@ -104,6 +104,7 @@ ABOVE_COMMAND = 1.3          # sine amplitude above 130 % of the command ...
 ABOVE_COMMAND_FLOOR = 0.02   # ... plus 2 % of the ceiling (noise, zero command) until the noise is known
 ABOVE_COMMAND_MIN_FLOOR = 0.002  # once the reference's noise is measured: at least 0.2 % of the ceiling
 ABOVE_COMMAND_NOISE = 8.0    # ... or this many times the reference's rms with the drive off
+ABOVE_COMMAND_UNKNOWN_NOISE_V = 5e-4  # before that is measured: never below 0.5 mV (an ADC channel's noise)
 # flat tops: samples piled up at one extreme value
 PILE_MIN_SAMPLES = 16
 PILE_MIN_FRACTION = 2e-3
@@ -213,7 +214,7 @@ class SignalChecks:
         rms x sqrt 2 reads sqrt(A^2 + 2 sigma^2)), once measured at the start; before that 2 % of
         the ceiling."""
         if self.reference_noise_v is None:
-            return ABOVE_COMMAND_FLOOR * ceiling_v
+            return max(ABOVE_COMMAND_FLOOR * ceiling_v, ABOVE_COMMAND_UNKNOWN_NOISE_V)
         return max(ABOVE_COMMAND_MIN_FLOOR * ceiling_v, ABOVE_COMMAND_NOISE * self.reference_noise_v)
 
     # ---------------------------------------------------------------- per window/record

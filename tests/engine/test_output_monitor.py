@@ -129,3 +129,14 @@ def test_from_outside_the_process_the_log_and_the_records_agree(tmp_path: Path) 
             assert ratio < 1.1, (record_file, ratio)
         else:
             assert "interrupted" in flags or ratio < 1.1, (record_file, flags, ratio)
+
+
+def test_a_millivolt_ceiling_is_not_a_false_call_on_the_reference_noise(rig) -> None:
+    # seen: with tuning.ceiling = "1 mV" the monitor aborted before the first point on the drive
+    # reference's ~30 uV of noise at 0 V commanded (an allowance of 2 % of the ceiling = 20 uV)
+    sim = SimulatedBurner(rig, scenario=_scenario(1.0, 0.0), seed=5)
+    plan = short_plan([200.0], [0.05], record_s=0.3)
+    plan = plan.model_copy(update={"tuning": plan.tuning.model_copy(update={"ceiling": 1e-3})})
+    engine, rec = make_engine(rig, plan, sim)
+    engine.run()
+    assert not OUTPUT_FAULTS & {f.name for f in rec.of(FaultRaised)}, [f.message for f in rec.of(FaultRaised)]
