@@ -26,6 +26,10 @@ def open_device(name: str, rig: Any, scenario: Path | None = None, fast: bool = 
     options: dict[str, Any] = {}
     if name == SIMULATED:
         options = {"scenario": str(scenario) if scenario else None, "real_time": not fast, "seed": seed}
+        if seed is None:   # the same simulated rig, new noise every sweep (a re-acquire is a new measurement)
+            import secrets
+
+            options["noise_seed"] = secrets.randbits(31)
     return open_backend(name, rig, **options)
 
 

@@ -144,6 +144,10 @@ class SweepSession:
         options: dict[str, Any] = {}
         if name == "simulated":
             options = {"scenario": str(scenario) if scenario else None, "real_time": not fast, "seed": req.seed}
+            if req.seed is None:   # the same simulated rig, new noise every sweep (as the command line does)
+                import secrets
+
+                options["noise_seed"] = secrets.randbits(31)
         return open_backend(name, self.rig, **options)
 
     def close(self, timeout_s: float = 30.0) -> str | None:

@@ -100,9 +100,12 @@ class SimulatedBurner:
 
     def __init__(self, rig: Rig, scenario: Scenario | str | Path | None = None,
                  real_time: bool = False, seed: int | None = None, holder: bool = False,
-                 holder_plane: float | None = None) -> None:
+                 holder_plane: float | None = None, noise_seed: int | None = None) -> None:
         """``holder``: calibration-holder mode (``holder``): every sensor at the axial plane
-        ``holder_plane`` (m; default the most upstream sensor's), no flame."""
+        ``holder_plane`` (m; default the most upstream sensor's), no flame. ``seed`` (default the
+        scenario's) fixes the rig itself (sensor errors, drift phases) and, unless ``noise_seed``
+        is given, the noise; a sweep repeated with another ``noise_seed`` meets the same rig with
+        new noise, as a re-acquired point at a real rig does."""
         self.rig = rig
         self.scenario = resolve_scenario(rig, scenario)
         self.seed = int(self.scenario.seed if seed is None else seed)
@@ -114,7 +117,8 @@ class SimulatedBurner:
         self.holder_plane_m = holder_plane_m(rig, holder_plane) if holder else None
         self._channels = tuple(rig.input_channels)
         self._faults = FaultClock(self.scenario.faults, self._fs)
-        rng = np.random.default_rng([self.seed, 1])
+        self.noise_seed = self.seed if noise_seed is None else int(noise_seed)
+        rng = np.random.default_rng([self.noise_seed, 1])
         n_p = len(rig.pressure_sensors)
         ns = self.scenario.noise
         self._p_noise = ColouredNoise(n_p, self._fs, ns.pressure_corner, ns.pressure_correlation, rng)
@@ -145,7 +149,7 @@ class SimulatedBurner:
 
     def identity(self) -> dict[str, str]:
         model = "simulated burner" if self.holder_plane_m is None else "simulated burner, calibration holder"
-        return {"maker": "flamebode", "model": model, "serial": f"seed-{self.seed}",
+        return {"maker": "flamebode", "model": model, "serial": f"seed-{self.seed}" + (f"-noise-{self.noise_seed}" if self.noise_seed != self.seed else ""),
                 "rig": self.rig.name, "scenario": self.scenario.source_path or "<default>",
                 "numpy": np.__version__}
 
