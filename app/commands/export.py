@@ -20,7 +20,11 @@ def run(args: argparse.Namespace) -> int:
     from ..storage import index
     from ..storage.export import export_run
 
+    from ..storage.export import counts, describe_counts, point_rows
+    from ..storage.reader import open_run
+
     index.require_run_folder(args.run_dir)
     for path in export_run(args.run_dir, args.out, plots=not args.no_plots):
         print(f"wrote {path}")
+    print(describe_counts(counts(point_rows(open_run(args.run_dir, verify=False)))))   # what the files hold
     return 0
