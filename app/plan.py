@@ -284,8 +284,9 @@ class Plan(_Strict):
             f"(else flag 'tuning-not-converged')",
             f"input clipping at {fl.clip_fraction:.0%} of the input range, or flat tops at any level (flag the point)",
             "light above the rig's safe maximum (abort)",
-            "no flame at the start: mean light above the dark offset at or below the lit threshold "
-            "(light.min_flame_signal, or 4 x light.dark_offset_uncertainty) (end before any drive)",
+            "no flame at the start: the mean light must exceed the dark offset by more than a lit flame's "
+            "least signal (light.min_flame_signal, or 4 x light.dark_offset_uncertainty), else the sweep ends "
+            "before any drive",
             f"flame-out: mean light above dark below {fl.flame_out_fraction:.0%} of the start value, checked "
             f"every block (abort at once)",
             "output monitor: the drive reference above the ceiling, or 30 % above the command (abort)"

@@ -100,8 +100,8 @@ class FitResult:
         lines.append(f"reduced chi2 {self.reduced_chi2:.3g} over {self.n_points} points ({self.dof} degrees of "
                      f"freedom); AICc {self.aic:.4g}")
         if self.widened:
-            lines.append(f"intervals widened by sqrt(reduced chi2) = {math.sqrt(self.reduced_chi2):.3g}: the model "
-                         f"does not fit within the points' own intervals")
+            lines.append(f"intervals widened by sqrt(reduced chi2) = {math.sqrt(self.reduced_chi2):.3g} (the points "
+                         f"scatter about the model more than their own intervals say)")
         if self.at_bound:
             lines.append(f"not identified (at a search bound): {', '.join(self.at_bound)}; use fewer terms")
         return lines
@@ -195,7 +195,7 @@ def fit(freq_hz, ftf, gain_ci95, phase_ci95_rad, model: str = "n_tau", k_terms: 
             n = np.full(k, (1.0 if unit_gain else g_low) / k)
             starts.append(np.concatenate([n[:k - 1] if unit_gain else n, tau0 * np.array(taus),
                                           np.full(k, 0.15 * tau0)]))
-        starts = starts[:: max(1, len(starts) // 40)]   # at most ~40 starts
+        starts = starts[:: max(1, len(starts) // 12)]   # about a dozen starts
         n_len = k - 1 if unit_gain else k
         lower = [-np.inf] * n_len + [0.0] * k + [0.0] * k
         upper = [np.inf] * n_len + [tau_max] * k + [tau_max] * k

@@ -39,6 +39,8 @@ class TuningView(QWidget):
         self.amp_plot = new_plot(self.layout_widget, "Amplitude reached", "|u'|/ū", "tuning step", row=0, col=0)
         self.drive_plot = new_plot(self.layout_widget, "Drive voltage (log)", "V peak", "tuning step", row=0, col=1)
         self.drive_plot.setLogMode(y=True)
+        for plot in (self.amp_plot, self.drive_plot):
+            plot.getAxis("bottom").setTickSpacing(1, 1)      # tuning steps are whole numbers
         self.band = pg.LinearRegionItem(orientation="horizontal", movable=False,
                                         brush=pg.mkBrush(0, 158, 115, 50), pen=pen("#009E73"))
         self.amp_plot.addItem(self.band)
