@@ -117,6 +117,19 @@ def open_backend(name: str, rig: Any, **options: Any) -> Any:
     return backend
 
 
+def check_settings(name: str, rig: Any) -> str | None:
+    """Ask back-end ``name`` whether the device can take what ``rig`` would ask of it (sample
+    rate, channels), without opening it: the class's optional ``check_settings(rig)``. Returns
+    what it checked in plain words, None when the back-end has no such check; raises
+    :class:`BackendUnavailable` naming what the device refuses."""
+    eps = _entry_points()
+    if name not in eps:
+        return None
+    cls, _reason = _load(eps[name])
+    check = getattr(cls, "check_settings", None) if cls is not None else None
+    return check(rig) if callable(check) else None
+
+
 def close_backend(backend: Any) -> None:
     """Stop a back-end opened by :func:`open_backend` and drop it from the safety registry."""
     try:

@@ -285,6 +285,26 @@ class SoundCard:
         except Exception as exc:  # never raise from a probe
             return Availability(False, f"PortAudio query failed: {type(exc).__name__}: {exc}")
 
+    @classmethod
+    def check_settings(cls, rig: Rig) -> str:
+        """Whether the configured device takes the rig's sample rate and channels (PortAudio's own
+        check, no stream opened); raises BackendUnavailable naming what it refuses."""
+        sd, why = _import_sounddevice()
+        if sd is None:
+            raise BackendUnavailable(f"sound card: {why}")
+        cfg = load_config(rig)
+        fs = float(rig.acquisition.sample_rate)
+        dev = cfg.device if cfg.device is not None else sd.default.device[0]
+        try:
+            info = sd.query_devices(dev, None if cfg.device is not None else "input")
+            sd.check_input_settings(device=info["index"], channels=cfg.n_inputs, samplerate=fs, dtype="float32")
+            sd.check_output_settings(device=info["index"], channels=cfg.n_outputs, samplerate=fs, dtype="float32")
+        except (ValueError, sd.PortAudioError) as exc:
+            raise BackendUnavailable(f"sound card: device {dev!r} refuses {fs:g} Hz with {cfg.n_inputs} inputs and "
+                                     f"{cfg.n_outputs} outputs (acquisition.sample_rate and [{TABLE}] in "
+                                     f"{rig.source_path or 'the rig file'}): {exc}") from None
+        return f"sound card {info['name']!r} takes {fs:g} Hz with {cfg.n_inputs} inputs and {cfg.n_outputs} outputs"
+
     # ------------------------------------------------------------------ construction
     def __init__(self, rig: Rig, **options: Any) -> None:
         self.rig = rig

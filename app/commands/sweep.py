@@ -139,6 +139,15 @@ def check_backend(name: str, rig: Any) -> str:
     if listed and not any(abs(fs - r) <= 1e-6 * r for r in listed):
         raise SweepCommandError(f"{where}: {fs:g} Hz, but back-end {name!r} can sample only at "
                                 f"{', '.join(f'{r:g}' for r in listed)} Hz")
+    from drivers.errors import DriverError
+    from drivers.registry import check_settings
+
+    try:
+        checked = check_settings(name, rig)      # the device itself, where the back-end can ask it
+    except DriverError as exc:
+        raise SweepCommandError(f"{where}: {exc}") from None
+    if checked:
+        return checked
     if lo is None and hi is None and not listed:
         return (f"back-end {name!r} states no sample-rate limit: {fs:g} Hz checked against the rig file's "
                 f"bounds only")

@@ -21,6 +21,7 @@ from __future__ import annotations
 import os
 import shutil
 import subprocess
+import sys
 import time
 import tomllib
 from pathlib import Path
@@ -34,6 +35,7 @@ from app.core.harmonic import fit_harmonics
 from app.rig import Rig, rig_from_dict
 from drivers.errors import CeilingExceeded, DriveHalted, DriverError
 from drivers.soundcard import SoundCard, SoundCardBlock
+from run_watch import short_plan_text
 
 DEMO = Path(__file__).resolve().parents[2] / "configs" / "demo-rig.toml"
 FS = 48000.0
@@ -381,3 +383,32 @@ def test_unknown_device_is_named() -> None:
 
     with pytest.raises(BackendUnavailable, match="device 'no-such-card' from \\[hardware.soundcard\\] not found"):
         SoundCard(make_rig(), device="no-such-card")
+
+
+def test_the_dry_run_asks_the_device_for_the_rigs_sample_rate():
+    # PortAudio's own check of the configured device, without opening a stream (the dry run's
+    # "what the back-end would be asked"): 48 kHz through the audio server is taken, 3 MHz is not
+    from drivers.errors import BackendUnavailable
+    from drivers.registry import check_settings
+
+    rig = make_rig()
+    assert "takes 48000 Hz" in check_settings("soundcard", rig)
+    too_fast = rig.model_copy(update={"acquisition": rig.acquisition.model_copy(update={"sample_rate": 3e6})})
+    with pytest.raises(BackendUnavailable, match="refuses 3e\\+06 Hz"):
+        check_settings("soundcard", too_fast)
+
+
+def test_the_dry_run_refuses_a_rate_the_device_cannot_take(tmp_path):
+    text = DEMO.read_text(encoding="utf-8")
+    assert 'sample_rate = "25.6 kHz"' in text
+    plan = tmp_path / "plan.toml"
+    plan.write_text(short_plan_text("rate", 200, 300, 100, 0.5))
+    rig = tmp_path / "rig.toml"
+    rig.write_text(text.replace('sample_rate = "25.6 kHz"', 'sample_rate = "900 kHz"')
+                   + '\n[hardware.soundcard]\ndevice = "pulse"\noutput_channel = 1\noutput_full_scale = "1 V"\n'
+                   + 'inputs = { drv_ref = 1, p1 = 2, p2 = 2, p3 = 2, p4 = 2, pmt = 2 }\n'
+                   + 'full_scale = { drv_ref = "1 V", p1 = "1 V", p2 = "1 V", p3 = "1 V", p4 = "1 V", pmt = "1 V" }\n')
+    out = subprocess.run([sys.executable, "-m", "app.cli", "sweep", str(plan), "--rig", str(rig), "--backend",
+                          "soundcard", "--dry-run"], capture_output=True, text=True, timeout=60)
+    assert out.returncode == 2 and "Traceback" not in out.stderr, out.stdout[-1000:] + out.stderr[-2000:]
+    assert "refuses 900000 Hz" in out.stderr, out.stderr
