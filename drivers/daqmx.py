@@ -300,6 +300,19 @@ class DaqmxCard:
         return Availability(True, f"NI-DAQmx {ver}; devices: {', '.join(names)}",
                             {"driver": ver, "devices": ", ".join(names)})
 
+    @classmethod
+    def check_settings(cls, rig: Rig) -> str:
+        """Configure the tasks as a sweep would (channels, ranges, sample clock), read back the rate
+        the card chose, and close them again without starting anything: the card's own answer to
+        what the rig asks. Raises the card's named error when it refuses."""
+        card = cls(rig)
+        try:
+            fs, asked = card._fs, float(rig.acquisition.sample_rate)
+        finally:
+            card.stop()          # never started: only closes the tasks
+        note = "" if abs(fs - asked) <= 1e-6 * asked else f" (asked {asked:g} Hz: the card's nearest rate)"
+        return f"DAQ card samples at {fs:g} Hz{note} with {len(card._channels)} inputs"
+
     # ------------------------------------------------------------------ set-up
     def _daq(self, what: str, fn: Any, *args: Any, **kwargs: Any) -> Any:
         """Call into DAQmx: warnings recorded and logged, errors named.

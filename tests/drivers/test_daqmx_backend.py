@@ -288,3 +288,15 @@ def test_registered_for_zeroing_at_exit_until_stopped(card):
     assert any(o is dev for o in safety.registered())
     dev.stop()
     assert not any(o is dev for o in safety.registered())
+
+
+def test_the_dry_run_check_asks_the_card_and_leaves_nothing_open(card):
+    # what the dry run asks (drivers.registry.check_settings): the card configures the tasks, says
+    # the rate it chose, and every task is closed again, nothing started (the stand-in records breaches)
+    from drivers import safety
+
+    text = DaqmxCard.check_settings(make_rig(sample_rate="25 kHz"))
+    assert "samples at 25600 Hz (asked 25000 Hz: the card's nearest rate)" in text
+    assert not card.violations
+    assert all(t.closed for t in card.tasks) and not any(getattr(t, "started", False) for t in card.tasks)
+    assert not [o for o in safety._outputs if isinstance(o, DaqmxCard)]     # not left on the safety net
