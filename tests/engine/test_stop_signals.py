@@ -143,7 +143,9 @@ def test_a_signal_halts_resume_and_reacquire(tmp_path: Path, command: str, sig: 
     t0 = _signal_when(first, run_dir, signal.SIGTERM, 0.0, min_stored=3)
     _finish(first, t0)
     stored = len(committed_attempts(run_dir))
-    args = [command, str(run_dir), "--fast"] + (["--points", "1-3"] if command == "reacquire" else [])
+    # enough points that the command is still forcing when the signal comes (a fast reacquire of
+    # three points could end first, and a signal during interpreter shutdown meets the default handler)
+    args = [command, str(run_dir), "--fast"] + (["--points", "1-15"] if command == "reacquire" else [])
     proc = _start(args, log)
     t_signal = _signal_when(proc, run_dir, sig, random.Random(7).uniform(0.0, 0.5), min_stored=stored + 1)
     elapsed_s, out, err = _finish(proc, t_signal)
