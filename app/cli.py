@@ -34,6 +34,17 @@ COMMANDS: dict[str, tuple[str, str]] = {
 }
 
 
+def seed_type(text: str) -> int:
+    """A simulator seed: a whole number from 0 (what numpy's generators take)."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if not 0 <= value < 2 ** 63:
+        raise argparse.ArgumentTypeError(f"{value} is outside 0 to 2**63 - 1")
+    return value
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="flamebode", description=(
         "Flame transfer and describing function sweeps: tune the drive under a voltage ceiling, "

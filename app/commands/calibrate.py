@@ -51,6 +51,12 @@ class CalibrationStopped(FlamebodeError):
                          f"({out} {'left as it was' if out.exists() else 'not created'})")
 
 
+def _seed(text: str) -> int:
+    from ..cli import seed_type
+
+    return seed_type(text)
+
+
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("rig", help="rig file (TOML), see docs/rig-file.md")
     p.add_argument("--method", choices=("common-plane",), default="common-plane",
@@ -67,7 +73,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--backend", default="simulated", help="back-end name (default: simulated)")
     p.add_argument("--scenario", help="simulated burner scenario (default: the demo's for the demo rig)")
     p.add_argument("--fast", action="store_true", help="simulator only: run as fast as the CPU allows")
-    p.add_argument("--seed", type=int, default=None, help="simulator only: random seed")
+    p.add_argument("--seed", type=_seed, default=None, help="simulator only: random seed (0 or more)")
 
 
 # ----------------------------------------------------------------------------- options
@@ -143,12 +149,19 @@ def run(args: argparse.Namespace) -> int:
               f"longer see one pressure", file=sys.stderr)
     if not freqs:
         raise CalibrateCommandError(f"--band {args.band}: every frequency is at or above the cut-on {cut_on:.0f} Hz")
-    out = Path(args.out)
-    if not out.parent.is_dir():
-        raise CalibrateCommandError(f"--out {out}: folder {out.parent} does not exist")
-    if out.is_dir():
-        raise CalibrateCommandError(f"--out {out}: is a folder, not a file")
+    from ..outputs import output_target
+
+    out = output_target(args.out, "calibration file", _is_calibration)   # never over a rig file or a run's files
     return _calibrate(args, rig, reference, second, freqs, cut_on, target_pa, record_s, out)
+
+
+def _is_calibration(p: Path) -> bool:
+    """An existing calibration file (it may be replaced by a new calibration)."""
+    import tomllib
+
+    from ..calibration_file import FORMAT
+
+    return p.stat().st_size == 0 or tomllib.loads(p.read_text(encoding="utf-8")).get("format") == FORMAT
 
 
 def _open(args: argparse.Namespace, rig: Any) -> Any:
@@ -261,4 +274,7 @@ def _write(out: Path, cal: Any, rig: Any, args: argparse.Namespace, target_pa: f
         conditions["simulated_seed"] = args.seed
     if check is not None:
         conditions.update({"check_reference": args.check_reference, "check_worst_z": check.worst_z})
-    return write_calibration(out, calibration_file_of(cal, rig, conditions, cut_on))
+    try:
+        return write_calibration(out, calibration_file_of(cal, rig, conditions, cut_on))
+    except OSError as exc:
+        raise CalibrateCommandError(f"--out {out}: could not be written ({exc.strerror or exc})") from None

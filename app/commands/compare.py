@@ -19,7 +19,12 @@ def run(args: argparse.Namespace) -> int:
     from ..storage.index import require_run_folder
     from ..storage.report import compare
 
+    import sys
+
+    from ..storage.reader import open_run
+
     for d in args.runs:
-        require_run_folder(d)
+        for problem in open_run(require_run_folder(d), verify=False).problems:
+            print(f"flamebode compare: {d}: problem: {problem}", file=sys.stderr)
     print(f"wrote {compare(args.runs, args.out)}")
     return 0

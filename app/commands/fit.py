@@ -16,7 +16,18 @@ from __future__ import annotations
 
 import argparse
 import math
+import sys
 from collections import defaultdict
+
+MAX_TERMS = 4          # Gaussian delay terms (12 parameters): more is never identified from a sweep
+
+
+def _finite_or(v: object, default: float) -> float:
+    try:
+        x = float(v)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        return default
+    return x if math.isfinite(x) and x > 0 else default
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -25,7 +36,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="flame model (default: delays; rational: poles and residues with a pure delay, by vector "
                         "fitting, with its state-space form)")
     p.add_argument("--poles", type=int, default=6, help="rational: number of poles (default 6)")
-    p.add_argument("--terms", type=int, default=3, help="delays: at most this many Gaussian terms (default 3)")
+    p.add_argument("--terms", type=int, default=3, help="delays: at most this many Gaussian terms, 1-4 (default 3)")
     p.add_argument("--fixed", action="store_true", help="delays: exactly --terms terms, no choice by AIC")
     p.add_argument("--unit-gain", action="store_true", help="impose F(0) = 1 (perfectly premixed flame)")
     p.add_argument("--good-only", action="store_true", help="leave flagged points out")
@@ -41,22 +52,35 @@ def run(args: argparse.Namespace) -> int:
     from ..core.fits import Z95, FitError, choose_delays, fit
     from ..storage.reader import open_run
 
-    run_ = open_run(args.run_dir, verify=False)
-    targets = {p["point_index"]: float(p["target_ratio"]) for p in run_.points}
+    from ..storage.export import point_rows
+    from ..storage.index import require_run_folder
+
+    if not 1 <= args.terms <= MAX_TERMS:
+        raise FitError(f"--terms {args.terms}: must be 1 to {MAX_TERMS}")
+    if args.save:
+        from ..outputs import output_target
+        from ..storage.interchange import _is_interchange
+
+        output_target(args.save, "points file written by flamebode fit", _is_interchange)   # before any work
+    run_ = open_run(require_run_folder(args.run_dir), verify=False)
+    for problem in run_.problems:        # what review would say of this run, said here too
+        print(f"flamebode fit: problem: {problem}", file=sys.stderr)
+    coverage = {i + 1: _finite_or(a.get("analysis", {}).get("coverage_factor_gain"), Z95)
+                for i, a in run_.accepted().items()}
     by_amp: dict[float, list[tuple[float, complex, float, float, float]]] = defaultdict(list)
     skipped = 0
-    for i, a in sorted(run_.accepted().items()):
-        an = a.get("analysis") or {}
-        if args.good_only and a.get("flags"):
+    for r in point_rows(run_):          # numbers checked there: text, inf or a negative interval never reach a fit
+        if r["status"] != "accepted" or r["gain"] is None or r["phase_wrapped_rad"] is None:
+            continue
+        if not (r["freq_hz"] is not None and math.isfinite(float(r["freq_hz"])) and float(r["freq_hz"]) > 0):
+            continue
+        if args.good_only and r["flagged"]:
             skipped += 1
             continue
-        gain, phase = an.get("gain"), an.get("phase_rad")
-        if gain is None or phase is None:
-            continue
-        k = an.get("coverage_factor_gain") or Z95
-        by_amp[round(targets.get(i, math.nan), 9)].append(
-            (float(a["freq_hz"]), complex(gain * np.exp(1j * phase)), float(an.get("gain_ci95") or math.nan),
-             float(an.get("phase_ci95_rad") or math.nan), float(k)))
+        by_amp[round(float(r["amplitude_ratio_target"]), 9)].append(
+            (float(r["freq_hz"]), complex(r["gain"] * np.exp(1j * r["phase_wrapped_rad"])),
+             r["gain_ci95"] if r["gain_ci95"] is not None else math.nan,
+             r["phase_ci95_rad"] if r["phase_ci95_rad"] is not None else math.nan, coverage.get(r["point"], Z95)))
     if not by_amp:
         raise FitError(f"{args.run_dir}: no accepted point with a result to fit")
     print(f"run {args.run_dir}: {args.model} fit, e^{{+iwt}} convention"

@@ -20,6 +20,12 @@ def run(args: argparse.Namespace) -> int:
     from ..storage.index import require_run_folder
     from ..storage.report import write_report
 
+    import sys
+
+    from ..storage.reader import open_run
+
+    for problem in open_run(require_run_folder(args.run_dir), verify=False).problems:
+        print(f"flamebode report: problem: {problem} (also on the report's first page)", file=sys.stderr)
     written = write_report(require_run_folder(args.run_dir), args.out)
     print("wrote " + ", ".join(str(p) for p in written))
     return 0

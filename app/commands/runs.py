@@ -29,4 +29,6 @@ def run(args: argparse.Namespace) -> int:
         print(f"{r['run_dir']}\n    {r['kind']} {r['date']}  plan '{r['plan']}'  rig '{r['rig']}'  |u'|/u {amps}\n"
               f"    {r['n_accepted']} of {r['n_points']} points with a result, {r['n_flagged']} flagged; "
               f"{r['backend']}, {r['ended'] or 'not finished'}")
+        for problem in r.get("problems", []):
+            print(f"    problem: {problem}")
     return 0

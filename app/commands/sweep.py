@@ -37,6 +37,12 @@ class SweepCommandError(FlamebodeError):
     """The sweep command cannot start (missing rig, unknown back-end...)."""
 
 
+def _seed(text: str) -> int:
+    from ..cli import seed_type
+
+    return seed_type(text)
+
+
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("plan", help="sweep plan file (TOML), see docs/plan-file.md")
     p.add_argument("--rig", help="rig file (default: the plan's 'rig' key, relative to the plan)")
@@ -44,7 +50,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--backend", default="simulated", help="back-end name (default: simulated)")
     p.add_argument("--scenario", help="simulated burner scenario (default: the plan's 'scenario' key)")
     p.add_argument("--fast", action="store_true", help="simulator only: run as fast as the CPU allows")
-    p.add_argument("--seed", type=int, default=None, help="simulator only: random seed")
+    p.add_argument("--seed", type=_seed, default=None, help="simulator only: random seed (0 or more)")
     p.add_argument("--dry-run", action="store_true", help="print the points, duration and checks; touch nothing")
 
 

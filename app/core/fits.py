@@ -160,8 +160,8 @@ def fit(freq_hz, ftf, gain_ci95, phase_ci95_rad, model: str = "n_tau", k_terms: 
     if model not in ("n_tau", "delays"):
         raise FitError(f"unknown flame model {model!r}: use 'n_tau' or 'delays'")
     k = 1 if model == "n_tau" else int(k_terms)
-    if k < 1 or k > 6:
-        raise FitError(f"the number of delay terms must be 1 to 6, got {k_terms!r}")
+    if k < 1 or k > 4:
+        raise FitError(f"the number of delay terms must be 1 to 4, got {k_terms!r}")
     f, F, sg, sp, dropped = _checked(freq_hz, ftf, gain_ci95, phase_ci95_rad, coverage)
     names = _names(model, k, unit_gain)
     need = (len(names) + 2) // 2 + 1          # more real residuals (2 per point) than parameters, with margin
@@ -222,6 +222,8 @@ def fit(freq_hz, ftf, gain_ci95, phase_ci95_rad, model: str = "n_tau", k_terms: 
 def choose_delays(freq_hz, ftf, gain_ci95, phase_ci95_rad, k_max: int = 3, unit_gain: bool = False,
                   coverage: float | np.ndarray = Z95) -> tuple[FitResult, list[FitResult]]:
     """Fits with 1..k_max Gaussian terms (as many as the points allow); the one of lowest AIC first."""
+    if k_max < 1:
+        raise FitError(f"the number of delay terms must be 1 to 4, got {k_max!r}")
     fits = []
     n_points = int(np.count_nonzero(np.isfinite(np.asarray(freq_hz, dtype=float))))
     k_max = max(1, min(k_max, n_points // 3))     # at least three points per term (3 parameters each)

@@ -71,9 +71,11 @@ def point_rows(run: Run) -> list[dict[str, Any]]:
             "point": i + 1, "attempt": a.get("seq") if a else None,
             "used": attempt_label(i, a.get("seq")) if a else "",
             "freq_hz": p["freq_hz"], "amplitude_ratio_target": p["target_ratio"],
-            "amplitude_ratio_achieved": an.get("achieved_ratio"), "gain": an.get("gain"),
-            "gain_ci95": an.get("gain_ci95"), "phase_wrapped_rad": an.get("phase_rad"),
-            "phase_ci95_rad": an.get("phase_ci95_rad"), "flags": ";".join(_flags(a)) if a else "",
+            "amplitude_ratio_achieved": _finite(an.get("achieved_ratio")), "gain": _finite(an.get("gain")),
+            "gain_ci95": _finite(an.get("gain_ci95"), positive=True),
+            "phase_wrapped_rad": _finite(an.get("phase_rad")),
+            "phase_ci95_rad": _finite(an.get("phase_ci95_rad"), positive=True),
+            "flags": ";".join(_flags(a)) if a else "",
             "flagged": bool(a) and is_flagged(a),
             "status": "accepted" if a else "no accepted attempt",
             "chosen_by": (a.get("decided_by") or "auto") if a else "",
@@ -83,6 +85,18 @@ def point_rows(run: Run) -> list[dict[str, Any]]:
         })
     _add_phase_as_read(rows)
     return rows
+
+
+def _finite(v: Any, positive: bool = False) -> float | None:
+    """A stored number as a float, or None when it is missing, not a number, not finite (or not
+    positive, for an interval): a damaged or edited index never reaches a file or a plot as text."""
+    try:
+        x = float(v)
+    except (TypeError, ValueError):
+        return None
+    if not math.isfinite(x) or (positive and x <= 0):
+        return None
+    return x
 
 
 def _num(v: Any) -> float:

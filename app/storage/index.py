@@ -229,14 +229,14 @@ def _point_attempts(conn: sqlite3.Connection, point_index: int) -> list[dict[str
                         "(SELECT an.warnings FROM analyses an WHERE an.attempt_id = at.attempt_id "
                         "ORDER BY an.analysis_id DESC LIMIT 1) AS warnings FROM attempts at "
                         "WHERE at.point_index = ? ORDER BY at.seq", (point_index,)).fetchall()
-    return [{**dict(r), "flags": tuple(json.loads(r["flags"])), "warnings": tuple(json.loads(r["warnings"] or "[]"))}
+    return [{**dict(r), "flags": json_list(r["flags"]), "warnings": json_list(r["warnings"])}
             for r in rows]
 
 
 def _auto_accept(conn: sqlite3.Connection, point_index: int, attempt_id: str) -> None:
     flags = conn.execute("SELECT flags FROM attempts WHERE attempt_id = ?", (attempt_id,)).fetchone()
     now = time.time()
-    if flags is not None and NEVER_ACCEPTED & set(json.loads(flags["flags"])):
+    if flags is not None and NEVER_ACCEPTED & set(json_list(flags["flags"])):
         conn.execute("UPDATE attempts SET decision = 'rejected', decided_by = 'auto', decision_reason = ?, "
                      "decided_wall_s = ? WHERE attempt_id = ?",
                      ("record interrupted before its end (kept as evidence, never accepted)", now, attempt_id))
@@ -284,7 +284,7 @@ def decide(conn: sqlite3.Connection, attempt_id: str, accept: bool, reason: str)
     row = conn.execute("SELECT point_index, flags FROM attempts WHERE attempt_id = ?", (attempt_id,)).fetchone()
     if row is None:
         raise KeyError(attempt_id)
-    if accept and NEVER_ACCEPTED & set(json.loads(row["flags"])):
+    if accept and NEVER_ACCEPTED & set(json_list(row["flags"])):
         raise NotAcceptable(f"attempt {attempt_id} was interrupted before its record ended (halt, abort or "
                             f"fault); it is kept as evidence and cannot be accepted: measure the point again")
     point, now = int(row["point_index"]), time.time()
@@ -304,12 +304,30 @@ def insert_fault(conn: sqlite3.Connection, fault: dict[str, Any]) -> None:
                   fault["point_index"], int(bool(fault["fatal"]))))
 
 
+def json_list(text: Any) -> tuple[Any, ...]:
+    """A JSON list stored in the index (flags, warnings), or ("unreadable-index-entry",) when the
+    text is damaged: a damaged entry reads as flagged instead of breaking every command."""
+    try:
+        value = json.loads(text) if text else []
+    except (TypeError, ValueError):
+        return ("unreadable-index-entry",)
+    return tuple(value) if isinstance(value, list) else ("unreadable-index-entry",)
+
+
+def json_dict(text: Any) -> dict[str, Any]:
+    try:
+        value = json.loads(text) if text else {}
+    except (TypeError, ValueError):
+        return {}
+    return value if isinstance(value, dict) else {}
+
+
 def attempts(conn: sqlite3.Connection) -> list[dict[str, Any]]:
     rows = conn.execute("SELECT * FROM attempts ORDER BY point_index, seq").fetchall()
     out = []
     for r in rows:
         d = dict(r)
-        d["flags"] = tuple(json.loads(d["flags"]))
+        d["flags"] = json_list(d["flags"])
         out.append(d)
     return out
 
@@ -321,8 +339,8 @@ def latest_analyses(conn: sqlite3.Connection) -> dict[str, dict[str, Any]]:
     out = {}
     for r in rows:
         d = dict(r)
-        d["quality"] = json.loads(d["quality"])
-        d["warnings"] = tuple(json.loads(d["warnings"]))
+        d["quality"] = json_dict(d["quality"])
+        d["warnings"] = json_list(d["warnings"])
         out[d["attempt_id"]] = d
     return out
 

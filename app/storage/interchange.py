@@ -33,6 +33,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import FlamebodeError
+from ..outputs import output_target, write_whole
 from .export import point_rows
 from .reader import open_run
 
@@ -65,6 +66,21 @@ def _points(run: Any) -> dict[str, np.ndarray]:
             "ftf": F, "covariance": cov, "flags": np.array([r["flags"] for r in rows], dtype=object)}
 
 
+def _is_interchange(p: Path) -> bool:
+    """An existing file this command wrote (so it may be replaced): our HDF5 format, or a .mat with
+    our time-convention variable."""
+    if p.stat().st_size == 0:
+        return True
+    if p.suffix.lower() == ".mat":
+        from scipy.io import whosmat
+
+        return any(name == "time_convention" for name, *_ in whosmat(str(p)))
+    import h5py
+
+    with h5py.File(p, "r") as f:
+        return f.attrs.get("format") in ("flamebode-ftf-interchange", b"flamebode-ftf-interchange")
+
+
 def _plan_name(run: Any) -> str:
     from ..configfile import read_toml
 
@@ -93,6 +109,7 @@ def write_interchange(run_dir: str | Path, path: str | Path, convention: str = "
     suffix = out.suffix.lower()
     if suffix not in (".mat", ".h5", ".hdf5"):
         raise FlamebodeError(f"{out}: write a .mat or an .h5/.hdf5 file (the suffix chooses the format)")
+    out = output_target(out, "points file written by flamebode fit", _is_interchange)
     run = open_run(run_dir, verify=False)
     pts = _points(run)
     if convention == "minus":
@@ -114,14 +131,8 @@ def write_interchange(run_dir: str | Path, path: str | Path, convention: str = "
         if hasattr(m, "state_space"):          # the rational model: (A, B, C, D) and the delay
             A, B, C, D, tau = m.state_space()
             fitted[-1].update(A=A, B=B, C=C, D=D, tau_s=float(tau))
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name(f".{out.name}.part")
-    if suffix == ".mat":
-        _write_mat(tmp, pts, info, fitted, CONVENTIONS[convention])
-    else:
-        _write_h5(tmp, pts, info, fitted, CONVENTIONS[convention])
-    tmp.replace(out)                # whole or not at all
-    return out
+    writer = _write_mat if suffix == ".mat" else _write_h5
+    return write_whole(out, lambda tmp: writer(tmp, pts, info, fitted, CONVENTIONS[convention]))   # whole or not at all
 
 
 def _write_mat(path: Path, pts, info, fitted, convention: str) -> None:

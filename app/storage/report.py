@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import json
 import math
+import sqlite3
 import time
 from pathlib import Path
 from typing import Any
@@ -25,6 +26,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import FlamebodeError
+from ..outputs import PDF, PNG, SVG, output_target, write_whole
 from .export import counts, plan_name, point_rows
 from .index import INDEX_NAME
 from .reader import open_run
@@ -56,12 +58,12 @@ def list_runs(folder: str | Path) -> list[dict[str, Any]]:
     for d in found:
         try:
             run = open_run(d, verify=False)
-        except FlamebodeError as exc:
-            out.append({"run_dir": str(d), "problem": str(exc)})
+            rows = point_rows(run)
+        except (FlamebodeError, OSError, ValueError, sqlite3.Error) as exc:   # one damaged run, not the listing
+            out.append({"run_dir": str(d), "problem": str(exc) or type(exc).__name__})
             continue
-        rows = point_rows(run)
         c = counts(rows)
-        out.append({"run_dir": str(d), "kind": run.kind, "plan": plan_name(run), "rig": _rig_name(run),
+        out.append({"run_dir": str(d), "kind": run.kind, "problems": list(run.problems), "plan": plan_name(run), "rig": _rig_name(run),
                     "date": _date(run), "created_wall_s": float(run.info.get("created_wall_s") or 0.0),
                     "amplitudes": sorted({round(float(p["target_ratio"]), 6) for p in run.points}),
                     "n_points": c["n_points"], "n_accepted": c["n_accepted"], "n_flagged": c["n_flagged"],
@@ -116,18 +118,22 @@ def compare(run_dirs: list[str | Path], out: str | Path) -> Path:
     out = Path(out)
     if out.suffix.lower() not in (".png", ".pdf", ".svg"):
         raise FlamebodeError(f"{out}: write a .png, .pdf or .svg figure (the suffix chooses the format)")
+    out = output_target(out, "figure", {".png": PNG, ".pdf": PDF, ".svg": SVG}[out.suffix.lower()])
     fig = Figure(figsize=(8.0, 6.5), layout="constrained")
     FigureCanvasAgg(fig)
     ax_g, ax_p = fig.subplots(2, 1, sharex=True)
+    drawn = 0
     for d in run_dirs:
         run = open_run(d, verify=False)
-        _draw(ax_g, ax_p, point_rows(run), f"{plan_name(run) or Path(d).name} ({_date(run)})")
+        rows = point_rows(run)
+        drawn += sum(1 for r in rows if r["gain"] is not None and r["phase_deg"] is not None)
+        _draw(ax_g, ax_p, rows, f"{plan_name(run) or Path(d).name} ({_date(run)})")
+    if not drawn:
+        raise FlamebodeError("no point with a result in " + ", ".join(str(d) for d in run_dirs) + ": nothing to draw")
     _axes_labels(ax_g, ax_p)
     ax_g.set_title(f"{len(run_dirs)} run(s): 95 % intervals, flagged points hollow; e^(+iwt)", fontsize="medium")
     ax_g.legend(fontsize="x-small")
-    out.parent.mkdir(parents=True, exist_ok=True)
-    fig.savefig(out, dpi=150)
-    return out
+    return write_whole(out, lambda tmp: fig.savefig(tmp, dpi=150, format=out.suffix.lower()[1:]))
 
 
 def _fit_lines(rows: list[dict[str, Any]], run: Any, fitted: dict[float, Any] | None = None) -> list[str]:
@@ -186,7 +192,13 @@ def write_report(run_dir: str | Path, out: str | Path | None = None) -> list[Pat
     pdf = Path(out) if out is not None else run.run_dir / "export" / "report.pdf"
     if pdf.suffix.lower() != ".pdf":
         raise FlamebodeError(f"{pdf}: the report is a .pdf file")
-    pdf.parent.mkdir(parents=True, exist_ok=True)
+    if out is None:
+        pdf.parent.mkdir(parents=True, exist_ok=True)      # the run's own export/ folder
+    pdf = output_target(pdf, "report PDF", PDF)
+    if not any(r["gain"] is not None for r in rows):
+        raise FlamebodeError(f"{run.run_dir}: no point with a result to report")
+    for k in range(1, 4 + len(rows) // 60):
+        output_target(pdf.with_name(f"{pdf.stem}-page{k}.png"), "report page", PNG)
     info = run.info
     calib = ""
     try:
@@ -212,7 +224,8 @@ def write_report(run_dir: str | Path, out: str | Path | None = None) -> list[Pat
             "checklist      " + _checklist(info),
             "", f"points         {c['n_accepted']} of {c['n_points']} with a result, {c['n_flagged']} flagged",
             "flags          " + (", ".join(f"{k} x{v}" for k, v in sorted(flags.items())) or "none"),
-            "convention     x(t) = Re{x^ exp(+i w t)}: a delay gives a falling phase", "",
+            "convention     x(t) = Re{x^ exp(+i w t)}: a delay gives a falling phase",
+            *[f"PROBLEM        {p}" for p in run.problems], "",
             "flame model and amplitude dependence:"] + [f"  {t}" for t in _fit_lines(rows, run, fitted)]
     pages = []
     fig = Figure(figsize=(8.27, 11.69))
@@ -250,14 +263,13 @@ def write_report(run_dir: str | Path, out: str | Path | None = None) -> list[Pat
         FigureCanvasAgg(fig)
         _text_page(fig, "points (phase in degrees, unwrapped)", [table[0]] + table[1 + start:61 + start], 7.0)
         pages.append(fig)
-    tmp = pdf.with_name(f".{pdf.name}.part")
-    with PdfPages(tmp) as doc:
-        for page in pages:
-            doc.savefig(page)
-    tmp.replace(pdf)
-    written = [pdf]
+    def write_pdf(tmp: Path) -> None:
+        with PdfPages(tmp) as doc:
+            for page in pages:
+                doc.savefig(page)
+
+    written = [write_whole(pdf, write_pdf)]
     for k, page in enumerate(pages, 1):
         png = pdf.with_name(f"{pdf.stem}-page{k}.png")
-        page.savefig(png, dpi=80)
-        written.append(png)
+        written.append(write_whole(png, lambda tmp, page=page: page.savefig(tmp, dpi=80, format="png")))
     return written

@@ -97,7 +97,8 @@ def test_frequencies_above_the_cut_on_are_refused_with_a_warning(tmp_path):
 @pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
 def test_a_signal_halts_at_once_and_writes_nothing(tmp_path, sig):
     out = tmp_path / "cal.toml"
-    out.write_text("an older calibration file\n", encoding="utf-8")
+    older = 'format = "flamebode-calibration"  # an older calibration file (it may be replaced, not a rig file)\n'
+    out.write_text(older, encoding="utf-8")
     log = tmp_path / "drive.csv"
     env = {**os.environ, "PYTHONUNBUFFERED": "1", "FLAMEBODE_DRIVE_LOG": str(log)}
     proc = subprocess.Popen([sys.executable, "-m", "app.cli", "calibrate", str(RIG), "--band", "100-2000",
@@ -115,7 +116,7 @@ def test_a_signal_halts_at_once_and_writes_nothing(tmp_path, sig):
     assert proc.returncode == 128 + sig, err
     assert "Traceback" not in err and f"{name} received: outputs zeroed at once; nothing written" in err, err
     assert elapsed < 2.0
-    assert out.read_text(encoding="utf-8") == "an older calibration file\n"
+    assert out.read_text(encoding="utf-8") == older
     assert sorted(p.name for p in tmp_path.iterdir()) == ["cal.toml", "drive.csv"]   # no temporary file
     drive = read_log(log)
     assert drive[drive["wall_time_s"] < t_signal]["peak_v"].max() > 0.0
