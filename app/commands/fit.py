@@ -22,14 +22,6 @@ from collections import defaultdict
 MAX_TERMS = 4          # Gaussian delay terms (12 parameters): more is never identified from a sweep
 
 
-def _finite_or(v: object, default: float) -> float:
-    try:
-        x = float(v)  # type: ignore[arg-type]
-    except (TypeError, ValueError):
-        return default
-    return x if math.isfinite(x) and x > 0 else default
-
-
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("run_dir", help="run folder written by 'flamebode sweep'")
     p.add_argument("--model", choices=("n-tau", "delays", "rational"), default="delays",
@@ -52,7 +44,7 @@ def run(args: argparse.Namespace) -> int:
     from ..core.fits import Z95, FitError, choose_delays, fit
     from ..storage.reader import open_run
 
-    from ..storage.export import point_rows
+    from ..storage.export import finite_number, point_rows
     from ..storage.index import require_run_folder
 
     if not 1 <= args.terms <= MAX_TERMS:
@@ -65,7 +57,7 @@ def run(args: argparse.Namespace) -> int:
     run_ = open_run(require_run_folder(args.run_dir), verify=False)
     for problem in run_.problems:        # what review would say of this run, said here too
         print(f"flamebode fit: problem: {problem}", file=sys.stderr)
-    coverage = {i + 1: _finite_or(a.get("analysis", {}).get("coverage_factor_gain"), Z95)
+    coverage = {i + 1: finite_number(a.get("analysis", {}).get("coverage_factor_gain"), positive=True) or Z95
                 for i, a in run_.accepted().items()}
     by_amp: dict[float, list[tuple[float, complex, float, float, float]]] = defaultdict(list)
     skipped = 0

@@ -71,10 +71,10 @@ def point_rows(run: Run) -> list[dict[str, Any]]:
             "point": i + 1, "attempt": a.get("seq") if a else None,
             "used": attempt_label(i, a.get("seq")) if a else "",
             "freq_hz": p["freq_hz"], "amplitude_ratio_target": p["target_ratio"],
-            "amplitude_ratio_achieved": _finite(an.get("achieved_ratio")), "gain": _finite(an.get("gain")),
-            "gain_ci95": _finite(an.get("gain_ci95"), positive=True),
-            "phase_wrapped_rad": _finite(an.get("phase_rad")),
-            "phase_ci95_rad": _finite(an.get("phase_ci95_rad"), positive=True),
+            "amplitude_ratio_achieved": finite_number(an.get("achieved_ratio")), "gain": finite_number(an.get("gain")),
+            "gain_ci95": finite_number(an.get("gain_ci95"), positive=True),
+            "phase_wrapped_rad": finite_number(an.get("phase_rad")),
+            "phase_ci95_rad": finite_number(an.get("phase_ci95_rad"), positive=True),
             "flags": ";".join(_flags(a)) if a else "",
             "flagged": bool(a) and is_flagged(a),
             "status": "accepted" if a else "no accepted attempt",
@@ -87,7 +87,7 @@ def point_rows(run: Run) -> list[dict[str, Any]]:
     return rows
 
 
-def _finite(v: Any, positive: bool = False) -> float | None:
+def finite_number(v: Any, positive: bool = False) -> float | None:
     """A stored number as a float, or None when it is missing, not a number, not finite (or not
     positive, for an interval): a damaged or edited index never reaches a file or a plot as text."""
     try:

@@ -473,3 +473,8 @@ def amplitude_spectrum(x: np.ndarray, sample_rate_hz: float) -> tuple[np.ndarray
     spec = np.fft.rfft((x - x.mean()) * w)
     amp = 2.0 * np.abs(spec) / w.sum()
     return np.fft.rfftfreq(x.size, 1.0 / sample_rate_hz), amp
+
+
+def format_volts(v: float) -> str:
+    """A drive voltage as a person reads it: millivolts below 1 V, volts from 1 V."""
+    return f"{v * 1e3:.3g} mV" if abs(v) < 1.0 else f"{v:.3f} V"

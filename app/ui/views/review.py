@@ -14,15 +14,11 @@ from PySide6.QtCore import Qt
 from PySide6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLabel, QPushButton, QSplitter,
                                QTabWidget, QTextBrowser, QVBoxLayout, QWidget)
 
-from ..models import PointTable, TuningHistory, quality_rows, run_thresholds
+from ..models import PointTable, TuningHistory, format_volts, quality_rows, run_thresholds
 from .points import PointListView
 from .response import ResponseView
 from .spectrum import SpectrumView
 from .traces import TracesView
-
-
-def _volts(v: float) -> str:
-    return f"{v * 1e3:.3g} mV" if abs(v) < 1.0 else f"{v:.3f} V"
 
 
 class ReviewView(QWidget):
@@ -128,7 +124,7 @@ class ReviewView(QWidget):
                    if gain is not None and phase is not None else "no result")
             reason = f" ({a['decision_reason']})" if a.get("decision_reason") else ""
             lines.append(f"<b>attempt {a['seq']}</b> — <b>{a['decision'] or 'not used'}</b>{reason}; drive "
-                         f"{_volts(a['drive_v'])}; {res}; flags: {', '.join(a['flags']) or 'none'}; "
+                         f"{format_volts(a['drive_v'])}; {res}; flags: {', '.join(a['flags']) or 'none'}; "
                          f"record {a['record_status']}")
             rows = quality_rows(q, getattr(self, "thresholds", None))
             if rows:
@@ -140,7 +136,7 @@ class ReviewView(QWidget):
                              f"<th>limit</th><th></th></tr>{cells}</table>")
             steps = a.get("tuning") or an.get("tuning") or ()
             if steps:
-                lines.append("tuning: " + "; ".join(f"{_volts(float(d))} → {float(r):.4f}" for d, r, *_ in steps))
+                lines.append("tuning: " + "; ".join(f"{format_volts(float(d))} → {float(r):.4f}" for d, r, *_ in steps))
         self.details.setHtml("<br>".join(lines))
         atts = self.run.attempts_of(point_index)
         accepted = [k for k, a in enumerate(atts) if a["decision"] == "accepted"]

@@ -16,13 +16,8 @@ import pyqtgraph as pg
 from PySide6.QtCore import Qt
 from PySide6.QtWidgets import QLabel, QVBoxLayout, QWidget
 
-from ..models import TuningHistory
+from ..models import TuningHistory, format_volts
 from .style import Coalesced, new_plot, pen
-
-
-def _volts(v: float) -> str:
-    """A drive voltage a person reads: millivolts below 1 V."""
-    return f"{v * 1e3:.3g} mV" if abs(v) < 1.0 else f"{v:.3f} V"
 
 
 class TuningView(QWidget):
@@ -93,7 +88,7 @@ class TuningView(QWidget):
             step, d, r, ok = m.steps[-1]
             verdict = "within the band" if ok else "outside the band"
             of = f" of {m.max_steps}" if m.max_steps else ""
-            self.caption.setText(f"{label}: step {step}{of}, {_volts(d)} gives |u'|/ū = {r:.4f} (target "
+            self.caption.setText(f"{label}: step {step}{of}, {format_volts(d)} gives |u'|/ū = {r:.4f} (target "
                                  f"{m.target_ratio:.4f} ± {m.tolerance:.0%}, {verdict})")
         elif m.point_index is not None:
             self.caption.setText(f"{label}: first tuning window under way (target |u'|/ū = {m.target_ratio:.4f})")
