@@ -464,18 +464,23 @@ def hold_writer_lock(run_dir: Path) -> int:
     return fd
 
 
-def ensure_not_busy(run_dir: str | Path) -> None:
-    """:class:`RunBusy` when another process is writing the run (it holds ``writer.lock``)."""
-    run = Path(run_dir)
+def _exclusive_lock(run: Path) -> int:
+    """The run's ``writer.lock`` held exclusively (an open descriptor the caller closes), or
+    :class:`RunBusy` when another process is writing the run."""
     fd = os.open(run / LOCK_NAME, os.O_RDWR | os.O_CREAT, 0o644)
     try:
         if fcntl is not None:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
     except BlockingIOError:
+        os.close(fd)
         raise RunBusy(f"{run}: a sweep, resume or re-acquire is still writing this run (it holds "
                       f"{run / LOCK_NAME}); wait for it to end or stop it first") from None
-    finally:
-        os.close(fd)
+    return fd
+
+
+def ensure_not_busy(run_dir: str | Path) -> None:
+    """:class:`RunBusy` when another process is writing the run (it holds ``writer.lock``)."""
+    os.close(_exclusive_lock(Path(run_dir)))
 
 
 def set_aside_leftovers(run_dir: str | Path) -> list[tuple[Path, Path, str]]:
@@ -486,15 +491,8 @@ def set_aside_leftovers(run_dir: str | Path) -> list[tuple[Path, Path, str]]:
     (:class:`RunBusy`) while a writer holds the run, and moves nothing when the index cannot be
     read. Returns (from, to, what it was) for every file moved."""
     run = Path(run_dir)
-    lock = run / LOCK_NAME
-    fd = os.open(lock, os.O_RDWR | os.O_CREAT, 0o644)
+    fd = _exclusive_lock(run)
     try:
-        try:
-            if fcntl is not None:
-                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except BlockingIOError:
-            raise RunBusy(f"{run}: a sweep, resume or re-acquire is still writing this run (it holds "
-                          f"{lock}); wait for it to end or stop it first") from None
         try:
             conn = index.connect(run / index.INDEX_NAME, read_only=True, timeout_s=2.0)
             try:
