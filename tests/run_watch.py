@@ -3,7 +3,17 @@
 from __future__ import annotations
 
 import sqlite3
+import subprocess
+import sys
 from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def run_cli(*args: str, cwd: Path = ROOT, timeout_s: float = 170) -> subprocess.CompletedProcess:
+    """``flamebode ARGS`` as a user runs it: a real process, output captured as text."""
+    return subprocess.run([sys.executable, "-m", "app.cli", *args], cwd=cwd, capture_output=True, text=True,
+                          timeout=timeout_s)
 
 
 def short_plan_text(name: str, start_hz: float, stop_hz: float, step_hz: float, record_s: float) -> str:

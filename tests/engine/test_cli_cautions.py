@@ -4,21 +4,18 @@ sweep drives real hardware (no checklist is asked for there)."""
 
 from __future__ import annotations
 
-import subprocess
-import sys
 from pathlib import Path
 
 from app.rig import load_rig
-from run_watch import short_plan_text
+from run_watch import run_cli, short_plan_text
 from test_calibration_file import _rig_naming, _write
 
 ROOT = Path(__file__).resolve().parents[2]
 RIG = ROOT / "configs" / "demo-rig.toml"
 
 
-def _cli(*args: str, cwd: Path = ROOT) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "app.cli", *args], cwd=cwd, capture_output=True, text=True,
-                          timeout=120)
+def _cli(*args: str):
+    return run_cli(*args, timeout_s=120)
 
 
 def test_the_dry_run_names_the_calibration_and_refuses_frequencies_outside_its_band(tmp_path: Path) -> None:

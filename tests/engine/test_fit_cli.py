@@ -9,22 +9,18 @@ with the reason.
 from __future__ import annotations
 
 import re
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from run_watch import short_plan_text
+from run_watch import run_cli, short_plan_text
 
 ROOT = Path(__file__).resolve().parents[2]
 RIG = ROOT / "configs" / "demo-rig.toml"
 
 
-def _cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "app.cli", *args], cwd=ROOT, capture_output=True, text=True,
-                          timeout=170)
+_cli = run_cli
 
 
 def _sweep(tmp_path: Path, start: float, stop: float, step: float) -> Path:

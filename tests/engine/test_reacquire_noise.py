@@ -5,18 +5,14 @@ reproduced the first attempt to 16 digits, so a flag from noise could never clea
 from __future__ import annotations
 
 import sqlite3
-import subprocess
-import sys
 from pathlib import Path
 
-from run_watch import short_plan_text
+from run_watch import run_cli, short_plan_text
 
 ROOT = Path(__file__).resolve().parents[2]
 
 
-def _cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "app.cli", *args], cwd=ROOT, capture_output=True, text=True,
-                          timeout=170)
+_cli = run_cli
 
 
 def _gains(run: Path) -> list[float]:

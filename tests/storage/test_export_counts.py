@@ -3,18 +3,14 @@ points left without one (seen: a rejected point became a blank row, and nothing 
 
 from __future__ import annotations
 
-import subprocess
-import sys
 from pathlib import Path
 
-from run_watch import short_plan_text
+from run_watch import run_cli, short_plan_text
 
 ROOT = Path(__file__).resolve().parents[2]
 
 
-def _cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "app.cli", *args], cwd=ROOT, capture_output=True, text=True,
-                          timeout=170)
+_cli = run_cli
 
 
 def test_export_names_the_points_without_a_result(tmp_path: Path) -> None:

@@ -9,8 +9,6 @@ direction.
 
 from __future__ import annotations
 
-import subprocess
-import sys
 from pathlib import Path
 
 import h5py
@@ -19,14 +17,12 @@ import pytest
 import scipy.io as sio
 
 from app.storage.reader import open_run
-from run_watch import short_plan_text
+from run_watch import run_cli, short_plan_text
 
 ROOT = Path(__file__).resolve().parents[2]
 
 
-def _cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "app.cli", *args], cwd=ROOT, capture_output=True, text=True,
-                          timeout=170)
+_cli = run_cli
 
 
 @pytest.fixture(scope="module")

@@ -16,20 +16,17 @@ import hashlib
 import shutil
 import sqlite3
 import subprocess
-import sys
 from pathlib import Path
 
 import pytest
 
-from run_watch import short_plan_text
+from run_watch import run_cli, short_plan_text
 
 ROOT = Path(__file__).resolve().parents[2]
 RIG = ROOT / "configs" / "demo-rig.toml"
 
 
-def _cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "app.cli", *args], cwd=ROOT, capture_output=True, text=True,
-                          timeout=170)
+_cli = run_cli
 
 
 def _digests(folder: Path) -> dict[str, str]:
