@@ -1,4 +1,5 @@
-"""Export a run: one CSV row per point, a JSON summary, gain/phase plots (PNG and PDF).
+"""Export a run: one CSV row per point, a JSON summary, the points as .mat and HDF5 for
+network-model codes (app.storage.interchange), gain/phase plots (PNG and PDF).
 
 Exports use, for every point, the accepted attempt (the acceptance rule in index.py) and
 its newest analysis, and say which one (``used``: point number / attempt number, both from
@@ -26,6 +27,7 @@ import numpy as np
 
 from .. import __version__
 from ..core.phase import unwrapped_phase_rad
+from ..errors import FlamebodeError
 from .index import attempt_label, is_flagged, require_run_folder
 from .reader import Run, open_run
 
@@ -236,13 +238,22 @@ def plot(run: Run, rows: list[dict[str, Any]], out_dir: Path, stem: str) -> list
     return paths
 
 
-def export_run(run_dir: str | Path, out_dir: str | Path | None = None, plots: bool = True) -> list[Path]:
-    """Write ``points.csv``, ``summary.json`` and ``gain-phase.png/.pdf``; returns the paths written."""
+def export_run(run_dir: str | Path, out_dir: str | Path | None = None, plots: bool = True,
+               convention: str = "plus") -> list[Path]:
+    """Write ``points.csv``, ``summary.json``, ``points.mat`` and ``points.h5`` (the files network-model
+    codes read, in time convention ``convention``: "plus" = e^{+iωt}, flamebode's; "minus" =
+    e^{-iωt}, conjugated; see app.storage.interchange) and ``gain-phase.png/.pdf``; returns the
+    paths written."""
+    from .interchange import CONVENTIONS, write_interchange
+
+    if convention not in CONVENTIONS:            # before anything is written
+        raise FlamebodeError(f"time convention {convention!r}: use 'plus' (e^+iwt) or 'minus' (e^-iwt)")
     run = open_run(require_run_folder(run_dir))     # nothing is written unless it is a run folder
     out = Path(out_dir) if out_dir is not None else run.run_dir / "export"
     out.mkdir(parents=True, exist_ok=True)
     rows = point_rows(run)
     written = [write_csv(rows, out / "points.csv"), write_summary(run, rows, out / "summary.json")]
+    written += [write_interchange(run.run_dir, out / name, convention) for name in ("points.mat", "points.h5")]
     if plots:
         written += plot(run, rows, out, "gain-phase")
     return written

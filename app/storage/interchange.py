@@ -109,7 +109,7 @@ def write_interchange(run_dir: str | Path, path: str | Path, convention: str = "
     suffix = out.suffix.lower()
     if suffix not in (".mat", ".h5", ".hdf5"):
         raise FlamebodeError(f"{out}: write a .mat or an .h5/.hdf5 file (the suffix chooses the format)")
-    out = output_target(out, "points file written by flamebode fit", _is_interchange)
+    out = output_target(out, "points file written by flamebode", _is_interchange)
     run = open_run(run_dir, verify=False)
     pts = _points(run)
     if convention == "minus":

@@ -70,3 +70,40 @@ def test_a_wrong_suffix_is_refused_plainly(run_dir: Path, tmp_path: Path):
     out = _cli("fit", str(run_dir), "--model", "n-tau", "--save", str(tmp_path / "ftf.xlsx"))
     assert out.returncode == 2 and "Traceback" not in out.stderr and ".mat or an .h5" in out.stderr
     assert not (tmp_path / "ftf.xlsx").exists()
+
+
+def test_export_writes_mat_and_hdf5_beside_the_csv_with_the_same_numbers(run_dir: Path, tmp_path: Path):
+    """`flamebode export` itself writes points.mat and points.h5; read back with scipy.io and h5py
+    they hold the CSV's frequencies, gains and unwrapped phases (same attempt used), and the
+    e^{-iwt} export (convention "minus") is their complex conjugate (common practice)."""
+    import csv
+
+    from app.storage.export import export_run
+
+    out = _cli("export", str(run_dir), "--out", str(tmp_path / "x"), "--no-plots")
+    assert out.returncode == 0, out.stderr[-2000:]
+    assert "points.mat" in out.stdout and "points.h5" in out.stdout
+    with open(tmp_path / "x" / "points.csv", newline="") as fh:
+        rows = [r for r in csv.DictReader(fh) if r["gain"] not in ("", None)]
+    m = sio.loadmat(tmp_path / "x" / "points.mat", simplify_cells=True)
+    assert m["time_convention"] == "exp(+i*omega*t)"
+    assert [int(r["point"]) for r in rows] == list(np.atleast_1d(m["point"]))
+    assert [int(r["attempt"]) for r in rows] == list(np.atleast_1d(m["attempt"]))
+    assert np.allclose([float(r["freq_hz"]) for r in rows], m["freq_hz"])
+    assert np.allclose([float(r["gain"]) for r in rows], m["gain"], rtol=1e-9)
+    assert np.allclose([float(r["phase_rad"]) for r in rows], m["phase_rad"], rtol=1e-9, atol=1e-12)
+    minus = export_run(run_dir, tmp_path / "y", plots=False, convention="minus")
+    assert {p.name for p in minus} >= {"points.mat", "points.h5"}
+    with h5py.File(tmp_path / "y" / "points.h5") as f, h5py.File(tmp_path / "x" / "points.h5") as g:
+        assert f.attrs["time_convention"] == "exp(-i*omega*t)" and g.attrs["time_convention"] == "exp(+i*omega*t)"
+        assert np.allclose(f["ftf"][...], np.conj(g["ftf"][...]))
+        assert np.allclose(f["ftf"][...], np.conj(m["ftf"]))
+
+
+def test_export_refuses_an_unknown_convention_before_writing(run_dir: Path, tmp_path: Path):
+    from app.errors import FlamebodeError
+    from app.storage.export import export_run
+
+    with pytest.raises(FlamebodeError, match="time convention"):
+        export_run(run_dir, tmp_path / "z", plots=False, convention="backwards")
+    assert not (tmp_path / "z").exists()

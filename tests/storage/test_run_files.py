@@ -187,7 +187,8 @@ def test_export_csv_equals_index(tmp_path: Path, plan_file: Path):
               for p in plan.points]
     write_run(tmp_path / "run", plan_file, plan, events)
     paths = export_run(tmp_path / "run", tmp_path / "out")
-    assert {p.name for p in paths} == {"points.csv", "summary.json", "gain-phase.png", "gain-phase.pdf"}
+    assert {p.name for p in paths} == {"points.csv", "summary.json", "points.mat", "points.h5", "gain-phase.png",
+                                       "gain-phase.pdf"}
     assert all(p.stat().st_size > 1000 for p in paths if p.suffix in (".png", ".pdf"))
     df = pd.read_csv(tmp_path / "out" / "points.csv", keep_default_na=False)
     assert tuple(df.columns) == CSV_COLUMNS and len(df) == 6
