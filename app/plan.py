@@ -151,6 +151,9 @@ class Quality(_Strict):
     distortion_max: number(0.0, 10.0, lo_open=True) = 0.1
     drift_max: number(0.0, 10.0, lo_open=True) = 0.05
     cond_max: number(1.0, 1e6, lo_open=True) = 10.0
+    # a point whose relative 95 % half-width of the FTF gain (or phase, in rad) exceeds this is
+    # flagged too-uncertain; 0.3 = ±30 % in gain or ±17° in phase (judgement, see app.core.quality)
+    relative_ci95_max: number(0.0, 100.0, lo_open=True) = 0.3
 
 
 class FaultLimits(_Strict):
