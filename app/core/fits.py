@@ -7,6 +7,11 @@ Models (time convention x(t) = Re{x̂ e^{+iωt}}, a delay gives a falling phase)
   F = Σ_j n_j exp(-iωτ_j - ω²σ_j²/2) (Komarek & Polifke 2010, J. Eng. Gas Turbines Power
   132:061503), parameters n_j, τ_j, σ_j. With ``unit_gain`` the low-frequency limit
   F(0) = Σ n_j = 1 of a perfectly premixed flame is imposed (n_K = 1 - Σ_{j<K} n_j).
+* ``conical``: the laminar conical flame with a uniform flow (Schuller, Durox & Candel 2003,
+  Combust. Flame 134:21–34, conjugated from their e^{-iωt} form),
+  F = n · 2/x² [1 - e^{-ix} - ix], x = ωτ_c, τ_c = R/(S_L cos α) (flame radius R, burning
+  velocity S_L, half-angle α); parameters n (the low-frequency gain, 1 in their model) and τ_c.
+  At low frequency its phase is -ωτ_c/3; at high frequency the gain falls as 2/x.
 
 Delays are searched up to max(3 τ₀, 1/(2Δf)) (τ₀ from the phase slope, Δf the median spacing
 of the frequencies): a longer delay aliases and cannot be identified from the points.
@@ -46,7 +51,7 @@ class FitError(FlamebodeError):
 
 @dataclass(frozen=True)
 class FitResult:
-    model: str                      # "n_tau" or "delays"
+    model: str                      # "n_tau", "conical" or "delays"
     names: tuple[str, ...]          # parameter names, SI units (s for delays)
     values: np.ndarray
     covariance: np.ndarray
@@ -107,11 +112,25 @@ class FitResult:
         return lines
 
 
+def conical_response(x: np.ndarray | float) -> np.ndarray:
+    """2/x² [1 - e^{-ix} - ix] (x = ωτ_c, e^{+iωt}); its series 1 - ix/3 - x²/12 + ix³/60 below
+    x = 1e-2, where the bracket loses its digits to cancellation."""
+    x = np.asarray(x, dtype=float)
+    small = np.abs(x) < 1e-2
+    xs = np.where(small, 1.0, x)
+    exact = 2.0 / xs ** 2 * (1.0 - np.exp(-1j * xs) - 1j * xs)
+    series = 1.0 - 1j * x / 3.0 - x ** 2 / 12.0 + 1j * x ** 3 / 60.0
+    return np.where(small, series, exact)
+
+
 def _model(model: str, p: np.ndarray, f: np.ndarray, k: int, unit_gain: bool) -> np.ndarray:
     w = TWO_PI * f
     if model == "n_tau":
         n, tau = p
         return n * np.exp(-1j * w * tau)
+    if model == "conical":
+        n, tau = p
+        return n * conical_response(w * tau)
     n, tau, sigma = _split(p, k, unit_gain)
     return np.sum(n[:, None] * np.exp(-1j * np.outer(tau, w) - 0.5 * np.outer(sigma, w) ** 2), axis=0)
 
@@ -128,6 +147,8 @@ def _split(p: np.ndarray, k: int, unit_gain: bool) -> tuple[np.ndarray, np.ndarr
 def _names(model: str, k: int, unit_gain: bool) -> tuple[str, ...]:
     if model == "n_tau":
         return ("n", "tau_s")
+    if model == "conical":
+        return ("n", "tau_c_s")
     ns = [f"n{j + 1}" for j in range(k - 1 if unit_gain else k)]
     return tuple(ns + [f"tau{j + 1}_s" for j in range(k)] + [f"sigma{j + 1}_s" for j in range(k)])
 
@@ -153,13 +174,13 @@ def _delay_guess(f: np.ndarray, F: np.ndarray) -> float:
 
 def fit(freq_hz, ftf, gain_ci95, phase_ci95_rad, model: str = "n_tau", k_terms: int = 1,
         unit_gain: bool = False, coverage: float | np.ndarray = Z95) -> FitResult:
-    """Fit ``model`` ("n_tau" or "delays" with ``k_terms`` Gaussian terms) to complex FTF points.
+    """Fit ``model`` ("n_tau", "conical" or "delays" with ``k_terms`` Gaussian terms) to complex FTF points.
 
     Points without a finite value or a positive interval are left out; too few remaining points
     for the model's parameters raise FitError saying how many are needed."""
-    if model not in ("n_tau", "delays"):
-        raise FitError(f"unknown flame model {model!r}: use 'n_tau' or 'delays'")
-    k = 1 if model == "n_tau" else int(k_terms)
+    if model not in ("n_tau", "conical", "delays"):
+        raise FitError(f"unknown flame model {model!r}: use 'n_tau', 'conical' or 'delays'")
+    k = int(k_terms) if model == "delays" else 1
     if k < 1 or k > 4:
         raise FitError(f"the number of delay terms must be 1 to 4, got {k_terms!r}")
     f, F, sg, sp, dropped = _checked(freq_hz, ftf, gain_ci95, phase_ci95_rad, coverage)
@@ -167,7 +188,7 @@ def fit(freq_hz, ftf, gain_ci95, phase_ci95_rad, model: str = "n_tau", k_terms: 
     need = (len(names) + 2) // 2 + 1          # more real residuals (2 per point) than parameters, with margin
     if f.size < need:
         why = f" ({dropped} without a usable value or interval)" if dropped else ""
-        raise FitError(f"{model}{'' if model == 'n_tau' else f' with {k} term(s)'} has {len(names)} parameters "
+        raise FitError(f"{model}{f' with {k} term(s)' if model == 'delays' else ''} has {len(names)} parameters "
                        f"and needs at least {need} points with a value and an interval; {f.size} given{why}")
     g = np.abs(F)
     rot = np.exp(-1j * np.angle(F))
@@ -185,6 +206,11 @@ def fit(freq_hz, ftf, gain_ci95, phase_ci95_rad, model: str = "n_tau", k_terms: 
     if model == "n_tau":
         starts = [np.array([float(np.median(g)), tau0])]
         lower, upper = [-np.inf, 0.0], [np.inf, tau_max]
+    elif model == "conical":
+        # the low-frequency phase is -ωτ_c/3, but the phase levels off above x ≈ 2π: several starts
+        g_low = float(g[np.argmin(f)])
+        starts = [np.array([g_low, m * tau0]) for m in (1.0, 2.0, 3.0, 4.5, 6.0)]
+        lower, upper = [-np.inf, 0.0], [np.inf, 3.0 * tau_max]
     else:
         from itertools import combinations
 

@@ -137,7 +137,7 @@ def compare(run_dirs: list[str | Path], out: str | Path) -> Path:
 
 
 def _fit_lines(rows: list[dict[str, Any]], run: Any, fitted: dict[float, Any] | None = None) -> list[str]:
-    from ..core.fdf import amplitude_independence, fit_saturation
+    from ..core.fdf import fit_saturation
     from ..core.fits import FitError, choose_delays
 
     lines = []
@@ -153,15 +153,13 @@ def _fit_lines(rows: list[dict[str, Any]], run: Any, fitted: dict[float, Any] | 
         except FitError as exc:
             lines.append(f"|u'|/u = {amp:.3g}: no model fitted ({exc})")
     if len(curves) > 1:
-        pts = [(r["freq_hz"], amp, r["gain"] * np.exp(1j * math.radians(r["phase_deg"])), r["gain_ci95"],
-                r["phase_ci95_rad"], 1.959963984540054) for amp, rs in curves.items() for r in rs]
-        comps = amplitude_independence(pts)
-        bad = [c for c in comps if c.fails]
-        lines.append(f"amplitude dependence: the two lowest amplitudes agree within their uncertainties at "
-                     f"{len(comps) - len(bad)} of {len(comps)} frequencies"
-                     + (f"; they differ at {', '.join(f'{c.freq_hz:g} Hz' for c in bad)}" if bad else ""))
+        from .amplitude import amplitude_test, run_points
+
+        pts = run_points(run)
+        lines += amplitude_test(pts).lines()
         try:
-            lines.append(fit_saturation(pts).describe())
+            lines.append(fit_saturation([(p.freq_hz, p.amplitude_ratio, p.ftf, p.gain_ci95, p.phase_ci95_rad,
+                                          p.coverage) for p in pts]).describe())
         except FitError as exc:
             lines.append(f"saturation: not fitted ({exc})")
     return lines

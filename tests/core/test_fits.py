@@ -14,7 +14,7 @@ import math
 import numpy as np
 import pytest
 
-from app.core.fits import FitError, choose_delays, fit
+from app.core.fits import FitError, choose_delays, conical_response, fit
 
 TWO_PI = 2 * np.pi
 
@@ -57,6 +57,32 @@ def test_n_tau_intervals_cover_the_truth_as_often_as_they_say():
     rate = cover / trials
     assert np.all(rate >= 0.92) and np.all(rate <= 0.98), rate
     assert np.mean(chi2) == pytest.approx(1.0, abs=0.08)       # honest weights give chi2/dof near 1
+
+
+def test_conical_flame_check_values_and_its_parameters_are_recovered_within_their_intervals():
+    # Schuller, Durox & Candel 2003 (Combust. Flame 134:21-34), uniform-velocity conical flame:
+    # |F| = 0.97253, 0.89374, 0.48015 at w* = 1, 2, 5 (the magnitude is the same in both time
+    # conventions); low-frequency limit F -> 1 with phase -w*/3 (series of the same formula, derived)
+    assert np.abs(conical_response(np.array([1.0, 2.0, 5.0]))) == pytest.approx([0.97253, 0.89374, 0.48015],
+                                                                              abs=1e-5)
+    assert np.angle(conical_response(1e-3)) == pytest.approx(-1e-3 / 3, rel=1e-6)
+    assert np.angle(conical_response(0.5)) < 0              # e^{+iwt}: the flame lags
+    # our own flame: R = 6 mm, S_L = 0.38 m/s, bulk velocity 1.6 m/s, so the cone's half-angle has
+    # sin a = S_L/u (a flat-front cone, common practice) and tau_c = R/(S_L cos a) = 16.3 ms
+    alpha = math.asin(0.38 / 1.6)
+    tau_true = 6e-3 / (0.38 * math.cos(alpha))
+    freqs = np.linspace(5, 120, 14)                         # w* from 0.5 to 12
+    truth = conical_response(TWO_PI * freqs * tau_true)
+    sg, sp = 0.02, 0.03
+    rng = np.random.default_rng(20261204)
+    trials, cover = 400, np.zeros(2)
+    for _ in range(trials):
+        r = fit(freqs, _noisy(truth, sg, sp, rng), np.full(14, 1.96 * sg), np.full(14, 1.96 * sp), "conical")
+        cover += np.abs(r.values - [1.0, tau_true]) <= 1.96 * r.stderr()
+    rate = cover / trials
+    # two-sided: 95 % intervals cover 91.5-98.5 % of 400 trials (binomial sd 1.1 %)
+    assert np.all(rate >= 0.915) and np.all(rate <= 0.985), rate
+    assert r.names == ("n", "tau_c_s") and "tau_c = " in r.describe()[1]
 
 
 def test_two_delay_terms_are_chosen_over_one_and_recovered():

@@ -101,3 +101,41 @@ def test_a_rational_fit_is_saved_with_its_state_space_form(band_run: Path, tmp_p
         grid, model = m["grid_hz"][...], m["grid_ftf"][...]
     resp = ct.frequency_response(ct.ss(A, B, C, D), 2 * np.pi * grid)     # python-control as the reference
     assert np.allclose(np.squeeze(resp.complex) * np.exp(-2j * np.pi * grid * tau), model, atol=1e-9)
+
+
+@pytest.mark.slow
+@pytest.mark.timeout(400)
+def test_two_ftf_runs_at_two_amplitudes_are_tested_together_and_another_operating_point_is_refused(
+        tmp_path: Path) -> None:
+    # two FTF runs of the demo rig at 0.03 and 0.35 (the demo flame saturates at |Q'|/Q_mean = 0.30,
+    # configs/demo-scenario.toml): pooled by amplitude, the amplitude test sees the saturation
+    runs = []
+    for amp, seed in ((0.03, 6), (0.35, 7)):
+        plan = tmp_path / f"plan-{amp}.toml"
+        plan.write_text(short_plan_text(f"ftf {amp}", 150, 450, 100, 0.6).replace("values = [0.05]",
+                                                                               f"values = [{amp}]"))
+        run = tmp_path / f"run-{amp}"
+        out = _cli("sweep", str(plan), "--rig", str(RIG), "--scenario", str(ROOT / "configs" / "demo-scenario.toml"),
+                   "--out", str(run), "--fast", "--seed", str(seed))
+        assert out.returncode == 0, out.stderr[-2000:]
+        runs.append(run)
+    out = _cli("fit", *map(str, runs), "--model", "n-tau")
+    assert out.returncode == 0 and "Traceback" not in out.stderr, out.stderr[-2000:]
+    assert "amplitude dependence: at the two lowest amplitudes (0.03, 0.35)" in out.stdout, out.stdout
+    assert "differs at:" in out.stdout and f"from {runs[0]}" in out.stdout
+    # the same run copied with another operating point (a richer fuel flow) is not pooled
+    import shutil
+
+    other = tmp_path / "other"
+    shutil.copytree(runs[1], other)
+    rig = other / "rig.toml"
+    text = rig.read_text()
+    changed = re.sub(r'(\[\[gas\.flows\]\][^\[]*?flow\s*=\s*")([0-9.]+)', lambda m: m.group(1) + str(
+        float(m.group(2)) * 1.1), text, count=1, flags=re.S)
+    assert changed != text, "the demo rig's first flow has a flow"
+    rig.write_text(changed)
+    out = _cli("fit", str(runs[0]), str(other), "--model", "n-tau")
+    assert out.returncode == 2 and "Traceback" not in out.stderr, out.stderr[-2000:]
+    assert "operating point" in out.stderr and "gas.flows[1]" in out.stderr, out.stderr
+    out = _cli("fit", *map(str, runs), "--save", str(tmp_path / "both.mat"))
+    assert out.returncode == 2 and "one run" in out.stderr and not (tmp_path / "both.mat").exists()
