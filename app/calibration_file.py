@@ -11,7 +11,9 @@ A rig file names one with ``pressure_calibration = "cal.toml"`` (relative to the
 :func:`attach` reads it, checks it against the rig (rig identity, sensor names, the band, a
 malformed or corrupt file) and puts its factors into the sensors' calibration tables, or
 raises :class:`CalibrationFileError` naming the file and the problem. Nothing is applied
-silently: a file that does not fit is refused as a whole.
+silently: a file that does not fit is refused as a whole. The factors' standard uncertainties
+(``u_gain``, ``u_phase_deg``) go with them: each point's error budget carries them in place of
+the sensors' stated ``gain_uncertainty`` / ``phase_uncertainty``.
 
 The rig identity is a SHA-256 over what the factors depend on: the rig's name, the duct
 radius and each pressure sensor's channel, position and nominal sensitivity (not the whole
@@ -314,8 +316,10 @@ def attach(rig: "Rig") -> "Rig":
     for s in rig.pressure_sensors:
         f = cal.sensor(s.channel)
         try:
-            points = tuple(CalibrationPoint.model_validate({"frequency": fr, "gain": g, "phase_deg": ph})
-                           for fr, g, ph in zip(cal.frequency_hz, f.gain, f.phase_deg))
+            points = tuple(CalibrationPoint.model_validate({"frequency": fr, "gain": g, "phase_deg": ph,
+                                                            "u_gain": ug, "u_phase_deg": up})
+                           for fr, g, ph, ug, up in zip(cal.frequency_hz, f.gain, f.phase_deg, f.u_gain,
+                                                        f.u_phase_deg))
         except ValueError as exc:
             raise CalibrationFileError(str(path), [f"sensor.{s.channel}: {exc}"]) from None
         sensors.append(s.model_copy(update={"calibration": points}))

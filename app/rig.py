@@ -76,6 +76,10 @@ class CalibrationPoint(_Strict):
     frequency: Frequency
     gain: number(0.01, 100.0) = Field()
     phase_deg: number(-360.0, 360.0) = 0.0
+    # standard uncertainties of the factor (a calibration file states them per frequency);
+    # None: not stated, the sensor's gain_uncertainty / phase_uncertainty apply instead
+    u_gain: number(0.0, 1.0) | None = None          # relative, of |C|
+    u_phase_deg: number(0.0, 90.0) | None = None    # degrees, of arg C
 
 
 class PressureSensor(_Strict):
@@ -84,6 +88,10 @@ class PressureSensor(_Strict):
     sensitivity: Sensitivity
     weight: number(1e-6, 1e6) = 1.0
     position_uncertainty: quantity("length", 0.0, 0.1, unit="mm") = 0.0
+    # standard uncertainties of the sensor's calibration (GUM type B, stated by the user): the
+    # relative gain (0.01 = 1 %) and the phase; used where no calibration factor states its own
+    gain_uncertainty: number(0.0, 0.5) = 0.0
+    phase_uncertainty: quantity("angle", 0.0, math.pi / 4, unit="deg") = 0.0
     calibration: tuple[CalibrationPoint, ...] = Field(default=(), max_length=1000)
 
     def correction(self, freq_hz: float) -> complex:
@@ -99,6 +107,22 @@ class PressureSensor(_Strict):
         gain = float(np.interp(freq_hz, f, g))
         phase = math.radians(float(np.interp(freq_hz, f, ph)))
         return gain * complex(math.cos(phase), math.sin(phase))
+
+    def calibration_uncertainty(self, freq_hz: float) -> tuple[float, float]:
+        """(relative gain, phase in rad) standard uncertainty of the calibrated sensor at ``freq_hz``.
+
+        The calibration factors' own uncertainties (a calibration file states them per frequency;
+        interpolated like the factors) where every point states them, otherwise the sensor's
+        ``gain_uncertainty`` and ``phase_uncertainty``."""
+        pts = sorted(self.calibration, key=lambda c: c.frequency)
+        if not pts or any(c.u_gain is None or c.u_phase_deg is None for c in pts):
+            return float(self.gain_uncertainty), float(self.phase_uncertainty)
+        import numpy as np  # local: keep module import light
+
+        f = [c.frequency for c in pts]
+        u_g = float(np.interp(freq_hz, f, [c.u_gain for c in pts]))
+        u_p = math.radians(float(np.interp(freq_hz, f, [c.u_phase_deg for c in pts])))
+        return u_g, u_p
 
 
 class Duct(_Strict):
@@ -168,6 +192,7 @@ class Flow(_Strict):
     flow: VolumeFlow
     reference_temperature: MeterTemperature
     reference_pressure: Pressure = 101325.0
+    relative_uncertainty: number(0.0, 0.5) = 0.0   # standard uncertainty of the reading, 0.01 = 1 %
 
 
 class Gas(_Strict):
@@ -178,6 +203,7 @@ class Gas(_Strict):
     composition: Composition | None = None
     flows: tuple[Flow, ...] = Field(default=(), max_length=20)
     mean_velocity: number(0.0, 300.0, lo_open=True) | None = None
+    mean_velocity_uncertainty: number(0.0, 0.5) = 0.0   # relative standard uncertainty of mean_velocity
 
     @model_validator(mode="after")
     def _one_source(self) -> "Gas":

@@ -159,3 +159,23 @@ def test_calibration_factor_interpolates():
     c = rig2.pressure_sensors[1].correction(200.0)
     assert abs(c) == pytest.approx(1.05)
     assert math.degrees(math.atan2(c.imag, c.real)) == pytest.approx(1.0)
+
+
+def test_a_referenced_calibration_file_gives_the_sensors_its_factor_uncertainties(tmp_path, demo_rig_path):
+    # The calibration file states u_gain and u_phase_deg per frequency; a rig that references
+    # it uses them in the error budget instead of the sensors' stated gain/phase uncertainties.
+    import math
+
+    from app.calibration_file import read_calibration
+    from test_calibration_file import _rig_naming, _write
+
+    cal_path = _write(load_rig(demo_rig_path), tmp_path / "cal.toml")
+    rig = load_rig(_rig_naming(tmp_path, demo_rig_path))
+    cal = read_calibration(cal_path)
+    for sensor in rig.pressure_sensors:
+        factors = cal.sensor(sensor.channel)
+        i = 1
+        u_g, u_p = sensor.calibration_uncertainty(cal.frequency_hz[i])
+        assert u_g == pytest.approx(factors.u_gain[i])
+        assert u_p == pytest.approx(math.radians(factors.u_phase_deg[i]))
+    assert any(s.calibration_uncertainty(500.0)[0] > 0 for s in rig.pressure_sensors)

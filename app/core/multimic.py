@@ -360,9 +360,11 @@ def velocity_at_reference(fit: WaveFit, reference_x_m: float, area_ratio: float)
     """û at the reference plane beyond a compact, low-Mach area change, and its variance.
 
     û is evaluated in the sensor duct at ``reference_x_m``; across the area change p̂ is
-    continuous and A₁û₁ = A₂û₂, so û_ref = û·area_ratio with area_ratio = A_sensor/A_ref.
-    The mean velocity scales by the same ratio, so û/ū is unchanged. Use area_ratio = 1
-    when the reference plane lies in the sensor duct.
+    continuous and A₁û₁ = A₂û₂ (acoustic volume velocity), so û_ref = û·area_ratio with
+    area_ratio = A_sensor/A_ref. Use area_ratio = 1 when the reference plane lies in the
+    sensor duct. The mean velocity is not handled here: ū_ref = ṁ/(ρ_ref A_ref) follows the
+    mass flux (app.core.gas.mean_flow), so at one temperature û/ū is unchanged across the area
+    change, and where the reference plane is hotter (û/ū)_ref = (û/ū)_sensors·ρ_ref/ρ_sensors.
     """
     if not (np.isfinite(area_ratio) and area_ratio > 0):
         raise MultimicInputError(f"area_ratio (A_sensor/A_ref) must be > 0, got {area_ratio!r}")

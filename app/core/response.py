@@ -69,6 +69,8 @@ class FtfPoint:
     warnings: tuple[str, ...] = ()
     covariance: PhasorCovariance | None = field(default=None, repr=False)  # of (Q̂'/Q̄, û'/ū)
     interval: RatioInterval | None = None  # standard uncertainties, dof, coverage factors
+    # the error budget's systematic terms: (input, complex δF/F for one standard uncertainty of it)
+    budget: tuple[tuple[str, complex], ...] = field(default=(), repr=False)
 
     @property
     def amplitude_ratio(self) -> float:
@@ -177,16 +179,23 @@ def _velocity_from_fit(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.Me
 
 
 def _systematic_directions(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow,
-                           vel_ratio: complex) -> np.ndarray:
-    """Complex shifts δ_k of û/ū for one standard uncertainty of each systematic input.
+                           vel_ratio: complex, wf: WaveFit | None = None) -> tuple[tuple[str, complex], ...]:
+    """Named complex shifts δ_k of û/ū for one standard uncertainty of each systematic input.
 
-    The inputs are the rig file's stated standard uncertainties of the gas temperature and of
-    each sensor's position (GUM type B), taken by finite differences through the same fit. A
-    wrong temperature shifts the speed of sound, the density and the metered mean velocity; a
-    wrong position shifts the plane-wave fit. Each moves û/ū in a definite complex direction,
-    so gain and phase get Σ Re(δ_k/U)² and Σ Im(δ_k/U)² (JCGM 100:2008 §5.1.2), not |δ|²/2 each.
+    The inputs are the rig file's stated standard uncertainties (GUM type B): the gas
+    temperature, each sensor's position, each sensor's calibration (relative gain and phase:
+    the calibration file's per-frequency values when one is referenced, else the sensor's
+    ``gain_uncertainty`` / ``phase_uncertainty``) and each flow meter's reading (or the stated
+    mean velocity). A wrong temperature shifts the speed of sound, the density and the metered
+    mean velocity; a wrong position shifts the plane-wave fit (both by finite differences
+    through the same fit). A calibration error of sensor i scales its pressure by (1 + ε) or
+    e^{iε}: û is linear in the pressures, û = r·p, so δû = r_i p_i ε (or i r_i p_i ε) exactly
+    to first order. A flow meter's error moves ū_ref 1:1 through the mass flow (and, slightly,
+    the Mach number in the wave numbers: taken through the same fit). Each moves û/ū in a
+    definite complex direction, so gain and phase get Σ Re(δ_k/U)² and Σ Im(δ_k/U)²
+    (JCGM 100:2008 §5.1.2), not |δ|²/2 each.
     """
-    shifts: list[complex] = []
+    shifts: list[tuple[str, complex]] = []
     d_t = rig.gas.temperature_uncertainty
     if d_t > 0:
         g = rig.gas
@@ -195,15 +204,37 @@ def _systematic_directions(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: ga
                                                                     "temperature_at_reference": t_ref})})
         mean_w = gas.mean_flow(warm)
         u_w = _velocity_from_fit(fit, prep, warm, mean_w, medium_from(mean_w))[0]
-        shifts.append(u_w / mean_w.velocity_reference_m_s - vel_ratio)
+        shifts.append(("gas temperature", u_w / mean_w.velocity_reference_m_s - vel_ratio))
     medium = medium_from(mean)
     for i, sensor in enumerate(rig.pressure_sensors):
         if sensor.position_uncertainty > 0:
             moved = prep.positions_m.copy()
             moved[i] += sensor.position_uncertainty
             u_m = _velocity_from_fit(fit, replace(prep, positions_m=moved), rig, mean, medium)[0]
-            shifts.append(u_m / mean.velocity_reference_m_s - vel_ratio)
-    return np.array(shifts, dtype=complex)
+            shifts.append((f"{sensor.channel} position", u_m / mean.velocity_reference_m_s - vel_ratio))
+    if wf is not None:
+        # δû/ū per unit relative change of each calibrated pressure: r_i p_i / ū
+        per_sensor = (rig.duct.area_ratio * (wf._g(rig.duct.reference_plane) @ wf.estimator) * wf.pressures_pa
+                      / mean.velocity_reference_m_s)
+        for i, sensor in enumerate(rig.pressure_sensors):
+            u_gain, u_phase = sensor.calibration_uncertainty(fit.freq_hz)
+            if u_gain > 0:
+                shifts.append((f"{sensor.channel} calibration gain", complex(per_sensor[i] * u_gain)))
+            if u_phase > 0:
+                shifts.append((f"{sensor.channel} calibration phase", complex(1j * per_sensor[i] * u_phase)))
+    g = rig.gas
+    if not g.flows and g.mean_velocity_uncertainty > 0:
+        # a stated mean velocity: ū_ref itself is off, 1:1 and opposite in U = û/ū
+        shifts.append(("mean velocity", complex(-vel_ratio * g.mean_velocity_uncertainty)))
+    for i, meter in enumerate(g.flows):
+        if meter.relative_uncertainty > 0 and meter.flow > 0:
+            flows = list(g.flows)
+            flows[i] = meter.model_copy(update={"flow": meter.flow * (1.0 + meter.relative_uncertainty)})
+            high = rig.model_copy(update={"gas": g.model_copy(update={"flows": tuple(flows)})})
+            mean_h = gas.mean_flow(high)
+            u_h = _velocity_from_fit(fit, prep, high, mean_h, medium_from(mean_h))[0]
+            shifts.append((f"flow meter {meter.name}", u_h / mean_h.velocity_reference_m_s - vel_ratio))
+    return tuple(shifts)
 
 
 def _mean_flow(rig: Rig, mean_flow: gas.MeanFlow | None) -> gas.MeanFlow:
@@ -279,10 +310,14 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     cov_ch = channel_covariance(fit)
     pair = cov_ch.propagate(np.vstack([row_light, row_u / vel.mean_velocity_ref_m_s]))
     pair = PhasorCovariance(pair.matrix, min(cov_ch.dof, vel.dof))
-    directions = -_systematic_directions(fit, prep, rig, mean, vel_ratio) / vel_ratio   # δF/F = −δU/U
+    named = [(name, -shift / vel_ratio)                                       # δF/F = −δU/U
+             for name, shift in _systematic_directions(fit, prep, rig, mean, vel_ratio, vel.wave_fit)]
     # The dark offset's standard uncertainty shifts Q̄ = mean light − dark, hence |Q̂'/Q̄|: a real
     # (gain-only) direction u_dark/Q̄ (JCGM 100:2008 §5.1.2; the rig file states u_dark).
-    directions = np.append(directions, rig.light.dark_offset_uncertainty / light_mean)
+    if rig.light.dark_offset_uncertainty > 0:
+        named.append(("dark offset", complex(rig.light.dark_offset_uncertainty / light_mean)))
+    budget = tuple((name, complex(d)) for name, d in named)
+    directions = np.array([d for _, d in budget], dtype=complex)
     interval = ratio_interval(light_ratio, vel_ratio, pair, directions)
     rel_var_random = interval.random_rel_var
     rel_var_sys = interval.systematic_gain_var + interval.systematic_phase_var
@@ -322,7 +357,8 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     return FtfPoint(freq_hz=float(freq_hz), velocity=vel, light_ratio=light_ratio, ftf=complex(ftf),
                     gain=float(gain), phase_rad=float(np.angle(ftf)),
                     gain_ci95=interval.gain_ci95, phase_ci95_rad=interval.phase_ci95_rad,
-                    quality=figures, warnings=tuple(warnings), covariance=pair, interval=interval)
+                    quality=figures, warnings=tuple(warnings), covariance=pair, interval=interval,
+                    budget=budget)
 
 
 def point_summary(point: FtfPoint) -> Mapping[str, object]:

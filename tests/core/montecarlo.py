@@ -27,6 +27,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import signal
 
 from app.core import gas
 from app.core.harmonic import fit_harmonics
@@ -91,9 +92,41 @@ def noise_batch(rng: np.random.Generator, kind: str, trials: int, n: int, sigma:
     return np.fft.irfft(spec, n=n, axis=-1) * sigma[None, :, None]
 
 
+def _true_mean_velocity_factor(rig: Rig, rng: np.random.Generator) -> float:
+    """ū_true/ū_stated for flow-meter readings each off by a draw from its stated uncertainty."""
+    g = rig.gas
+    if not g.flows:
+        return 1.0 + g.mean_velocity_uncertainty * rng.standard_normal()
+    flows = tuple(f.model_copy(update={"flow": f.flow * (1.0 + f.relative_uncertainty * rng.standard_normal())})
+                  for f in g.flows)
+    true = rig.model_copy(update={"gas": g.model_copy(update={"flows": flows})})
+    return gas.mean_flow(true).velocity_reference_m_s / gas.mean_flow(rig).velocity_reference_m_s
+
+
+def with_rig_errors(rec_data: np.ndarray, rig: Rig, rng: np.random.Generator) -> np.ndarray:
+    """The clean record as the rig really measures it: each sensor's gain and phase off by draws
+    from its stated standard uncertainties, and the true mean velocity off by the flow meters'.
+
+    A sensor reading (1 + ε) e^{iφ} times the pressure is Re{(1 + ε) e^{iφ} p̂ e^{iωt}}, made from
+    the analytic signal of the clean sinusoid (exact over whole periods). A true mean velocity
+    ū_true = s·ū_stated is the same, for the analysis, as every pressure read s times too large
+    with ū and the light right (F_measured = F_true/s), so it enters as a common factor s.
+    """
+    out = rec_data.copy()
+    s = _true_mean_velocity_factor(rig, rng)
+    for i, sensor in enumerate(rig.pressure_sensors):
+        u_g, u_p = sensor.calibration_uncertainty(0.0)
+        factor = s * (1.0 + u_g * rng.standard_normal()) * np.exp(1j * u_p * rng.standard_normal())
+        out[i] = np.real(factor * signal.hilbert(rec_data[i]))
+    return out
+
+
 def coverage(rig: Rig, freq_hz: float, snr_db: float, kind: str, trials: int, duration_s: float,
-             seed: int, sample_rate_hz: float = 12800.0, batch: int = 100) -> Coverage:
-    """Fraction of trials whose 95 % gain and phase intervals hold the generator's true FTF."""
+             seed: int, sample_rate_hz: float = 12800.0, batch: int = 100, rig_errors: bool = False) -> Coverage:
+    """Fraction of trials whose 95 % gain and phase intervals hold the generator's true FTF.
+
+    With ``rig_errors`` every trial also draws the sensors' calibration errors and the flow
+    meters' errors from the rig file's stated standard uncertainties (with_rig_errors)."""
     mean = gas.mean_flow(rig)
     rec = make_record(rig, freq_hz, n_tau(0.85, 2.3e-3), duration_s=duration_s, sample_rate_hz=sample_rate_hz,
                       noise_pa=0.0, light_noise_v=0.0, white=True)
@@ -115,7 +148,8 @@ def coverage(rig: Rig, freq_hz: float, snr_db: float, kind: str, trials: int, du
         noise = noise_batch(rng, kind, k, n, sigma, n_p, light_row, positions, rig.duct.reference_plane,
                             c * (1 + mean.mach_sensors), c * (1 - mean.mach_sensors), sample_rate_hz, freq_hz)
         for trial in noise:
-            pt = evaluate_point(rec.data + trial, rec.channels, sample_rate_hz, freq_hz, rig, mean)
+            clean = with_rig_errors(rec.data, rig, rng) if rig_errors else rec.data
+            pt = evaluate_point(clean + trial, rec.channels, sample_rate_hz, freq_hz, rig, mean)
             hits_g += abs(pt.gain - abs(truth)) <= pt.gain_ci95
             hits_p += abs(math.remainder(pt.phase_rad - np.angle(truth), 2 * math.pi)) <= pt.phase_ci95_rad
             widths_g.append(pt.gain_ci95 / abs(truth))
