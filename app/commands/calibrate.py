@@ -57,6 +57,14 @@ def _seed(text: str) -> int:
     return seed_type(text)
 
 
+def coherence_text(worst: float) -> str:
+    """The lowest coherence as a person reads it: four decimals, or, when it rounds to 1, how
+    far below 1 it is (1 - coherence is what sets the factors' uncertainty)."""
+    if 1.0 - worst >= 5e-5:
+        return f"coherence >= {worst:.4f}"
+    return f"coherence >= 1 - {max(1.0 - worst, 1e-12):.1e}"
+
+
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("rig", help="rig file (TOML), see docs/rig-file.md")
     p.add_argument("--method", choices=("common-plane",), default="common-plane",
@@ -201,8 +209,8 @@ def _calibrate(args: argparse.Namespace, rig: Any, reference: str, second: str |
         others = [j for j, n in enumerate(sensors) if n != reference]
         note = "  (ceiling reached: below the target)" if rec.at_ceiling else ""
         print(f"  {rec.freq_hz:8.1f} Hz  drive {rec.drive_v * 1e3:8.2f} mV  {rec.pressure_pa:7.2f} Pa  "
-              f"coherence >= {q.coherence[others].min():.6f}  u(gain) <= {q.u_gain_rel[others].max() * 100:.3f} %"
-              f"{note}", flush=True)
+              f"{coherence_text(float(q.coherence[others].min()))}  "
+              f"u(gain) <= {q.u_gain_rel[others].max() * 100:.3f} %{note}", flush=True)
 
     with StopSignals(holder) as stops:
         try:

@@ -49,6 +49,8 @@ def test_calibrate_writes_a_file_that_matches_the_simulated_sensors(tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert "Traceback" not in proc.stderr
     assert f"calibration file: {out}" in proc.stdout and "check against p3" in proc.stdout
+    # the coherence reads as a number a person can use, never a rounded "1.000000"
+    assert "coherence >= 1.000000" not in proc.stdout and "coherence >= " in proc.stdout, proc.stdout
     cal = read_calibration(out)
     assert cal.frequency_hz == tuple(float(f) for f in range(100, 2001, 100)) and cal.reference == "p1"
     assert cal.conditions["check_reference"] == "p3" and cal.conditions["check_worst_z"] < 3.0
