@@ -1,13 +1,15 @@
 """``flamebode compare RUN [RUN ...] --out FIGURE``: several runs' gain and phase on one figure.
 
 One curve per run and forcing amplitude, with 95 % bars, flagged points hollow, phase in
-degrees unwrapped along frequency (e^{+iωt}). Drawn by ``app.storage.report.compare``. Must
-not import Qt.
+degrees unwrapped along frequency (e^{+iωt}). Drawn through ``app.services.export.compare``.
+Must not import Qt.
 """
 
 from __future__ import annotations
 
 import argparse
+import sys
+from pathlib import Path
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -16,15 +18,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..storage.index import require_run_folder
-    from ..storage.report import compare
-
-    import sys
-
-    from ..storage.reader import open_run
+    from ..services.export import compare
+    from ..services.runs import opening_problems
+    from ..services.types import CompareRequest
 
     for d in args.runs:
-        for problem in open_run(require_run_folder(d), verify=False).problems:
+        for problem in opening_problems(d):
             print(f"flamebode compare: {d}: problem: {problem}", file=sys.stderr)
-    print(f"wrote {compare(args.runs, args.out)}")
+    result = compare(CompareRequest(run_dirs=tuple(Path(d) for d in args.runs), out=Path(args.out)))
+    print(f"wrote {result.figure}")
     return 0

@@ -2,12 +2,14 @@
 
 Uses each point's accepted attempt (the acceptance rule, or a person's choice) and its newest
 analysis, and names it in every file (``used``: point/attempt, e.g. ``7/2``); phases in degrees,
-unwrapped along frequency per forcing amplitude (app.core.phase). Must not import Qt.
+unwrapped along frequency per forcing amplitude (app.core.phase). The files are written by
+``app.services.export.export``, as the window's Export button. Must not import Qt.
 """
 
 from __future__ import annotations
 
 import argparse
+from pathlib import Path
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -17,14 +19,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..storage import index
-    from ..storage.export import export_run
+    from ..services.export import export
+    from ..services.types import ExportRequest
 
-    from ..storage.export import counts, describe_counts, point_rows
-    from ..storage.reader import open_run
-
-    index.require_run_folder(args.run_dir)
-    for path in export_run(args.run_dir, args.out, plots=not args.no_plots):
+    result = export(ExportRequest(run_dir=Path(args.run_dir), out_dir=Path(args.out) if args.out else None,
+                                  plots=not args.no_plots))
+    for path in result.paths:
         print(f"wrote {path}")
-    print(describe_counts(counts(point_rows(open_run(args.run_dir, verify=False)))))   # what the files hold
+    print(result.counts_text)        # what the files hold
     return 0

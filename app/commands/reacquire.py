@@ -5,14 +5,15 @@ flags, or the newest one where all are flagged, unless a person accepted one (se
 docs/run-layout.md); the command ends by saying which attempt (point/attempt) each point
 uses and how many of the run's points are flagged. Uses the run's own rig,
 plan and scenario snapshots and its back-end; a changed snapshot is refused unless
-``--accept-changed-snapshot`` is given (as for ``resume``). Must not import Qt.
+``--accept-changed-snapshot`` is given (as for ``resume``). The choice is checked and the
+outcome reported by ``app.services.reacquire`` (as the window's Re-acquire buttons do); the
+sweep runs in ``resume.continue_run``. Must not import Qt or open the index itself.
 """
 
 from __future__ import annotations
 
 import argparse
-
-from ..errors import FlamebodeError
+from pathlib import Path
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -28,49 +29,35 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..plan import load_plan
-    from ..storage import index
-    from ..storage.reader import open_run
-    from ..storage.writer import ensure_not_busy
-    from .reprocess_run import parse_points
+    from ..services import reacquire
+    from ..services.reprocess import parse_points
+    from ..services.runs import check_run_folder
+    from ..services.types import ReacquireRequest
     from .resume import check_snapshots, continue_run
 
-    run_dir = index.require_run_folder(args.run_dir)
-    r = open_run(run_dir, verify=False)
-    if not r.index_readable:
-        raise FlamebodeError(f"{r.run_dir}: cannot reacquire while the index is unreadable: {r.problems[0]}")
-    planned = [p.index for p in load_plan(r.plan_path).points()]
-    wanted = r.flagged_points() if args.flagged else parse_points(args.points) or []
-    unknown = sorted(set(wanted) - set(planned))
-    if unknown:
-        raise FlamebodeError(f"--points: {', '.join(str(i + 1) for i in unknown)} not in this run's plan "
-                             f"(points 1-{len(planned)})")
-    if not wanted:
-        print(f"{r.run_dir}: no point to reacquire")
+    run_dir = check_run_folder(args.run_dir)
+    wanted = () if args.flagged else tuple(parse_points(args.points) or ())
+    plan = reacquire.prepare(ReacquireRequest(run_dir=run_dir, point_indices=wanted, flagged=args.flagged))
+    if not plan.point_indices:
+        print(f"{plan.run_dir}: no point to reacquire")
         return 0
-    ensure_not_busy(r.run_dir)
-    check_snapshots(r.run_dir, args.accept_changed_snapshot, "reacquire")
-    print(f"reacquiring point(s) {', '.join(str(i + 1) for i in wanted)} of {r.run_dir}")
-    reason = continue_run(r.run_dir, [i for i in planned if i in set(wanted)], fast=args.fast)
-    report_choices(r.run_dir, wanted)
+    reacquire.ensure_not_busy(plan.run_dir)
+    check_snapshots(plan.run_dir, args.accept_changed_snapshot, "reacquire")
+    print(f"reacquiring point(s) {', '.join(str(i + 1) for i in plan.point_indices)} of {plan.run_dir}")
+    reason = continue_run(plan.run_dir, list(plan.point_indices), fast=args.fast)
+    report_choices(plan.run_dir, list(plan.point_indices))
     return 0 if reason == "complete" else 1
 
 
-def report_choices(run_dir, points: list[int]) -> None:
+def report_choices(run_dir: Path, points: list[int]) -> None:
     """Which attempt each re-acquired point now uses and why, then the run's counts."""
-    from ..storage.export import counts, describe_counts, point_rows
-    from ..storage.reader import open_run
+    from ..services.reacquire import point_uses
 
-    run = open_run(run_dir, verify=False)
-    rows = {row["point"] - 1: row for row in point_rows(run)}
-    for i in sorted(set(points)):
-        row = rows.get(i)
-        if row is None or row["status"] != "accepted":
-            print(f"point {i + 1}: no accepted attempt (see 'flamebode review {run.run_dir} --attempts')")
+    uses, summary = point_uses(run_dir, points)
+    for u in uses:
+        if u.used is None:
+            print(f"point {u.point}: no accepted attempt (see 'flamebode review {run_dir} --attempts')")
             continue
-        a = run.attempt(row["attempt_id"])
-        why = a.get("decision_reason") or ""
-        flags = f"flagged: {row['flags'].replace(';', ', ')}" if row["flagged"] else "no flags"
-        print(f"point {i + 1}: uses attempt {row['used']} of {row['n_attempts']} ({flags}; "
-              f"{'chosen by a person' if row['chosen_by'] == 'user' else why or 'acceptance rule'})")
-    print(describe_counts(counts(list(rows.values()))))
+        flags = f"flagged: {', '.join(u.flags)}" if u.flags else "no flags"
+        print(f"point {u.point}: uses attempt {u.used} of {u.n_attempts} ({flags}; {u.why})")
+    print(summary)

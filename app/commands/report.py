@@ -2,13 +2,14 @@
 
 Rig and calibration used, how the run was made and ended, the response with intervals
 (flagged points hollow), the point table, the fitted flame model, the amplitude dependence
-and a quality summary (``app.storage.report.write_report``). Default: RUN/export/report.pdf.
+and a quality summary (through ``app.services.export.write_report``). Default: RUN/export/report.pdf.
 Must not import Qt.
 """
 
 from __future__ import annotations
 
 import argparse
+import sys
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -17,15 +18,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..storage.index import require_run_folder
-    from ..storage.report import write_report
+    from ..services.export import write_report
+    from ..services.runs import opening_problems
 
-    import sys
-
-    from ..storage.reader import open_run
-
-    for problem in open_run(require_run_folder(args.run_dir), verify=False).problems:
+    for problem in opening_problems(args.run_dir):
         print(f"flamebode report: problem: {problem} (also on the report's first page)", file=sys.stderr)
-    written = write_report(require_run_folder(args.run_dir), args.out)
+    written = write_report(args.run_dir, args.out)
     print("wrote " + ", ".join(str(p) for p in written))
     return 0

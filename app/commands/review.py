@@ -6,8 +6,9 @@ unwrapped along frequency per forcing amplitude, ±95 %; the same numbers as the
 and a last line counting points with a result, flagged ones and points without one.
 
 Problems found while opening the run (leftover temporary files, missing or damaged
-records, a locked index) are printed first; the table shows what is still readable.
-Must not import Qt.
+records, a locked index) are printed first; the table shows what is still readable. The run
+is read through ``app.services.runs.review``, as the window's review tab reads it. Must not
+import Qt or open the index itself.
 """
 
 from __future__ import annotations
@@ -39,31 +40,21 @@ def _cells(row: dict) -> list[str]:
             str(row["n_attempts"]), row["chosen_by"] or "-", row["flags"].replace(";", ", ")]
 
 
-def _attempt_flags(a: dict) -> list[str]:
-    an = a.get("analysis") or {}
-    return list(a["flags"]) + [w for w in an.get("warnings", ()) if w not in a["flags"]]
-
-
 def run(args: argparse.Namespace) -> int:
-    from ..storage import index
-    from ..storage.export import counts, describe_counts, plan_name, point_rows
-    from ..storage.index import attempt_label
-    from ..storage.reader import open_run
+    from ..services import runs
+    from ..services.runs import attempt_label
 
-    r = open_run(index.require_run_folder(args.run_dir), verify=not args.no_verify)
-    print(f"run {r.run_dir}: {plan_name(r)}  ({r.kind}, back-end {r.info.get('backend', '?')}, "
+    rv = runs.review(args.run_dir, verify=not args.no_verify)
+    r = rv.run
+    print(f"run {r.run_dir}: {rv.plan_name}  ({r.kind}, back-end {r.info.get('backend', '?')}, "
           f"{len(r.points)} points, {len(r.attempts)} attempts)")
-    for p in r.problems:
+    for p in rv.problems:
         print(f"problem: {p}")
-    for c in index.snapshot_changes(r.run_dir):
-        print(f"problem: snapshot changed since the run was created: {c.describe()} (resume and reacquire "
-              f"refuse it without --accept-changed-snapshot)")
-    for c in _accepted_changes(r.run_dir):
-        print(f"snapshot change accepted by {c['command']} at {_utc(c['wall_time_s'])}: {c['name']}: "
-              f"{'; '.join(c['keys']) or 'content changed'} (sha256 {c['old_sha256'][:12]} → {c['new_sha256'][:12]})")
+    for note in rv.snapshot_notes:
+        print(note.text if note.accepted else f"problem: {note.text}")
     for f in r.faults:
         print(f"fault at point {_num(f['point_index'])}: {f['name']}: {f['message']} ({f['action']})")
-    rows = point_rows(r)
+    rows = list(rv.rows)
     cells = [_cells(row) for row in rows]
     widths = [max([len(h)] + [len(c[k]) for c in cells]) for k, (h, _) in enumerate(COLUMNS)]
     line = "  ".join
@@ -76,37 +67,15 @@ def run(args: argparse.Namespace) -> int:
         if args.attempts:
             for a in r.attempts_of(row["point"] - 1):
                 reason = f" ({a['decided_by']}: {a['decision_reason']})" if a.get("decision_reason") else ""
-                flags = ", ".join(_attempt_flags(a)) or "none"
+                flags = ", ".join(runs.attempt_flags(a)) or "none"
                 print(f"{'':>6}attempt {attempt_label(a['point_index'], a.get('seq'))}: "
                       f"{a['decision'] or 'not used'}{reason}, record {a['record_status']}, flags {flags}, "
                       f"id {a['attempt_id']}")
-    print(describe_counts(counts(rows)))
-    pending = r.pending_points()
-    if pending:
-        print(f"{len(pending)} point(s) without an accepted attempt: {', '.join(str(i + 1) for i in pending)} "
-              f"(continue with 'flamebode resume {r.run_dir}')")
+    print(rv.counts_text)
+    if rv.pending_points:
+        print(f"{len(rv.pending_points)} point(s) without an accepted attempt: "
+              f"{', '.join(map(str, rv.pending_points))} (continue with 'flamebode resume {r.run_dir}')")
     return 0
-
-
-def _accepted_changes(run_dir) -> list[dict]:
-    import sqlite3
-
-    from ..storage import index
-
-    try:
-        conn = index.connect(run_dir / index.INDEX_NAME, read_only=True, timeout_s=0.5)
-        try:
-            return index.snapshot_change_log(conn)
-        finally:
-            conn.close()
-    except sqlite3.Error:
-        return []
-
-
-def _utc(wall_s: float) -> str:
-    from datetime import datetime, timezone
-
-    return datetime.fromtimestamp(wall_s, timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC")
 
 
 def _num(index: object) -> str:

@@ -2,7 +2,7 @@
 
 Kind (FTF/FDF), date, plan name, rig, forcing amplitudes, points (with a result / planned),
 flagged points, back-end and how the sweep ended; a folder that cannot be read is listed
-with its problem. The listing itself is ``app.storage.report.list_runs``. Must not import Qt.
+with its problem. The listing itself is ``app.services.export.list_runs``. Must not import Qt.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..storage.report import list_runs
+    from ..services.export import list_runs
 
     found = list_runs(args.folder)
     if not found:

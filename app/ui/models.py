@@ -23,7 +23,7 @@ import numpy as np
 from app.engine.events import BlockAcquired, FaultRaised, PointSettled, StateChanged, TuningStep
 from app.core import quality as _quality
 from app.core.phase import unwrapped_phase_rad
-from app.storage.index import NEVER_ACCEPTED
+from app.services.runs import NEVER_ACCEPTED
 
 
 class Observable:

@@ -3,9 +3,13 @@ reject, reprocess with another rig file, export. A mixin of ``app.ui.window.Main
 uses the window's review view, task runner and controls); split out to keep the window file
 about the live sweep.
 
-Everything that reads or writes the run folder runs on the window's worker thread.
+Everything that reads or writes the run folder runs on the window's worker thread, and every
+operation is the run service the command line uses too (``app.services``: ``runs.open_run``,
+``decisions.decide``, ``reprocess.reprocess``, ``export.export``, ``reacquire.prepare``); the
+window never opens the index or builds a command's arguments.
 
-Imports: PySide6, the window's bridge types, storage readers and commands (in worker tasks).
+Imports: PySide6, the window's bridge types and ``app.services``. Never ``app.storage`` or
+``app.commands``.
 """
 
 from __future__ import annotations
@@ -15,6 +19,10 @@ from typing import Any
 
 import numpy as np
 from PySide6.QtWidgets import QFileDialog
+
+from app.services import decisions, export, reacquire, reprocess, runs
+from app.services.types import (Choice, DecideRequest, ExportRequest, ReacquirePlan, ReacquireRequest,
+                                ReprocessRequest)
 
 from .bridge import TaskResult
 
@@ -27,8 +35,6 @@ class ReviewActions:
 
     def open_review(self, run_dir: Path, show: bool = True) -> None:
         """Load a run into the review tab (read on the worker); ``show`` switches to the tab."""
-        from app.storage.reader import open_run
-
         def done(result: TaskResult) -> None:
             if result.error is None:
                 self.review.load(result.value)
@@ -36,7 +42,7 @@ class ReviewActions:
                     self.tabs.setCurrentWidget(self.review)
                 self._update_controls()
 
-        self.tasks.submit("open run", lambda: open_run(run_dir), on_done=done)
+        self.tasks.submit("open run", lambda: runs.open_run(run_dir), on_done=done)
 
     def _review_selected(self, indices: list[int]) -> None:
         if not indices or self.review.run is None:
@@ -80,26 +86,55 @@ class ReviewActions:
         return {}
 
     def decide(self, accept: bool) -> None:
+        """Accept or reject the selected attempt (``app.services.decisions.decide``, as ``accept``)."""
         run = self.review.run
         att = self.review.current_attempt()
         if run is None or att is None:
             self.review.message.setText("Select a point first.")
             return
-        from app.storage import index
-
-        def write() -> int:
-            conn = index.connect(Path(run.run_dir) / index.INDEX_NAME, timeout_s=5.0)
-            try:
-                with conn:
-                    return index.decide(conn, att["attempt_id"], accept,
-                                        f"{'accepted' if accept else 'rejected'} in the window")
-            finally:
-                conn.close()
-
         verb = "accepted" if accept else "rejected"
-        self.review.message.setText(f"point {att['point_index'] + 1}: attempt {att['seq']} {verb}")
-        self.tasks.submit("decide", write,
-                          on_done=lambda r: self.open_review(Path(run.run_dir)) if r.error is None else None)
+        by_number = isinstance(att.get("seq"), int)        # a run rebuilt from its records may lack numbers
+        req = DecideRequest(run_dir=Path(run.run_dir),
+                            choices=(Choice(att["point_index"] + 1, att["seq"]),) if by_number else (),
+                            attempt_ids=() if by_number else (att["attempt_id"],),
+                            accept=accept, reason=f"{verb} in the window")
+
+        def done(result: TaskResult) -> None:
+            if result.error is None:
+                d = result.value[0]
+                self.review.message.setText(f"point {d.point}: attempt {d.label} {d.verb}")
+                self.open_review(Path(run.run_dir))
+
+        self.review.message.setText(f"point {att['point_index'] + 1}: attempt {att['seq']} {verb}…")
+        self.tasks.submit("decide", lambda: decisions.decide(req), on_done=done)
+
+    def reacquire(self, indices: list[int]) -> bool:
+        """Measure points of the reviewed run again (new attempts; old ones kept): the choice is
+        checked by ``app.services.reacquire.prepare`` on the worker, then the sweep starts."""
+        run = self.review.run
+        if self.running() or run is None or not indices:
+            self.review.message.setText("Select the points to re-acquire first." if not indices else
+                                        "A sweep is running.")
+            return False
+        if not self._simulated_run(run) and not self.setup.checklist_done():
+            self._say("Tick every item of the safety checklist (Set-up) before forcing on real hardware.")
+            return False
+        req = ReacquireRequest(run_dir=Path(run.run_dir), point_indices=tuple(sorted(indices)))
+
+        def done(result: TaskResult) -> None:
+            if result.error is None and not self.running():
+                self._launch_reacquire(run, result.value)
+
+        self.review.message.setText(f"Re-acquiring point(s) {', '.join(str(i + 1) for i in sorted(indices))}…")
+        self.tasks.submit("reacquire", lambda: reacquire.prepare(req), on_done=done)
+        return True
+
+    def _launch_reacquire(self, run: Any, plan: ReacquirePlan) -> None:
+        self.reset_live_view()
+        self.points.load_run(run)
+        req = self._request(points=list(plan.point_indices), run_dir=plan.run_dir, existing=True)
+        req.rig_path, req.plan_path, req.backend = plan.rig_path, plan.plan_path, plan.backend
+        self._launch(req)
 
     def choose_reprocess_rig(self) -> None:
         run = self.review.run
@@ -111,40 +146,40 @@ class ReviewActions:
             self.reprocess(Path(name))
 
     def reprocess(self, rig_path: Path, points: list[int] | None = None) -> None:
-        """New analyses of the run's records with another rig file (raw records only read)."""
+        """New analyses of the run's records with another rig file (raw records only read);
+        ``points`` are plan indices from 0 (None: every point)."""
         run = self.review.run
         if run is None or self.running():
             return
-        import argparse
-
-        from app.commands import reprocess_run
-
-        text = None if not points else ",".join(map(str, points))
-        args = argparse.Namespace(run_dir=str(run.run_dir), rig=str(rig_path), points=text)
+        req = ReprocessRequest(run_dir=Path(run.run_dir), rig_path=Path(rig_path),
+                               point_indices=None if not points else tuple(points))
         self.review.message.setText(f"Reprocessing with {rig_path}…")
 
         def done(result: TaskResult) -> None:
             if result.error is None:
-                self.review.message.setText(f"Reprocessed with {rig_path}.")
+                res = result.value
+                skipped = f"; {len(res.not_done)} not reprocessed ({', '.join(o.where for o in res.not_done)})" \
+                    if res.not_done else ""
+                self.review.message.setText(f"Reprocessed {res.n_done} attempt(s) with {rig_path}{skipped}.")
                 self.open_review(Path(run.run_dir))
 
-        self.tasks.submit("reprocess", lambda: reprocess_run.run(args), on_done=done)
+        self.tasks.submit("reprocess", lambda: reprocess.reprocess(req), on_done=done)
 
     def export_run(self) -> None:
         run = self.review.run
         if run is None:
             self._say("Open a run first.")
             return
-        from app.storage.export import export_run
 
         def done(result: TaskResult) -> None:
             if result.error is None:
-                self.last_export = list(result.value)
-                self.review.message.setText("Exported: " + ", ".join(p.name for p in result.value) +
-                                            f" in {result.value[0].parent}")
+                paths = result.value.paths
+                self.last_export = list(paths)
+                self.review.message.setText("Exported: " + ", ".join(p.name for p in paths) +
+                                            f" in {paths[0].parent}; {result.value.counts_text}")
 
         self.review.message.setText("Exporting…")
-        self.tasks.submit("export", lambda: export_run(run.run_dir), on_done=done)
+        self.tasks.submit("export", lambda: export.export(ExportRequest(run_dir=Path(run.run_dir))), on_done=done)
 
     @staticmethod
     def _simulated_run(run: Any) -> bool:

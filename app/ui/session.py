@@ -6,8 +6,9 @@ starts, the back-end is registered with the safety net, and closing joins the en
 flushes the writer and stops the back-end. Re-acquiring points of a stored run uses the
 run's own snapshots and back-end, as ``flamebode reacquire`` does.
 
-Imports: the engine, storage, plan/rig, the driver registry and the standard library.
-Never Qt (the window hands these calls to its task runner).
+Imports: the engine, plan/rig, the run services (``app.services.sweeps``: the run writer, a
+run's back-end), the driver registry and the standard library. Never Qt (the window hands these
+calls to its task runner) and never ``app.storage`` directly.
 """
 
 from __future__ import annotations
@@ -94,7 +95,7 @@ class SweepSession:
     # -------------------------------------------------------------- worker thread
     def open_and_start(self) -> "SweepSession":
         """Load files, open the back-end and the run writer, start the engine's thread."""
-        from app.storage.writer import RunWriter, writer_for_existing_run
+        from app.services import sweeps
         from drivers import safety
 
         req = self.request
@@ -103,12 +104,12 @@ class SweepSession:
         self.rig = load_rig(req.rig_path)
         self.plan = load_plan(req.plan_path, self.rig)
         if req.existing_run:
-            self.writer = writer_for_existing_run(req.run_dir, self.bus)
+            self.writer = sweeps.existing_run_writer(req.run_dir, self.bus)
         else:
-            self.writer = RunWriter(req.run_dir, req.rig_path, req.plan_path, self.bus,
-                                    scenario_path=req.scenario_path,
-                                    options={"backend": req.backend, "fast": "1" if req.fast else "0",
-                                             "started_from": "window"})
+            self.writer = sweeps.new_run_writer(req.run_dir, req.rig_path, req.plan_path, self.bus,
+                                                scenario_path=req.scenario_path,
+                                                options={"backend": req.backend, "fast": "1" if req.fast else "0",
+                                                         "started_from": "window"})
         self.writer.start()
         self.bus.subscribe(self.writer)
         if req.yield_per_block_s > 0:
@@ -135,12 +136,9 @@ class SweepSession:
         req = self.request
         name, scenario, fast = req.backend, req.scenario_path, req.fast
         if req.existing_run:           # the run's own back-end and scenario snapshot, as `reacquire` does
-            from app.storage.reader import open_run
+            from app.services.sweeps import run_backend
 
-            info = open_run(req.run_dir, verify=False).info
-            name = info.get("backend", "simulated") or "simulated"
-            snapshots = sorted(Path(req.run_dir).glob("scenario.*"))
-            scenario = snapshots[0] if snapshots else None
+            name, scenario = run_backend(Path(req.run_dir))
         options: dict[str, Any] = {}
         if name == "simulated":
             options = {"scenario": str(scenario) if scenario else None, "real_time": not fast, "seed": req.seed}

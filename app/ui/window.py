@@ -16,9 +16,8 @@ window, so in a dialog it only closes the dialog. Closing the window halts a run
 SIGINT/SIGTERM/SIGHUP (routed by ``app.ui.stop_signals``) halt it and quit.
 
 Imports: PySide6, pyqtgraph (through the views), the engine's event types and states, the review
-actions (``review_actions``),
-storage readers and commands (in worker tasks), the driver registry and the simulator's
-truth (rehearsal overlay only).
+actions (``review_actions``, which call ``app.services``), the driver registry and the
+simulator's truth (rehearsal overlay only). Never ``app.storage`` or ``app.commands``.
 """
 
 from __future__ import annotations
@@ -261,25 +260,6 @@ class MainWindow(ReviewActions, QMainWindow):
         self.reset_live_view()
         req = self._request(points=None, run_dir=self._new_run_dir(), existing=False)
         self._launch(req)
-        return True
-
-    def reacquire(self, indices: list[int]) -> bool:
-        """Measure points of the reviewed run again (new attempts; old ones kept)."""
-        run = self.review.run
-        if self.running() or run is None or not indices:
-            self.review.message.setText("Select the points to re-acquire first." if not indices else
-                                        "A sweep is running.")
-            return False
-        if not self._simulated_run(run) and not self.setup.checklist_done():
-            self._say("Tick every item of the safety checklist (Set-up) before forcing on real hardware.")
-            return False
-        self.reset_live_view()
-        self.points.load_run(run)
-        req = self._request(points=sorted(indices), run_dir=Path(run.run_dir), existing=True)
-        req.rig_path, req.plan_path = Path(run.rig_path), Path(run.plan_path)
-        req.backend = run.info.get("backend", "simulated") or "simulated"
-        self._launch(req)
-        self.review.message.setText(f"Re-acquiring point(s) {', '.join(str(i + 1) for i in sorted(indices))}…")
         return True
 
     def _launch(self, req: SweepRequest) -> None:

@@ -1,0 +1,83 @@
+"""The window and the command line reach the same run-service functions (one operation, one
+place): each front end's decide, reprocess and export call ``app.services`` and the results
+on disk are the same."""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import pytest
+from PySide6.QtCore import Qt
+
+from app.cli import main
+from app.services import decisions, export, reprocess, runs
+
+LONG_MS = 60000
+CONFIGS = Path(__file__).resolve().parents[2] / "configs"
+
+
+class Recorder:
+    """Wraps a service function: records each request, then does the real work."""
+
+    def __init__(self, real) -> None:
+        self.real, self.requests = real, []
+
+    def __call__(self, req):
+        self.requests.append(req)
+        return self.real(req)
+
+
+@pytest.fixture
+def spies(monkeypatch: pytest.MonkeyPatch) -> dict[str, Recorder]:
+    out = {"decide": Recorder(decisions.decide), "reprocess": Recorder(reprocess.reprocess),
+           "export": Recorder(export.export)}
+    monkeypatch.setattr(decisions, "decide", out["decide"])
+    monkeypatch.setattr(reprocess, "reprocess", out["reprocess"])
+    monkeypatch.setattr(export, "export", out["export"])
+    return out
+
+
+def test_window_and_cli_call_the_same_services(qtbot, make_window, tiny_plan, tmp_path: Path, spies) -> None:
+    cli_run = tmp_path / "cli-run"
+    assert main(["sweep", str(tiny_plan), "--fast", "--seed", "5", "--out", str(cli_run)]) == 0
+    win_run = tmp_path / "win-run"
+    shutil.copytree(cli_run, win_run)
+
+    # the command line: reject point 2's attempt 1, reprocess, export
+    assert main(["accept", str(cli_run), "2", "1", "--reject"]) == 0
+    new_rig = tmp_path / "edited-rig.toml"
+    new_rig.write_text((CONFIGS / "demo-rig.toml").read_text(encoding="utf-8")
+                       .replace('"14.2 mV/Pa"', '"14.9 mV/Pa"'), encoding="utf-8")
+    assert main(["reprocess-run", str(cli_run), "--rig", str(new_rig)]) == 0
+    assert main(["export", str(cli_run), "--no-plots"]) == 0
+    assert [len(s.requests) for s in spies.values()] == [1, 1, 1]
+
+    # the window: the same three operations on the copy
+    win = make_window(tiny_plan)
+    win.open_review(win_run)
+    review = win.review
+    qtbot.waitUntil(lambda: review.run is not None and review.accept_button.isEnabled(), timeout=LONG_MS)
+    review.point_list.select_points([1])
+    qtbot.waitUntil(lambda: review.current_attempt() is not None and review.attempt_box.count() == 1, timeout=LONG_MS)
+    old = review.run
+    qtbot.mouseClick(review.reject_button, Qt.MouseButton.LeftButton)
+    qtbot.waitUntil(lambda: review.run is not old, timeout=LONG_MS)
+    before = review.run
+    win.reprocess(new_rig)
+    qtbot.waitUntil(lambda: review.run is not before and "Reprocessed" in review.message.text(), timeout=LONG_MS)
+    qtbot.mouseClick(review.export_button, Qt.MouseButton.LeftButton)
+    qtbot.waitUntil(lambda: "Exported" in review.message.text(), timeout=LONG_MS)
+    assert [len(s.requests) for s in spies.values()] == [2, 2, 2]
+
+    cli_req, win_req = spies["decide"].requests
+    assert (cli_req.choices, cli_req.accept) == (win_req.choices, win_req.accept)
+    assert [(c.point, c.attempt) for c in win_req.choices] == [(2, 1)]
+    assert spies["reprocess"].requests[0].rig_path == spies["reprocess"].requests[1].rig_path
+    cli_rows, win_rows = runs.review(cli_run).rows, runs.review(win_run).rows
+    assert [(r["used"], r["status"], r["gain"]) for r in cli_rows] == [(r["used"], r["status"], r["gain"])
+                                                                       for r in win_rows]
+    assert cli_rows[1]["status"] != "accepted"
+    cli_csv = (cli_run / "export" / "points.csv").read_text(encoding="utf-8")
+    win_csv = (win_run / "export" / "points.csv").read_text(encoding="utf-8")
+    assert cli_csv.splitlines()[0] == win_csv.splitlines()[0] and len(cli_csv.splitlines()) == 4
