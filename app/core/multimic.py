@@ -159,6 +159,7 @@ class WaveFit:
     cov_dof: float = float("inf")     # effective degrees of freedom of cov_a
     generalised: bool = False         # True: weighted by the estimated noise covariance (GLS)
     variance_inflation: float = 1.0   # factor already in cov_a for weights estimated from the same noise
+    noise_cov: np.ndarray | None = None  # Σ = E[δp δpᴴ] of the pressures (Pa²) the fit was given, if any
 
     @property
     def amplitudes(self) -> np.ndarray:
@@ -200,6 +201,34 @@ class WaveFit:
         u = self._g(x_m) @ np.vstack([a_plus, a_minus])
         u = np.where(singular, np.nan + 0j, u)
         return {pair: complex(val) for pair, val in zip(pairs, u)}
+
+    def pair_spread_z_at(self, x_m: float) -> float:
+        """Largest |û_pair − û| over its own standard error among the pairs in band (all if none is).
+
+        The difference is linear in the pressures, û_pair − û = (g E_pair − g E) p, so its
+        variance is r Σ r̄ᵀ with the noise covariance Σ the fit was given (JCGM 102:2011 §6).
+        A pair spread that is a few standard errors or less is the noise, not a sensor fault.
+        NaN for two sensors or without a noise covariance.
+        """
+        n = len(self.positions_m)
+        if n < 3 or self.noise_cov is None:
+            return float("nan")
+        by_pair = self.pair_velocities_at(x_m)
+        usable = [p for p, ok in self.pair_in_band.items() if ok] or list(by_pair)
+        g = self._g(x_m)
+        full_row = g @ self.estimator
+        u = self.velocity_at(x_m)
+        z = []
+        for i, j in usable:
+            if not np.isfinite(by_pair[(i, j)]):
+                continue
+            h = _wave_matrix(self.positions_m[[i, j]], self.k_plus, self.k_minus)
+            row = -full_row.copy()
+            row[[i, j]] += g @ _inverse_2x2(h)
+            var = float(np.real(row @ self.noise_cov @ row.conj())) * self.variance_inflation
+            dev = abs(by_pair[(i, j)] - u)
+            z.append(dev / np.sqrt(var) if var > 0 else (0.0 if dev == 0 else np.inf))
+        return float(max(z)) if z else float("inf")
 
     def pair_spread_at(self, x_m: float) -> float:
         """max |û_pair − û|/|û| over the pairs in band (all pairs if none is); NaN for 2 sensors.
@@ -320,6 +349,7 @@ def decompose(
         medium=medium, radius_m=float(radius_m), pair_in_band=in_band,
         any_pair_in_band=any(in_band.values()), cov_a=cov, pressures_pa=p_ro, estimator=estimator,
         cov_dof=dof if sigma is not None else float("inf"), generalised=used_gls, variance_inflation=inflation,
+        noise_cov=sigma,
     )
 
 

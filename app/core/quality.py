@@ -16,13 +16,27 @@ import numpy as np
 from .harmonic import HarmonicFit, fit_harmonics
 
 
+LIGHT_BLOCKS = 16        # batches for the light's mean-level standard error
+SIGNIFICANCE_Z = 3.0     # a figure's deviation must exceed this many of its own standard errors
+
+
 def drift_figures(fit: HarmonicFit, data: np.ndarray, velocity_of: Callable[[HarmonicFit], object],
                   light_row: int) -> dict[str, float]:
-    """Relative change of velocity phasor and mean light between the record's two halves.
+    """Relative change of velocity phasor and mean light between the record's two halves, and
+    each change over its own standard error (``*_z``).
 
     A drifting operating point (mean flow, temperature) or a slowly dying flame shows up
     here before it shows in the point's scatter (common practice: compare halves). Uses
     the half-record fits the harmonic estimator already made, or fits the halves anew.
+
+    Standard errors: the velocity's from each half's own noise covariance, E|δ(u₂ − u₁)|² =
+    E|δu₁|² + E|δu₂|² (independent halves); the mean light's by batch means (the record cut
+    into LIGHT_BLOCKS blocks, the forcing's fitted sinusoid and harmonics removed from each
+    block's mean in closed form) with the successive-difference variance of the block means,
+    which a slow trend does not inflate (von Neumann et al. 1941, Ann. Math. Stat. 12; batch
+    means: common practice in simulation output analysis). A change within a few standard
+    errors is the noise, not drift: a point forced weakly (target unreachable) has a large
+    relative change of a tiny, noisy velocity and must not be flagged for drift.
     """
     if fit.halves is not None:
         fits = list(fit.halves)
@@ -32,13 +46,50 @@ def drift_figures(fit: HarmonicFit, data: np.ndarray, velocity_of: Callable[[Har
                 for part in (data[:, :half], data[:, half:2 * half])]
     vels = [velocity_of(f) for f in fits]
     u = [v.velocity_ref for v in vels]  # type: ignore[attr-defined]
+    var_u = [v.var_velocity_ref for v in vels]  # type: ignore[attr-defined]
     mean_abs = 0.5 * (abs(u[0]) + abs(u[1]))
     light = [float(f.offset[light_row]) for f in fits]
     light_avg = 0.5 * (abs(light[0]) + abs(light[1]))
+    du, dl = abs(u[1] - u[0]), abs(light[1] - light[0])
+    se_u = float(np.sqrt(var_u[0] + var_u[1]))
+    se_l = _light_difference_se(fit, data[light_row], light_row)
     return {
-        "drift_velocity": float(abs(u[1] - u[0]) / mean_abs) if mean_abs > 0 else float("inf"),
-        "drift_light": float(abs(light[1] - light[0]) / light_avg) if light_avg > 0 else float("inf"),
+        "drift_velocity": float(du / mean_abs) if mean_abs > 0 else float("inf"),
+        "drift_light": float(dl / light_avg) if light_avg > 0 else float("inf"),
+        "drift_velocity_z": _z(du, se_u),
+        "drift_light_z": _z(dl, se_l),
     }
+
+
+def _z(deviation: float, standard_error: float) -> float:
+    if standard_error > 0 and np.isfinite(standard_error):
+        return float(deviation / standard_error)
+    return 0.0 if deviation == 0 else float("inf")
+
+
+def _light_difference_se(fit: HarmonicFit, x: np.ndarray, row: int) -> float:
+    """Standard error of (mean of the second half − mean of the first) of one channel by batch means."""
+    n = x.size
+    k = LIGHT_BLOCKS
+    length = n // k
+    if length < 2:
+        return float("nan")
+    block = x[:k * length].reshape(k, length).mean(axis=1)
+    # remove each block's mean of the fitted periodic part: Re{h · mean e^{iθn}} in closed form
+    starts = np.arange(k) * length
+    theta = 2 * np.pi * fit.freq_hz / fit.sample_rate_hz
+    parts = [(1, complex(fit.amplitude[row]))]
+    if fit.harmonics.size:
+        parts += [(order + 2, complex(h)) for order, h in enumerate(fit.harmonics[row]) if np.isfinite(h)]
+    for order, h in parts:
+        t = order * theta
+        step = np.exp(1j * t)
+        if abs(1 - step) < 1e-12:
+            continue
+        mean_exp = np.exp(1j * t * starts) * (1 - step**length) / (length * (1 - step))
+        block -= np.real(h * mean_exp)
+    var_block = float(np.sum(np.diff(block) ** 2) / (2 * (k - 1)))
+    return float(np.sqrt(4.0 * var_block / k))
 
 
 # (figure key, flag name, threshold attribute, sense): a figure beyond its threshold raises the flag.
@@ -54,6 +105,14 @@ QUALITY_RULES = (
     ("cond", "ill-conditioned", "cond_max", "max"),
     ("relative_ci95", "too-uncertain", "relative_ci95_max", "max"),
 )
+
+# Figures compared with their own standard error too: the flag is raised only when the figure
+# is beyond its threshold AND its deviation is more than SIGNIFICANCE_Z standard errors (the
+# ``*_z`` figure), so pure noise does not raise it. (For a complex Gaussian deviation
+# P(z > 3) = e^{-9} ≈ 1e-4 per figure.) A missing ``*_z`` figure (older results) leaves the
+# fixed threshold alone.
+SIGNIFICANCE = {"pair-spread": "pair_spread_z", "drift-velocity": "drift_velocity_z",
+                "drift-light": "drift_light_z"}
 
 # Limits used when the thresholds object (a plan's [quality] table) does not define them.
 # relative_ci95 = max(gain half-width / gain, phase half-width in rad): 0.3 is ±30 % in gain or
@@ -91,5 +150,8 @@ def quality_flags(figures: Mapping[str, float], thresholds: object) -> tuple[str
         if not np.isfinite(value) and not (sense == "min" and value == np.inf):
             flags.append(f"{flag}-unknown")
         elif (sense == "min" and value < limit) or (sense == "max" and value > limit):
+            z = figures.get(SIGNIFICANCE.get(flag, ""))
+            if z is not None and np.isfinite(float(z)) and float(z) <= SIGNIFICANCE_Z:
+                continue        # within its own noise
             flags.append(flag)
     return tuple(flags)

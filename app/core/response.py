@@ -331,6 +331,7 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
         "snr_db_light": float(fit.snr_db[prep.light_row]),
         "mmm_residual": vel.residual,
         "pair_spread": vel.pair_spread,
+        "pair_spread_z": float(vel.wave_fit.pair_spread_z_at(rig.duct.reference_plane)),
         "cond": vel.cond,
         "distortion_velocity": float(np.hypot(abs(u2), abs(u3)) / abs(vel.velocity_ref)),
         "distortion_light": float(fit.distortion[prep.light_row]),
