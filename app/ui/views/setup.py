@@ -2,8 +2,10 @@
 simulator's options, the safety note and the pre-run checklist.
 
 Validation runs the core's own loaders on the editor text (``rig_from_dict`` /
-``plan_from_dict``) and lists each ConfigError line (file: key: problem) beside the
-editor. Saving is handed to the window (file writes never run on the GUI thread).
+``plan_from_dict``) a moment after each change (debounced) and lists each ConfigError line
+(file: key: problem) beside the editor; a form of the main keys (``config_form``) sits beside
+the text, shows each problem at its key, and edits the text. Saving is handed to the window
+(file writes never run on the GUI thread).
 
 Imports: PySide6, the standard library and the rig/plan loaders only.
 """
@@ -14,7 +16,7 @@ import tomllib
 from pathlib import Path
 from typing import Any, Callable
 
-from PySide6.QtCore import Qt, Signal
+from PySide6.QtCore import Qt, QTimer, Signal
 from PySide6.QtGui import QFont, QStandardItemModel
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QFormLayout, QFrame, QGroupBox, QHBoxLayout, QLabel,
                                QLineEdit, QListWidget, QListWidgetItem, QPlainTextEdit, QPushButton, QScrollArea,
@@ -23,6 +25,11 @@ from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QFormLayout, Q
 from app.errors import ConfigError
 from app.plan import plan_from_dict
 from app.rig import rig_from_dict
+
+from .config_form import PLAN_FIELDS, RIG_FIELDS, ConfigForm
+
+CHECK_DELAY_MS = 300                 # validate this long after the last keystroke
+STACK_BELOW_PX = 620                 # narrower than this: the form above the text, not beside it
 
 SAFETY_NOTE = (
     "<b>Safety first.</b> flamebode keeps the drive under its voltage ceiling and brings it to zero on every "
@@ -47,10 +54,13 @@ class ConfigEditor(QWidget):
     """A text editor for one TOML file with Check and Save; problems listed beside it."""
 
     save_requested = Signal(str, str)      # path, text
+    checked = Signal(list)                 # the problems of the last check (key: problem), [] when valid
 
-    def __init__(self, kind: str, validate: Callable[[str, str], None], parent: QWidget | None = None) -> None:
+    def __init__(self, kind: str, validate: Callable[[str, str], None],
+                 fields: tuple[tuple[str, str], ...] = (), parent: QWidget | None = None) -> None:
         super().__init__(parent)
         self.kind, self._validate = kind, validate
+        self.problem_lines: list[str] = []
         self.path: Path | None = None
         self.path_label = QLabel("(no file)")
         self.path_label.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
@@ -64,6 +74,23 @@ class ConfigEditor(QWidget):
         self.problems = QListWidget()
         self.problems.setMaximumHeight(110)
         self.status = QLabel("")
+        self.form = ConfigForm(self.editor, fields)
+        form_scroll = QScrollArea()
+        form_scroll.setWidget(self.form)
+        form_scroll.setWidgetResizable(True)
+        form_scroll.setFrameShape(QFrame.Shape.NoFrame)
+        form_scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+        self.split = QSplitter()
+        self.split.setObjectName(f"{kind}-form-split")
+        self.split.addWidget(form_scroll)
+        self.split.addWidget(self.editor)
+        self.split.setStretchFactor(0, 2)
+        self.split.setStretchFactor(1, 3)
+        self.split.setChildrenCollapsible(False)
+        self.check_timer = QTimer(self)
+        self.check_timer.setSingleShot(True)
+        self.check_timer.setInterval(CHECK_DELAY_MS)
+        self.check_timer.timeout.connect(self.check)
         top = QHBoxLayout()
         top.addWidget(QLabel(f"<b>{kind.capitalize()} file:</b>"))
         top.addWidget(self.path_label, 1)
@@ -71,13 +98,19 @@ class ConfigEditor(QWidget):
             top.addWidget(b)
         lay = QVBoxLayout(self)
         lay.addLayout(top)
-        lay.addWidget(self.editor, 1)
+        lay.addWidget(self.split, 1)
         lay.addWidget(self.status)
         lay.addWidget(self.problems)
         self.open_button.clicked.connect(self._choose)
         self.check_button.clicked.connect(self.check)
         self.save_button.clicked.connect(self._save)
         self.editor.modificationChanged.connect(self._dirty)
+        self.editor.textChanged.connect(self.check_timer.start)      # validated as you type
+
+    def resizeEvent(self, event: Any) -> None:
+        narrow = self.width() < STACK_BELOW_PX
+        self.split.setOrientation(Qt.Orientation.Vertical if narrow else Qt.Orientation.Horizontal)
+        super().resizeEvent(event)
 
     def load(self, path: Path) -> None:
         self.path = Path(path)
@@ -95,7 +128,8 @@ class ConfigEditor(QWidget):
         return self.editor.toPlainText()
 
     def check(self) -> bool:
-        """Validate the editor text; list the problems; True when valid."""
+        """Validate the editor text; list the problems (and show them in the form); True when valid."""
+        self.check_timer.stop()
         self.problems.clear()
         where = str(self.path) if self.path else f"<{self.kind}>"
         try:
@@ -107,9 +141,16 @@ class ConfigEditor(QWidget):
                 self.problems.addItem(item)
             self.status.setText(f"<span style='color:#B00020'>{len(exc.problems)} problem(s); "
                                 f"fix them before saving</span>")
+            self._checked(list(exc.problems))
             return False
         self.status.setText("<span style='color:#1B5E20'>valid</span>")
+        self._checked([])
         return True
+
+    def _checked(self, problems: list[str]) -> None:
+        self.problem_lines = problems
+        self.form.refresh(problems)
+        self.checked.emit(problems)
 
     def mark_saved(self) -> None:
         self.editor.document().setModified(False)
@@ -141,8 +182,8 @@ class SetupView(QWidget):
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
-        self.rig_editor = ConfigEditor("rig", self._validate_rig)
-        self.plan_editor = ConfigEditor("plan", self._validate_plan)
+        self.rig_editor = ConfigEditor("rig", self._validate_rig, RIG_FIELDS)
+        self.plan_editor = ConfigEditor("plan", self._validate_plan, PLAN_FIELDS)
         files = QTabWidget()
         files.addTab(self.rig_editor, "Rig file")
         files.addTab(self.plan_editor, "Plan file")
