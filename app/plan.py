@@ -156,6 +156,41 @@ class Quality(_Strict):
     relative_ci95_max: number(0.0, 100.0, lo_open=True) = 0.3
 
 
+class Prescan(_Strict):
+    """[prescan]: the drive-to-velocity transfer measured with a low multi-sine before the first point."""
+
+    enabled: bool = False
+    window: quantity("time", 0.05, 60.0, unit="s") = 0.5
+    levels: number(1, 6, integer=True) = 3
+    total_level: number(0.0, 10.0, lo_open=True) = 1.5
+    precision: number(0.0, 1.0, lo_open=True) = 0.02
+    repeat_after: quantity("time", 1.0, 86400.0, unit="s") = 600.0
+    table_fresh: quantity("time", 0.0, 30 * 86400.0, unit="s") = 3600.0
+
+    def worst_case_s(self, ramp_time_s: float = 0.3, discard_s: float = 0.1) -> float:
+        """Longest the pre-scan takes: every level's ramps, discard and window."""
+        return self.levels * (2.0 * ramp_time_s + discard_s + self.window)
+
+
+class Survey(_Strict):
+    """[survey]: the fast linear survey by multi-sine forcing (LINEAR flame only)."""
+
+    enabled: bool = False
+    max_iterations: number(1, 20, integer=True) = 6
+    lines_per_record: number(0, MAX_FREQUENCIES, integer=True) = 0
+
+
+class Refinement(_Strict):
+    """[refinement]: frequencies inserted where gain or phase change too much between neighbours."""
+
+    enabled: bool = False
+    gain_change: number(0.0, 10.0, lo_open=True) = 0.25
+    phase_change: quantity("angle", 0.0, 2 * math.pi, lo_open=True, unit="rad") = 0.5
+    sigmas: number(0.0, 100.0, lo_open=True) = 3.0
+    budget: number(0, MAX_POINTS, integer=True) = 10
+    min_spacing: Frequency = 5.0
+
+
 class FaultLimits(_Strict):
     pressure_max: quantity("pressure", 1.0, 1e5, unit="Pa") = 2000.0
     clip_fraction: number(0.5, 1.0, lo_open=True) = 0.98
@@ -188,6 +223,9 @@ class Plan(_Strict):
     tuning: Tuning = Tuning()
     quality: Quality = Quality()
     faults: FaultLimits = FaultLimits()
+    prescan: Prescan = Prescan()
+    survey: Survey = Survey()
+    refinement: Refinement = Refinement()
     source_path: str = ""
 
     @model_validator(mode="after")

@@ -17,6 +17,13 @@ amplitude commands a back-end actually sends, independently of any controller ab
   loop) can therefore never bring the drive back after a halt;
 * :meth:`CeilingGuard.arm` also sets the ceiling of the sweep about to start: the lower of
   the rig's (fixed at construction, never raised) and the plan's;
+* multi-sine mode (:meth:`CeilingGuard.request_multisine`): a sum of lines on a grid of one
+  period of N samples; the request gives its PEAK (the largest |sum| over the period,
+  evaluated 8 times finer than the samples, so a DAC's reconstruction between samples is
+  covered too), which must be within the ceiling. The envelope of the whole sum then ramps
+  exactly as a sine's amplitude does (soft start), and a change of waveform passes through
+  zero as a frequency change does. ``last_lines`` tells a simulator the analytic parts of the
+  last rendered block (one per line) so that it can answer each at its own frequency;
 * every rendered block and amplitude schedule is noted in the drive log
   (:mod:`drivers.drive_log`) when one is open, so what was put out can be audited from
   outside the process.
@@ -48,11 +55,31 @@ class InvalidDriveRequest(DriverError, ValueError):
 
 
 @dataclass(frozen=True)
+class MultiSine:
+    """One period of a multi-sine: line k has ``harmonics[k]`` cycles per ``period_samples`` samples.
+
+    ``shape`` is the period scaled to a peak of 1 (the envelope amplitude is the peak in volts)."""
+
+    period_samples: int
+    harmonics: tuple[int, ...]
+    amplitudes: tuple[float, ...]     # relative to the peak (amplitude_v / peak_v)
+    phases_rad: tuple[float, ...]
+    peak_v: float                     # of the sum at the requested amplitudes
+    shape: np.ndarray
+
+    def __eq__(self, other: object) -> bool:
+        return self is other
+
+    __hash__ = object.__hash__
+
+
+@dataclass(frozen=True)
 class _Pending:
-    """A frequency change waiting for the output to reach zero."""
+    """A frequency (or waveform) change waiting for the output to reach zero."""
 
     freq_hz: float
     amplitude_v: float
+    multi: MultiSine | None = None
 
 
 def _positive_finite(name: str, value: float) -> float:
@@ -102,7 +129,9 @@ class CeilingGuard:
         self._amp_v = 0.0          # envelope of the last emitted sample
         self._target_v = 0.0
         self._pending: _Pending | None = None
+        self._multi: MultiSine | None = None   # the waveform: None for a sine
         self._clip_events = 0
+        self.last_lines: list[tuple[float, np.ndarray]] | None = None
 
     # ----------------------------------------------------------------- properties
     @property
@@ -155,16 +184,63 @@ class CeilingGuard:
                     return              # zero is what a halted output gives anyway
                 raise DriveHalted(f"drive request {amplitude_v:g} V at {freq_hz:g} Hz refused: the output was "
                                   f"halted and stays at zero until a new sweep starts")
-            if freq_hz == self._freq_hz:
-                self._pending = None
-                self._target_v = amplitude_v
-            elif self._amp_v == 0.0:
-                self._pending = None
-                self._freq_hz = freq_hz
-                self._target_v = amplitude_v
-            else:
-                self._pending = _Pending(freq_hz, amplitude_v)
-                self._target_v = 0.0
+            self._change_locked(freq_hz, amplitude_v, None)
+
+    def _change_locked(self, freq_hz: float, amplitude_v: float, multi: MultiSine | None) -> None:
+        if freq_hz == self._freq_hz and multi is self._multi:
+            self._pending = None
+            self._target_v = amplitude_v
+        elif self._amp_v == 0.0:
+            self._pending = None
+            self._freq_hz, self._multi = freq_hz, multi
+            self._phase_rad = 0.0 if multi is not None else self._phase_rad
+            self._target_v = amplitude_v
+        else:
+            self._pending = _Pending(freq_hz, amplitude_v, multi)
+            self._target_v = 0.0
+
+    def request_multisine(self, period_samples: int, harmonics, amplitudes_v, phases_rad) -> float:
+        """Ask for Σ a_k cos(2π m_k n / N + φ_k) (N = ``period_samples``), ramped; returns its peak (V).
+
+        Refused with CeilingExceeded (nothing changed) when the peak of the sum is above the
+        ceiling; with InvalidDriveRequest for lines at or above half the sample rate."""
+        n = int(period_samples)
+        m = np.asarray(harmonics, dtype=float)
+        a = np.asarray(amplitudes_v, dtype=float)
+        ph = np.asarray(phases_rad, dtype=float)
+        if n < 2 or m.ndim != 1 or m.size == 0 or a.shape != m.shape or ph.shape != m.shape:
+            raise InvalidDriveRequest("multi-sine request: one amplitude and one phase per line, N >= 2")
+        if not (np.all(np.isfinite(a)) and np.all(a >= 0) and np.all(np.isfinite(ph))):
+            raise CeilingExceeded("multi-sine request refused: amplitudes must be finite and >= 0")
+        if np.any(m < 1) or np.any(m != np.round(m)) or np.any(m >= n / 2.0):
+            raise InvalidDriveRequest("multi-sine request refused: every line needs a whole number of "
+                                      "cycles per period, at least one and below half the sample rate")
+        fine = np.arange(8 * n) / (8.0 * n)
+        dense = (a[:, None] * np.cos(TWO_PI * np.outer(m, fine) + ph[:, None])).sum(axis=0)
+        peak_v = float(np.max(np.abs(dense)))
+        freq0 = self._fs_hz / n
+        if not math.isfinite(peak_v) or peak_v > self._ceiling_v:
+            raise CeilingExceeded(f"multi-sine request refused: its peak {peak_v:.4g} V is above the "
+                                  f"{self._ceiling_v:g} V peak ceiling (nothing was changed)")
+        if peak_v == 0.0:
+            self.request(freq0, 0.0)
+            return 0.0
+        shape = dense[::8] / peak_v
+        multi = MultiSine(n, tuple(int(x) for x in m), tuple(float(x) for x in a / peak_v),
+                          tuple(float(x) for x in ph), peak_v, shape)
+        with self._lock:
+            self._apply_halt_flag()
+            if self._latched:
+                raise DriveHalted(f"multi-sine request {peak_v:g} V peak refused: the output was halted "
+                                  f"and stays at zero until a new sweep starts")
+            self._change_locked(freq0, peak_v, multi)
+        return peak_v
+
+    @property
+    def multisine(self) -> MultiSine | None:
+        """The multi-sine being put out (None for a sine)."""
+        with self._lock:
+            return self._multi
 
     def ramp_down(self) -> None:
         """Ramp the output to zero (any pending frequency change is dropped)."""
@@ -218,14 +294,25 @@ class CeilingGuard:
             raise InvalidDriveRequest(f"ceiling guard: cannot render {n_samples!r} samples")
         with self._lock:
             self._apply_halt_flag()
-            if self._pending is None and self._amp_v == self._target_v:
+            multi_before = self._multi
+            involved = multi_before is not None or (self._pending is not None and self._pending.multi is not None)
+            if not involved and self._pending is None and self._amp_v == self._target_v:
                 out = self._steady(n)
-            else:
+                self.last_lines = None
+            elif not involved:
                 amp_v, phase_rad = self._advance(np.arange(1, n + 1, dtype=np.float64), quantum=1.0)
                 out = amp_v * np.sin(phase_rad)
+                self.last_lines = None
+            else:
+                f_before = self._freq_hz
+                amp_v, phase_rad, after = self._advance(np.arange(1, n + 1, dtype=np.float64), quantum=1.0,
+                                                        with_switch=True)
+                out, self.last_lines = self._lines(amp_v, phase_rad, after, (f_before, multi_before),
+                                                   (self._freq_hz, self._multi))
             if self._halt_flag:  # halt() arrived while this block was being computed
                 self._apply_halt_flag()
                 out[:] = 0.0
+                self.last_lines = [(f, np.zeros_like(z)) for f, z in (self.last_lines or [])] or None
             out = self._final_clip(out)
         drive_log.note(out, self._fs_hz, self._ceiling_v, self._latched)
         return out
@@ -293,7 +380,29 @@ class CeilingGuard:
         phase *= self._amp_v
         return phase
 
-    def _advance(self, k: np.ndarray, quantum: float) -> tuple[np.ndarray, np.ndarray]:
+    def _lines(self, amp_v: np.ndarray, phase_rad: np.ndarray, after: np.ndarray, before_mode, after_mode
+               ) -> tuple[np.ndarray, list[tuple[float, np.ndarray]]]:
+        """Samples and analytic parts (one per line, zero outside its part of the block) of a block
+        in which a multi-sine is involved; ``after`` marks the samples after a waveform switch."""
+        out = np.zeros(amp_v.size)
+        lines: list[tuple[float, np.ndarray]] = []
+        for mask, (freq_hz, multi) in ((~after, before_mode), (after, after_mode)):
+            if not mask.any() or freq_hz <= 0.0:
+                continue
+            env = np.where(mask, amp_v, 0.0)
+            if multi is None:
+                out += env * np.sin(phase_rad)
+                lines.append((freq_hz, env * np.exp(1j * (phase_rad - 0.5 * math.pi))))
+                continue
+            n = multi.period_samples
+            idx = np.mod(np.rint(phase_rad * (n / TWO_PI)).astype(np.int64), n)
+            out += env * multi.shape[idx]
+            theta = TWO_PI * idx / n
+            for m, a, ph in zip(multi.harmonics, multi.amplitudes, multi.phases_rad):
+                lines.append((freq_hz * m, env * a * np.exp(1j * (m * theta + ph))))
+        return out, lines
+
+    def _advance(self, k: np.ndarray, quantum: float, with_switch: bool = False):
         """Envelope and phase at offsets ``k`` (samples after the last emitted one); moves state to k[-1].
 
         ``k`` are multiples of ``quantum`` samples (1 for render, one step for schedules). A
@@ -309,7 +418,7 @@ class CeilingGuard:
             if k.size:
                 self._amp_v = float(amp_v[-1])
                 self._phase_rad = float(phase[-1] % TWO_PI)
-            return amp_v, phase
+            return (amp_v, phase, np.zeros(k.size, dtype=bool)) if with_switch else (amp_v, phase)
         pend = self._pending
         # first point at exactly zero (at least one point on, so a zero is always emitted)
         m = max(1, math.ceil(a0 / (self._step_v * quantum) - SNAP)) * quantum
@@ -317,13 +426,16 @@ class CeilingGuard:
         down_v = np.where(k >= m, 0.0, _toward(a0, 0.0, travel_v, snap_v))
         amp_v = np.where(after, _toward(0.0, pend.amplitude_v, (k - m) * self._step_v, snap_v), down_v)
         phi_m = phi0 + m * self._dphi(f0)
-        phase = np.where(after, phi_m + (k - m) * self._dphi(pend.freq_hz), phi0 + k * self._dphi(f0))
+        # a new multi-sine starts at the beginning of its period (its phase origin)
+        phi_new = 0.0 if pend.multi is not None else phi_m
+        phase = np.where(after, phi_new + (k - m) * self._dphi(pend.freq_hz), phi0 + k * self._dphi(f0))
         if k.size:
             self._amp_v = float(amp_v[-1])
             self._phase_rad = float(phase[-1] % TWO_PI)
             if k[-1] >= m:  # reached zero: the new frequency takes over
                 self._freq_hz, self._target_v, self._pending = pend.freq_hz, pend.amplitude_v, None
-        return amp_v, phase
+                self._multi = pend.multi
+        return (amp_v, phase, after) if with_switch else (amp_v, phase)
 
     def _final_clip(self, values: np.ndarray) -> np.ndarray:
         """Belt-and-braces only: the envelope is already bounded; count any would-be clip as a bug."""

@@ -80,6 +80,19 @@ class SineDrive(Protocol):
 
 
 @runtime_checkable
+class MultiSineDrive(Protocol):
+    """Produces a multi-sine drive: Σ a_k cos(2π m_k n / N + φ_k), N samples per period.
+
+    The PEAK of the sum (not of each line) must be within the ceiling; the envelope of the
+    whole sum is ramped like a sine's amplitude (soft start), through the ceiling guard. The
+    status reports the grid frequency fs / N and the peak as its amplitude."""
+
+    def set_multisine(self, period_samples: int, harmonics: tuple[int, ...], amplitudes_v: tuple[float, ...],
+                      phases_rad: tuple[float, ...]) -> float:
+        """Request it (ramped); returns the peak in volts; raises CeilingExceeded above the ceiling."""
+
+
+@runtime_checkable
 class Acquirer(Protocol):
     """Acquires named input channels in blocks, synchronously with the drive."""
 

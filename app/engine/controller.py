@@ -24,6 +24,14 @@ unreachable under the ceiling, or not converged within the allowed steps.
 * An unreachable target is reported early: measured below target at the ceiling, or a
   prediction clearly above the ceiling after a step near it.
 
+* Seeded by a pre-scan (``AmplitudeController.seed_transfer``): the drive-to-velocity gain
+  measured at every plan frequency with a low multi-sine. A point opens at the voltage the
+  seed predicts (lower only where its uncertainty is large), corrected for the amplitude
+  dependence the sweep has seen so far: log(measured / seed gain) fitted as α + β V² over the
+  points already tuned (a loudspeaker's output compresses roughly with the square of the
+  drive at moderate levels; from memory), each term shrunk toward zero while few points
+  support it.
+
 All amplitudes here are peak values. The phase of the drive-to-velocity transfer is not
 needed to set an amplitude, so only its magnitude is learned.
 
@@ -296,6 +304,7 @@ class AmplitudeController:
     """
 
     ERROR_MEMORY = 5
+    SEED_CORRECTION_LIMIT = 1.3
 
     def __init__(self, settings: ControllerSettings, prior: Sequence[tuple[float, float]] = (),
                  proportional: bool = False):
@@ -304,6 +313,50 @@ class AmplitudeController:
         self.proportional = proportional
         self._last_drive_v: float | None = None
         self._errors: list[float] = []      # measured / predicted gain at the first window of recent points
+        self._seed: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None   # f, log gain, rel sigma
+        self._seed_residuals: dict[float, tuple[float, float]] = {}          # f -> (V², log(meas/seed))
+
+    # ------------------------------------------------------------- pre-scan seed
+    def seed_transfer(self, freqs_hz: Sequence[float], ratio_per_volt: Sequence[float],
+                      rel_sigma: Sequence[float]) -> None:
+        """Open every later point from this table (the pre-scan's), finite positive entries only."""
+        f = np.asarray(freqs_hz, dtype=float)
+        g = np.asarray(ratio_per_volt, dtype=float)
+        r = np.asarray(rel_sigma, dtype=float)
+        ok = np.isfinite(f) & np.isfinite(g) & (g > 0) & (f > 0)
+        if not ok.any():
+            self._seed = None
+            return
+        order = np.argsort(f[ok])
+        r_ok = np.where(np.isfinite(r[ok]), r[ok], 1.0)
+        self._seed = (f[ok][order], np.log(g[ok][order]), np.clip(r_ok[order], 0.0, 10.0))
+        self._seed_residuals.clear()
+
+    @property
+    def seeded(self) -> bool:
+        return self._seed is not None
+
+    def seed_gain(self, freq_hz: float) -> tuple[float, float] | None:
+        """(ratio per volt, relative sigma) of the seed at ``freq_hz`` (log-interpolated), or None."""
+        if self._seed is None:
+            return None
+        f, lg, r = self._seed
+        return float(np.exp(np.interp(freq_hz, f, lg))), float(np.interp(freq_hz, f, r))
+
+    def _seed_correction(self, drive_v: float) -> float:
+        """exp(α + β x), x = (V / ceiling)²: the amplitude dependence seen so far against the seed.
+
+        1 with no points; ridge toward zero (one point moves α by half its residual, β needs a
+        spread of levels), and never beyond a factor ``SEED_CORRECTION_LIMIT`` either way."""
+        if not self._seed_residuals:
+            return 1.0
+        c2 = self.settings.ceiling_v ** 2
+        x = np.array([p[0] for p in self._seed_residuals.values()]) / c2
+        y = np.array([p[1] for p in self._seed_residuals.values()])
+        a = np.vstack([np.ones_like(x), x]).T
+        coef = np.linalg.solve(a.T @ a + np.diag([1.0, 0.05]), a.T @ y)
+        limit = math.log(self.SEED_CORRECTION_LIMIT)
+        return float(np.exp(np.clip(coef[0] + coef[1] * min(drive_v * drive_v / c2, 1.0), -limit, limit)))
 
     def start_point(self, freq_hz: float, target_ratio: float) -> PointTuner:
         s = self.settings
@@ -312,6 +365,14 @@ class AmplitudeController:
         if self.proportional:
             if self._last_drive_v is not None:
                 start = self._last_drive_v
+        elif self._seed is not None and not (self.memory.predict_cautious(freq_hz, target_ratio)[1] == "exact"):
+            seed_g, rel = self.seed_gain(freq_hz)
+            start = target_ratio / seed_g
+            for _ in range(4):          # the correction depends on the voltage it gives
+                start = target_ratio / (seed_g * self._seed_correction(start))
+            gain = target_ratio / start
+            if rel > 0.5 * s.tolerance:   # an uncertain seed: open lower, within the soft-start promise
+                start /= 1.0 + 2.0 * rel
         else:
             gain, kind = self.memory.predict_cautious(freq_hz, target_ratio)
             if gain is not None and gain > 0:
@@ -349,5 +410,10 @@ class AmplitudeController:
 
     def learn(self, freq_hz: float, target_ratio: float, drive_v: float, measured_ratio: float) -> None:
         self.memory.learn(freq_hz, target_ratio, drive_v, measured_ratio)
+        if self._seed is not None and drive_v > 0 and measured_ratio > 0 and math.isfinite(measured_ratio):
+            seed_g, rel = self.seed_gain(freq_hz)
+            if rel <= 0.25:
+                self._seed_residuals[round(freq_hz, 6)] = (drive_v * drive_v,
+                                                           math.log(measured_ratio / drive_v / seed_g))
         if drive_v > 0:
             self._last_drive_v = drive_v

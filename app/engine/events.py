@@ -110,6 +110,27 @@ class PointSettled(Event):
 
 
 @dataclass(frozen=True)
+class TransferMeasured(Event):
+    """The pre-scan's drive-to-velocity transfer at every plan frequency, or why there was none.
+
+    ``ratio_per_volt`` is |u'_ref|/u_mean (peak) per peak volt of the line's drive, NaN where
+    the line was lost in the noise; ``rel_sigma`` its relative standard uncertainty; ``phase_rad``
+    arg(u'_ref / drive reference) where the rig records a drive reference, else NaN.
+    ``skipped`` is empty when the pre-scan was made."""
+
+    freqs_hz: tuple[float, ...]
+    ratio_per_volt: tuple[float, ...]
+    rel_sigma: tuple[float, ...]
+    phase_rad: tuple[float, ...]
+    duration_s: float              # drive-on time of the pre-scan (simulated time on a paced back-end)
+    peak_drive_v: float            # largest peak of the multi-sine
+    total_ratio: float             # Σ_k |u'_k|/u_mean at the last level (bound on the total forcing)
+    levels: int
+    skipped: str = ""
+    wall_time_s: float = field(default_factory=time.time)
+
+
+@dataclass(frozen=True)
 class FaultRaised(Event):
     name: str                 # stable fault name, e.g. "input-clipping"
     message: str              # what happened, in plain words, naming the channel/point

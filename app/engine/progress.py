@@ -10,7 +10,8 @@ Result lines number points from 1 and show the phase as people read it everywher
 (app.core.phase: degrees, unwrapped along frequency per forcing amplitude, ±95 %), over
 the points settled so far plus the run's kept points given as ``known`` (re-acquire,
 resume), so a line reads what ``review`` and the export will show for an ascending sweep.
-The finish line counts flagged points among those settled.
+The finish line counts flagged points among those settled. The pre-scan's transfer is shown
+as one summary line and a text plot of its gain per volt against frequency (log scale).
 
 Imports: standard library, numpy, rich, ``app.core.phase`` and ``app.engine.events`` only.
 """
@@ -29,7 +30,7 @@ from rich.text import Text
 
 from ..core.phase import phase_as_read_deg
 from .events import (DriveChanged, Event, FaultRaised, PointSettled, StateChanged, SweepFinished,
-                     SweepStarted, TuningStep)
+                     SweepStarted, TransferMeasured, TuningStep)
 
 _STOP = object()
 
@@ -62,7 +63,8 @@ class ProgressDisplay:
                              float(r.velocity.amplitude_ratio), float(r.gain), float(r.gain_ci95),
                              float(r.phase_rad), float(r.phase_ci95_rad), event.drive_v,
                              tuple(dict.fromkeys((*event.flags, *map(str, getattr(r, "warnings", ()) or ()))))))
-        elif isinstance(event, (StateChanged, DriveChanged, TuningStep, FaultRaised, SweepStarted, SweepFinished)):
+        elif isinstance(event, (StateChanged, DriveChanged, TuningStep, FaultRaised, SweepStarted, SweepFinished,
+                                TransferMeasured)):
             self._queue.put(event if not isinstance(event, SweepStarted)
                             else ("started", event.n_points, event.run_label, event.backend))
 
@@ -113,6 +115,8 @@ class ProgressDisplay:
             s["drive_v"], s["ceiling_v"], s["freq_hz"] = item.amplitude_v, item.ceiling_v, item.freq_hz
         elif isinstance(item, TuningStep):
             s["error"] = item.measured_ratio / item.target_ratio - 1.0
+        elif isinstance(item, TransferMeasured):
+            return transfer_text(item)
         elif isinstance(item, FaultRaised):
             style = "bold red" if item.fatal else "yellow"
             where = f"point {item.point_index + 1}: " if item.point_index is not None else ""
@@ -168,3 +172,31 @@ class ProgressDisplay:
             bar = f" [{'#' * filled}{'.' * (20 - filled)}] of {ceiling:g} V"
         freq = "" if math.isnan(s["freq_hz"]) else f"  {s['freq_hz']:.1f} Hz"
         return Text(f"point {point}  {s['state']}{freq}{err}  drive {s['drive_v']:.3f} V{bar}  ETA {eta}")
+
+
+SPARK = "▁▂▃▄▅▆▇█"
+
+
+def transfer_text(ev: TransferMeasured) -> Text:
+    """The pre-scan in two lines: a summary, and |u'/u_mean| per volt along frequency (log scale,
+    one character per line; '·' where a line was lost in the noise)."""
+    if ev.skipped:
+        return Text(f"  pre-scan skipped: {ev.skipped}", style="dim")
+    g = [x for x in ev.ratio_per_volt if math.isfinite(x) and x > 0]
+    rel = sorted(r for r in ev.rel_sigma if math.isfinite(r))
+    head = (f"  pre-scan: {len(ev.freqs_hz)} lines {min(ev.freqs_hz):g}-{max(ev.freqs_hz):g} Hz, {ev.levels} "
+            f"level{'s' if ev.levels != 1 else ''}, {ev.duration_s:.1f} s, peak drive {ev.peak_drive_v:.3g} V, "
+            f"total |u'|/u {ev.total_ratio:.3g}")
+    if not g:
+        return Text(head + "; every line lost in the noise", style="yellow")
+    head += (f"; gain {min(g):.3g}-{max(g):.3g} per V, median uncertainty "
+             f"{rel[len(rel) // 2] * 100 if rel else math.nan:.1f} %")
+    lo, hi = math.log(min(g)), math.log(max(g))
+    chars = []
+    for x in ev.ratio_per_volt:
+        if not (math.isfinite(x) and x > 0):
+            chars.append("·")
+            continue
+        level = 0 if hi <= lo else int(round((math.log(x) - lo) / (hi - lo) * (len(SPARK) - 1)))
+        chars.append(SPARK[level])
+    return Text(head + "\n  gain per volt (log): " + "".join(chars))

@@ -5,7 +5,8 @@ only way to change state: it takes a lock, refuses anything not in the table wit
 ``IllegalTransition`` and publishes a ``StateChanged`` event. Terminal states have no exits:
 an engine runs one sweep.
 
-Per point the engine goes preparing -> tuning -> settling -> recording -> evaluating ->
+Before the first point (when the plan asks for it) the engine goes preparing -> pre-scan ->
+preparing. Per point the engine goes preparing -> tuning -> settling -> recording -> evaluating ->
 storing -> preparing (next point). ``paused`` holds the drive at zero between steps;
 ``winding-down`` ramps the drive to zero before ``finished``, ``aborted`` or ``faulted``;
 ``halted`` is reached from anywhere, with the outputs already zeroed at once.
@@ -22,6 +23,7 @@ from .events import Event, StateChanged
 
 IDLE = "idle"
 PREPARING = "preparing"
+PRESCAN = "pre-scan"
 TUNING = "tuning"
 SETTLING = "settling"
 RECORDING = "recording"
@@ -39,9 +41,12 @@ TERMINAL = frozenset({FINISHED, ABORTED, HALTED, FAULTED})
 # state -> the states it may go to. Halt is allowed from every live state.
 TRANSITIONS: dict[str, frozenset[str]] = {
     IDLE: frozenset({PREPARING, WINDING_DOWN, HALTED}),
-    PREPARING: frozenset({TUNING, PAUSED, WINDING_DOWN, HALTED}),
+    PREPARING: frozenset({TUNING, PRESCAN, PAUSED, WINDING_DOWN, HALTED}),
+    # the drive-to-velocity transfer by a low multi-sine: before the first point, or before
+    # re-tuning after a long pause; then back to where it was called from
+    PRESCAN: frozenset({PREPARING, TUNING, WINDING_DOWN, HALTED}),
     # tuning -> preparing: the point was skipped (unreachable target, pressure limit)
-    TUNING: frozenset({SETTLING, PREPARING, PAUSED, WINDING_DOWN, HALTED}),
+    TUNING: frozenset({SETTLING, PREPARING, PRESCAN, PAUSED, WINDING_DOWN, HALTED}),
     SETTLING: frozenset({RECORDING, PAUSED, WINDING_DOWN, HALTED}),
     # recording is never paused: the record finishes, is evaluated and stored first
     RECORDING: frozenset({EVALUATING, WINDING_DOWN, HALTED}),

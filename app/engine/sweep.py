@@ -45,7 +45,7 @@ from drivers.protocols import (Acquirer, Advisories, Armable, EmergencyHalt, Ide
 from . import states as S
 from .controller import AmplitudeController, ControllerSettings, Decision, PointTuner
 from .events import (BlockAcquired, DriveChanged, EventBus, FaultRaised, PointSettled, SweepFinished,
-                     SweepStarted, TuningStep)
+                     SweepStarted, TransferMeasured, TuningStep)
 from .faults import Finding, SignalChecks, ended_action, fault_event
 
 
@@ -128,14 +128,16 @@ class SweepEngine:
 
     ``points`` restricts the run to those plan indices (re-acquiring or resuming a run);
     ``wait_for_store`` makes the store step wait for a storing subscriber's acknowledgement;
-    ``prior`` is a (freq_hz, ratio per volt) table from an earlier run on the same rig.
+    ``prior`` is a (freq_hz, ratio per volt) table from an earlier run on the same rig, made
+    ``prior_age_s`` seconds ago (None: unknown); a fresh one makes the pre-scan unnecessary.
     """
 
     def __init__(self, plan: Any, rig: Any, drive: SineDrive, bus: EventBus, *,
                  acquirer: Acquirer | None = None, controller: AmplitudeController | None = None,
                  prior: tuple[tuple[float, float], ...] = (), backend_name: str = "",
                  run_label: str = "", wait_for_store: bool = False, points: list[int] | None = None,
-                 measure: Callable[..., Any] | None = None, evaluate: Callable[..., Any] | None = None):
+                 measure: Callable[..., Any] | None = None, evaluate: Callable[..., Any] | None = None,
+                 prior_age_s: float | None = None):
         if not isinstance(drive, SineDrive):
             raise TypeError("the back-end cannot produce a sine drive (SineDrive)")
         self.plan, self.rig, self.bus = plan, rig, bus
@@ -185,6 +187,10 @@ class SweepEngine:
         monitor_blocks = max(4, math.ceil(OUTPUT_MONITOR_MEMORY_S / max(rig.acquisition.block_duration, 1e-3)))
         self._recent_drive_v: deque[float] = deque([0.0], maxlen=monitor_blocks)
         self._fatal_event: FaultRaised | None = None
+        self._prior = tuple(t.prior) + tuple(prior)
+        self._prior_age_s = prior_age_s
+        self.transfer: TransferMeasured | None = None   # the pre-scan's result (or why it was skipped)
+        self._prescan_due = False
 
     # ================================================================== commands
     @property
@@ -326,6 +332,34 @@ class SweepEngine:
         # drive off: the light level with a burning flame, and every sensor alive
         base = self._take(int(round(max(0.2, self.plan.timing.tuning_window) * self._fs)), S.PREPARING)
         self._react(self.checks.set_baseline(base, self._channels), skip_ok=False)
+        if self.points:
+            self._prescan(return_to=S.PREPARING)
+
+    def _prescan(self, return_to: str) -> None:
+        """The transfer pre-scan (``prescan``), or a TransferMeasured saying why there is none."""
+        from . import prescan
+
+        why = prescan.skip_reason(self.plan, self.drive, self._prior, self._prior_age_s)
+        if why:
+            self.transfer = TransferMeasured((), (), (), (), 0.0, 0.0, 0.0, 0, skipped=why)
+        else:
+            self._set_state(S.PRESCAN)
+            self.transfer = prescan.PreScan(self).run()
+            self._set_state(return_to)
+        self.bus.publish(self.transfer)
+
+    def _set_multisine(self, grid: Any, amplitudes_v: Any, phases_rad: Any) -> float:
+        """Request a multi-sine (through the back-end's guard); returns its peak volts."""
+        with self._cmd.cond:
+            self._raise_if_ending()
+            peak_v = float(self.drive.set_multisine(grid.period_samples, tuple(grid.harmonics),
+                                                    tuple(float(a) for a in amplitudes_v),
+                                                    tuple(float(p) for p in phases_rad)))
+            self._freq_hz, self._drive_v = grid.grid_hz, peak_v
+            if peak_v > 0:
+                self._drive_on = True
+        self.bus.publish(DriveChanged(freq_hz=grid.grid_hz, amplitude_v=peak_v, ceiling_v=self.ceiling_v))
+        return peak_v
 
     def _finish(self, reason: str) -> None:
         """The one clean-up: drive to zero (ramped, or at once on halt and after a driver error),
@@ -436,6 +470,9 @@ class SweepEngine:
         """Tune, then settle; a pause in between re-tunes. Returns the drive voltage to record at."""
         self._set_state(S.TUNING)
         while True:
+            if self._prescan_due:         # paused for long: the speaker and the flame may have changed
+                self._prescan_due = False
+                self._prescan(return_to=S.TUNING)
             self._tuner = self.controller.start_point(point.freq_hz, point.peak_ratio)
             decision = self._tune(point)
             if decision is None:          # paused and resumed: tune again
@@ -581,9 +618,13 @@ class SweepEngine:
             return False
         self._ramp_to_zero(S.PAUSED)      # first: "paused" means the drive is at zero
         self._set_state(S.PAUSED)
+        paused_at = time.monotonic()
         with self._cmd.cond:
             while self._cmd.pause and not (self._cmd.halt or self._cmd.abort or self._cmd.stop):
                 self._cmd.cond.wait()
+        if (self.transfer is not None and not self.transfer.skipped
+                and time.monotonic() - paused_at > self.plan.prescan.repeat_after):
+            self._prescan_due = True
         self._raise_if_ending()
         if self._cmd.stop:
             raise _Stopped()

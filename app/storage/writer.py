@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 
 from .. import __version__
-from ..engine.events import Event, EventBus, FaultRaised, PointSettled, SweepFinished, SweepStarted
+from ..engine.events import Event, EventBus, FaultRaised, PointSettled, SweepFinished, SweepStarted, TransferMeasured
 from ..errors import FlamebodeError
 from . import index
 from .record import fsync_dir, write_record
@@ -109,6 +109,16 @@ def analysis_from_result(result: Any) -> dict[str, Any]:
         "quality": {str(k): _num(v) for k, v in dict(quality).items()},
         "warnings": [str(w) for w in (getattr(result, "warnings", ()) or ())],
     }
+
+
+def transfer_info(ev: TransferMeasured) -> str:
+    """The pre-scan as one JSON text for run_info["prescan"] (non-finite numbers as null)."""
+    def clean(values: Any) -> list[float | None]:
+        return [float(v) if np.isfinite(v) else None for v in values]
+    return json.dumps({"skipped": ev.skipped, "duration_s": ev.duration_s, "peak_drive_v": ev.peak_drive_v,
+                       "total_ratio": ev.total_ratio, "levels": ev.levels, "freqs_hz": clean(ev.freqs_hz),
+                       "ratio_per_volt": clean(ev.ratio_per_volt), "rel_sigma": clean(ev.rel_sigma),
+                       "phase_rad": clean(ev.phase_rad), "wall_time_s": ev.wall_time_s})
 
 
 def plan_points(plan: Any) -> list[tuple[int, float, float]]:
@@ -217,7 +227,7 @@ class RunWriter:
         """Engine thread: copy what must be kept and enqueue; no file work here."""
         if isinstance(event, PointSettled):
             self._queue.put(("point", event, np.array(event.record, copy=True)))
-        elif isinstance(event, (SweepStarted, FaultRaised, SweepFinished)):
+        elif isinstance(event, (SweepStarted, FaultRaised, SweepFinished, TransferMeasured)):
             self._queue.put(("event", event, None))
 
     @property
@@ -328,6 +338,9 @@ class RunWriter:
                     index.insert_fault(conn, {k: getattr(event, k) for k in
                                               ("wall_time_s", "name", "message", "action", "advice",
                                                "point_index", "fatal")})
+                elif isinstance(event, TransferMeasured):
+                    # the pre-scan: duration, level and the transfer (NaN -> null), or why it was skipped
+                    index.set_info(conn, {"prescan": transfer_info(event)})
                 elif isinstance(event, SweepFinished):
                     index.set_info(conn, {"last_finish_reason": event.reason,
                                           "last_finish_detail": event.detail,

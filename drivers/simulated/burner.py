@@ -1,7 +1,7 @@
 """The simulated burner back-end: a rig to rehearse on and to run every test against.
 
 ``SimulatedBurner`` behaves like a real rig behind the driver protocols (SineDrive,
-Acquirer, Identified, Stoppable, EmergencyHalt, Paced). Each drive sample comes from the
+MultiSineDrive, Acquirer, Identified, Stoppable, EmergencyHalt, Paced). Each drive sample comes from the
 ceiling guard; each block is synthesised from the guard's samples through the true
 physics (loudspeaker → acoustic network with flame feedback → sensors, light chain,
 ADC), with coloured noise, slow drift of temperature and flow, and the scenario's faults.
@@ -53,7 +53,7 @@ from drivers.protocols import Availability, Block, DriveStatus
 
 from .faults import FaultClock, RigEvent, active_mask
 from .holder import holder_plane_m, mount
-from .model import BurnerModel, Oscillation
+from .model import BurnerModel, Forced, Oscillation
 from .noise import ColouredNoise, adc, shot_noise
 from .scenario import Scenario, load_scenario
 from .selfexcited import self_excitation
@@ -259,19 +259,31 @@ class SimulatedBurner:
     def _synthesise(self) -> tuple[np.ndarray, DriveStatus]:
         n, i0, fs = self._block_n, self._index, self._fs
         drive_v, cps, status = self._render()
+        lines = self.guard.last_lines       # a multi-sine is involved: its analytic parts, line by line
         factor = self._faults.drive_factor(i0, n)  # output_gain: the chain delivers factor × the guard's samples
         delivered_v = drive_v if factor is None else drive_v * factor
-        z = analytic_drive(delivered_v, self._prev_drive_v, cps)
-        self._prev_drive_v = float(delivered_v[-1])
-        state = self.model.drift_state(i0 / fs + 0.5 * n / fs)
         disconnected = active_mask(self._faults.disconnect, i0, n)
-        if disconnected is not None:
-            z = np.where(disconnected, 0.0, z)  # the speaker no longer moves; the reference goes on
+        state = self.model.drift_state(i0 / fs + 0.5 * n / fs)
+        if lines is None:
+            z = analytic_drive(delivered_v, self._prev_drive_v, cps)
+            if disconnected is not None:
+                z = np.where(disconnected, 0.0, z)  # the speaker no longer moves; the reference goes on
+
+            def respond(flame: bool, oscillation: Oscillation | None = None) -> Forced:
+                return self.model.forced(z, cps * fs, state, flame=flame, oscillation=oscillation)
+        else:
+            parts = [(f, (zk if factor is None else zk * factor)) for f, zk in lines]
+            if disconnected is not None:
+                parts = [(f, np.where(disconnected, 0.0, zk)) for f, zk in parts]
+
+            def respond(flame: bool, oscillation: Oscillation | None = None) -> Forced:
+                return self._superposed(parts, state, flame, oscillation)
+        self._prev_drive_v = float(delivered_v[-1])
         if self._faults.flame_out_index <= i0 or self.holder_plane_m is not None:  # out, or in the holder
             flame_mask = np.zeros(n, dtype=bool)
-            forced = self.model.forced(z, cps * fs, state, flame=False)
+            forced = respond(False)
         else:
-            hot = self.model.forced(z, cps * fs, state, flame=True, oscillation=self._oscillation(i0, n))
+            hot = respond(True, self._oscillation(i0, n))
             known = len(self._faults.events)
             out_at = self._faults.flame_out_in_block(i0, n, hot.amplitude_ratio)
             for event in self._faults.events[known:]:
@@ -281,8 +293,50 @@ class SimulatedBurner:
             if flame_mask.all():
                 forced = hot
             else:
-                forced = hot.where(flame_mask, self.model.forced(z, cps * fs, state, flame=False))
+                forced = hot.where(flame_mask, respond(False))
         return self._channels_volts(delivered_v, forced, flame_mask, state), status
+
+    def _superposed(self, parts: list[tuple[float, np.ndarray]], state, flame: bool,
+                    oscillation: Oscillation | None) -> Forced:
+        """The forced response to a multi-sine: the sum of each line's own forced response.
+
+        Linear superposition, line by line through the true physics (``model.forced``), is
+        right for the linear flame; the flame's clip acts on the summed heat release, so a
+        saturating flame is limited in total (its intermodulation is not modelled). The
+        amplitude envelope is bounded by the sum of the lines' envelopes (the blow-off check
+        errs on the safe side)."""
+        n = self._block_n
+        n_s = len(self.model.sensor_positions_m)
+        pressure = np.zeros((n_s, n), dtype=complex)
+        heat = np.zeros(n)
+        envelope = np.zeros(n)
+        first = True
+        for f_hz, zk in parts:
+            if not np.any(zk):
+                continue
+            one = self.model.forced(zk, np.full(n, f_hz), state, flame=flame,
+                                    oscillation=oscillation if first else None)
+            first = False
+            pressure += one.pressure_pa
+            heat += one.heat_release_ratio
+            envelope += one.amplitude_ratio
+        if first and oscillation is not None and flame:
+            one = self.model.forced(np.zeros(n, dtype=complex), np.zeros(n), state, flame=True,
+                                    oscillation=oscillation)
+            pressure, heat, envelope = one.pressure_pa, one.heat_release_ratio, one.amplitude_ratio
+        sat = self.model.flame.saturation
+        if flame and sat is not None:
+            np.clip(heat, -sat, sat, out=heat)
+        return Forced(pressure, heat, envelope)
+
+    # ------------------------------------------------------------------ multi-sine drive
+    def set_multisine(self, period_samples: int, harmonics, amplitudes_v, phases_rad) -> float:
+        """Multi-sine drive through the ceiling guard (peak of the sum within the ceiling); returns the peak."""
+        if self._stopped:
+            raise DriverError("simulated burner: stopped; call start() before driving again")
+        if not self._faults.answers(self._index + 1):
+            self._hang(2.0, "set_multisine")
+        return self.guard.request_multisine(period_samples, harmonics, amplitudes_v, phases_rad)
 
     def _oscillation(self, start_index: int, n_samples: int) -> Oscillation | None:
         """The self-excited oscillation over this block (None on a linearly stable rig)."""
