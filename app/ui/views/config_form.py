@@ -74,25 +74,43 @@ class ConfigForm(QWidget):
         outer.addWidget(self.status)
         outer.addStretch(1)
 
+    def resizeEvent(self, event: Any) -> None:
+        super().resizeEvent(event)
+        self._fit_height()
+
+    def _fit_height(self) -> None:
+        """A scroll area sizes its widget by the size hint, not by the height wrapped messages
+        need at the width it really has: ask the layout for that height and keep it."""
+        need = self.layout().heightForWidth(self.width())
+        if need > 0 and need != self.minimumHeight():
+            self.setMinimumHeight(need)
+
     # -------------------------------------------------------------- text -> form
-    def refresh(self, problems: list[str]) -> None:
-        """Fields from the text (the one being typed in keeps its text); problems beside their keys."""
+    def refresh(self, problems: list[str]) -> list[str]:
+        """Fields from the text (the one being typed in keeps its text); problems beside their keys.
+        Returns the keys whose problem is new (to bring into view)."""
         try:
             self._values = read_values(self.text_edit.toPlainText(), self.keys)
         except tomllib.TOMLDecodeError:
             pass                                  # keep the last readable values; the problem is listed
         for key, edit in self.fields.items():
-            if not edit.hasFocus():
+            if not edit.hasFocus() and edit.text() != display(self._values.get(key)):
                 edit.setText(display(self._values.get(key)))
+                edit.setCursorPosition(0)         # the start of a long value in view, not its end
         placed: set[int] = set()
+        new: list[str] = []
         for key, err in self.errors.items():
             mine = [i for i, p in enumerate(problems) if p.startswith(f"{key}:") or p.startswith(f"{key}[")]
             placed.update(mine)
+            if mine and err.isHidden():
+                new.append(key)
             err.setText("\n".join(problems[i][len(key) + 1:].strip() for i in mine))
             err.setVisible(bool(mine))
         others = [p for i, p in enumerate(problems) if i not in placed]
         self.status.setText("" if not others else "<span style='%s'>%s</span>" % (
             ERROR_STYLE, "<br>".join(_html(p) for p in others)))
+        self._fit_height()
+        return new
 
     # -------------------------------------------------------------- form -> text
     def _field_edited(self, key: str, typed: str) -> None:

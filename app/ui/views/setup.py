@@ -75,7 +75,7 @@ class ConfigEditor(QWidget):
         self.problems.setMaximumHeight(110)
         self.status = QLabel("")
         self.form = ConfigForm(self.editor, fields)
-        form_scroll = QScrollArea()
+        self.form_scroll = form_scroll = QScrollArea()
         form_scroll.setWidget(self.form)
         form_scroll.setWidgetResizable(True)
         form_scroll.setFrameShape(QFrame.Shape.NoFrame)
@@ -110,6 +110,7 @@ class ConfigEditor(QWidget):
     def resizeEvent(self, event: Any) -> None:
         narrow = self.width() < STACK_BELOW_PX
         self.split.setOrientation(Qt.Orientation.Vertical if narrow else Qt.Orientation.Horizontal)
+        self.problems.setMaximumHeight(60 if self.height() < 560 else 110)   # each message is in the form too
         super().resizeEvent(event)
 
     def load(self, path: Path) -> None:
@@ -149,7 +150,10 @@ class ConfigEditor(QWidget):
 
     def _checked(self, problems: list[str]) -> None:
         self.problem_lines = problems
-        self.form.refresh(problems)
+        self.problems.setVisible(bool(problems))          # no empty box taking room from the text
+        new = self.form.refresh(problems)
+        if new and not any(f.hasFocus() for f in self.form.fields.values()):
+            self.form_scroll.ensureWidgetVisible(self.form.fields[new[0]].parentWidget())   # field and message
         self.checked.emit(problems)
 
     def mark_saved(self) -> None:
