@@ -6,6 +6,13 @@ file). The rig's pressure and light channels must be in the record; the missing 
 named before anything else. The forcing frequency comes from
 ``--freq-hz``, the record's own attributes, or is estimated from the drive reference
 channel (or the first pressure channel when none is recorded).
+
+The point gets the same quality flags a sweep gives it (``app.core.quality.quality_flags``
+against the ``[quality]`` limits of ``--plan``, or the plan defaults without one); flags the
+sweep raised while acquiring (tuning, faults) are not in a record's samples and are not
+re-derived. ``--json`` carries the gain and phase intervals, the velocity ratio's standard
+uncertainty (noise alone and with every stated systematic input), the error budget's terms,
+the graded warnings and the flags.
 """
 
 from __future__ import annotations
@@ -24,6 +31,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--rig", required=True, help="rig file (TOML) describing sensors, light channel and gas")
     p.add_argument("--freq-hz", type=float, default=None, help="forcing frequency; estimated when omitted")
     p.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
+    p.add_argument("--plan", default=None,
+                   help="plan file whose [quality] limits decide the flags (default: the plan defaults)")
 
 
 HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
@@ -90,7 +99,19 @@ def _estimate_freq(data, channels, sample_rate_hz, rig) -> tuple[float, str]:
     return estimate_frequency(data[list(channels).index(source)], sample_rate_hz, f_min_hz=5.0), source
 
 
+def _quality_limits(plan_path: str | None):
+    """The [quality] table of ``plan_path``, or the plan defaults (as a sweep without one)."""
+    from ..plan import Quality
+
+    if not plan_path:
+        return Quality()
+    from ..plan import load_plan
+
+    return load_plan(plan_path).quality
+
+
 def run(args: argparse.Namespace) -> int:
+    from ..core.quality import quality_flags
     from ..core.response import evaluate_point, point_summary
     from ..rig import load_rig
 
@@ -103,8 +124,11 @@ def run(args: argparse.Namespace) -> int:
     if freq is None:
         freq, source = _estimate_freq(data, channels, fs, rig)
         how = f"estimated from channel '{source}'"
+    limits = _quality_limits(getattr(args, "plan", None))
     point = evaluate_point(data, channels, fs, freq, rig)
+    flags = list(quality_flags(point.quality, limits))
     summary = dict(point_summary(point))
+    summary["flags"] = flags
     summary["frequency_source"] = how
     summary["record"] = str(args.record)
     summary["rig"] = str(args.rig)
@@ -116,7 +140,8 @@ def run(args: argparse.Namespace) -> int:
         ("record", str(args.record)),
         ("frequency", f"{point.freq_hz:.4f} Hz ({how})"),
         ("sample rate", f"{fs:.6g} Hz, {data.shape[1] / fs:.3f} s"),
-        ("|u'|/u at reference plane", f"{point.velocity.amplitude_ratio:.4f} (peak; mean {point.velocity.mean_velocity_ref_m_s:.3f} m/s)"),
+        ("|u'|/u at reference plane", f"{point.velocity.amplitude_ratio:.4f} ± {summary['velocity_ratio_uncertainty']:.2g} "
+                                      f"(1σ; peak; mean {point.velocity.mean_velocity_ref_m_s:.3f} m/s)"),
         ("gain", f"{point.gain:.4f} ± {point.gain_ci95:.4f} (95 %)"),
         ("phase", f"{point.phase_rad:+.4f} ± {point.phase_ci95_rad:.4f} rad  ({math.degrees(point.phase_rad):+.1f}°)"),
         ("SNR pressure (min) / light", f"{q['snr_db_pressure_min']:.1f} dB / {q['snr_db_light']:.1f} dB"),
@@ -127,6 +152,7 @@ def run(args: argparse.Namespace) -> int:
     width = max(len(k) for k, _ in rows)
     for k, v in rows:
         print(f"{k:<{width}}  {v}")
+    print(f"{'flags':<{width}}  {', '.join(flags) or 'none'}")
     for w in point.warnings:
         print(f"warning: {w}")
     return 0

@@ -113,6 +113,9 @@ QUALITY_RULES = (
 # fixed threshold alone.
 SIGNIFICANCE = {"pair-spread": "pair_spread_z", "drift-velocity": "drift_velocity_z",
                 "drift-light": "drift_light_z"}
+# Likewise a large cond(H) flags the point only when it matters: when the velocity's propagated
+# relative uncertainty (``velocity_rel_uncertainty``) exceeds VELOCITY_ERROR_CAUTION.
+MATERIALITY = {"ill-conditioned": ("velocity_rel_uncertainty", 0.01)}
 
 # Limits used when the thresholds object (a plan's [quality] table) does not define them.
 # relative_ci95 = max(gain half-width / gain, phase half-width in rad): 0.3 is ±30 % in gain or
@@ -129,9 +132,46 @@ FLAG_TEXT = {
     "distortion-light": "the light has strong harmonics (flame saturation)",
     "drift-velocity": "the forcing at the reference plane drifted between the two halves of the record",
     "drift-light": "the mean light drifted between the two halves of the record (flow, temperature or flame)",
-    "ill-conditioned": "the multi-microphone fit is badly conditioned at this frequency (sensor spacing)",
+    "ill-conditioned": "the multi-microphone fit is badly conditioned at this frequency (sensor spacing) and "
+                       "the velocity's propagated error is more than 1 %",
     "too-uncertain": "the 95 % interval is too wide for the point to be used (low signal-to-noise ratio)",
 }
+
+
+# Grades of the multi-microphone fit (0 sound, 1 caution, 2 unreliable) by the propagated
+# relative standard uncertainty of û/ū (noise and every stated systematic input) and by cond(H).
+# Limits are judgement (common practice: a few per cent of velocity error is what an FTF
+# point tolerates; cond(H) beyond 100 amplifies any unstated sensor error a hundredfold).
+VELOCITY_ERROR_CAUTION = 0.01
+VELOCITY_ERROR_UNRELIABLE = 0.05
+COND_UNRELIABLE = 100.0
+GRADE_WORDS = ("well determined", "poorly determined: use with care", "unreliable")
+
+
+def conditioning_grade(cond: float, velocity_rel_uncertainty: float) -> int:
+    """0, 1 or 2: the worse of the grade by the velocity's propagated error and, at cond(H) above
+    COND_UNRELIABLE (near a half-wavelength spacing), at least caution."""
+    err = float(velocity_rel_uncertainty)
+    grade = 0 if err <= VELOCITY_ERROR_CAUTION else 1 if err <= VELOCITY_ERROR_UNRELIABLE else 2
+    if not np.isfinite(err):
+        grade = 2
+    if not np.isfinite(cond) or cond > COND_UNRELIABLE:
+        grade = max(grade, 1)
+    return grade
+
+
+def conditioning_warning(freq_hz: float, cond: float, velocity_rel_uncertainty: float, any_pair_in_band: bool
+                         ) -> str | None:
+    """A graded warning about the plane-wave fit, or None when it is sound and some pair is in band."""
+    grade = conditioning_grade(cond, velocity_rel_uncertainty)
+    if grade == 0 and any_pair_in_band:
+        return None
+    where = ("no sensor pair lies in its usable band (0.1π < ks < 0.8π)" if not any_pair_in_band
+             else "the plane-wave fit is badly conditioned")
+    cond_text = f"cond(H) = {cond:.3g}" if np.isfinite(cond) else "cond(H) infinite (singular)"
+    err = (f"û/ū uncertain by {100 * velocity_rel_uncertainty:.2g} % (1σ, noise and stated errors)"
+           if np.isfinite(velocity_rel_uncertainty) else "û/ū undetermined")
+    return f"at {freq_hz:g} Hz {where}; {cond_text}, {err}: {GRADE_WORDS[grade]}"
 
 
 def quality_flags(figures: Mapping[str, float], thresholds: object) -> tuple[str, ...]:
@@ -153,5 +193,10 @@ def quality_flags(figures: Mapping[str, float], thresholds: object) -> tuple[str
             z = figures.get(SIGNIFICANCE.get(flag, ""))
             if z is not None and np.isfinite(float(z)) and float(z) <= SIGNIFICANCE_Z:
                 continue        # within its own noise
+            key_limit = MATERIALITY.get(flag)
+            if key_limit is not None:
+                err = figures.get(key_limit[0])
+                if err is not None and np.isfinite(float(err)) and float(err) <= key_limit[1]:
+                    continue    # badly conditioned, but the velocity is still accurate
             flags.append(flag)
     return tuple(flags)

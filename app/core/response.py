@@ -317,6 +317,13 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     if rig.light.dark_offset_uncertainty > 0:
         named.append(("dark offset", complex(rig.light.dark_offset_uncertainty / light_mean)))
     budget = tuple((name, complex(d)) for name, d in named)
+    # the velocity ratio's propagated relative standard uncertainty: noise and every systematic
+    # input of the velocity side (all but the dark offset), E|δU|²/|U|²
+    vel_rel_u = float(np.sqrt(vel.var_velocity_ref / abs(vel.velocity_ref) ** 2
+                              + sum(abs(d) ** 2 for name, d in named if name != "dark offset")))
+    # and of its modulus |û'|/ū alone: half the circular noise, the real parts of the directions
+    ratio_rel_u = float(np.sqrt(0.5 * vel.var_velocity_ref / abs(vel.velocity_ref) ** 2
+                                + sum(d.real ** 2 for name, d in named if name != "dark offset")))
     directions = np.array([d for _, d in budget], dtype=complex)
     interval = ratio_interval(light_ratio, vel_ratio, pair, directions)
     rel_var_random = interval.random_rel_var
@@ -333,6 +340,9 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
         "pair_spread": vel.pair_spread,
         "pair_spread_z": float(vel.wave_fit.pair_spread_z_at(rig.duct.reference_plane)),
         "cond": vel.cond,
+        "velocity_rel_uncertainty": vel_rel_u,
+        "velocity_ratio_rel_uncertainty": ratio_rel_u,
+        "conditioning_grade": float(quality.conditioning_grade(vel.cond, vel_rel_u)),
         "distortion_velocity": float(np.hypot(abs(u2), abs(u3)) / abs(vel.velocity_ref)),
         "distortion_light": float(fit.distortion[prep.light_row]),
         "light_mean_v": float(fit.offset[prep.light_row]),
@@ -353,8 +363,9 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     # SNR of every channel at the forcing frequency, by channel name.
     figures.update({f"snr_db_ch_{name}": float(db) for name, db in zip(channels, fit.snr_db)})
     figures.update(quality.drift_figures(fit, arr, lambda f: _velocity_estimate(f, prep, rig, mean), prep.light_row))
-    if not vel.any_pair_in_band:
-        warnings.append(f"at {freq_hz:g} Hz no sensor pair lies in its usable band (0.1π < ks < 0.8π)")
+    text = quality.conditioning_warning(freq_hz, vel.cond, vel_rel_u, vel.any_pair_in_band)
+    if text:
+        warnings.append(text)
     return FtfPoint(freq_hz=float(freq_hz), velocity=vel, light_ratio=light_ratio, ftf=complex(ftf),
                     gain=float(gain), phase_rad=float(np.angle(ftf)),
                     gain_ci95=interval.gain_ci95, phase_ci95_rad=interval.phase_ci95_rad,
@@ -374,6 +385,10 @@ def point_summary(point: FtfPoint) -> Mapping[str, object]:
         "phase_ci95_rad": point.phase_ci95_rad,
         "mean_velocity_ref_m_s": point.velocity.mean_velocity_ref_m_s,
         "velocity_ratio_sigma": point.velocity.sigma_ratio,
+        # standard uncertainty of |û'|/ū from noise and every stated systematic input (1σ)
+        "velocity_ratio_uncertainty": point.velocity.amplitude_ratio * point.quality.get(
+            "velocity_ratio_rel_uncertainty", float("nan")),
+        "budget": [{"input": name, "gain_rel": d.real, "phase_rad": d.imag} for name, d in point.budget],
         "gain_dof": point.interval.dof_gain if point.interval is not None else None,
         "phase_dof": point.interval.dof_phase if point.interval is not None else None,
         "interval_method": None if point.interval is None else ("linear" if point.interval.linear else "bootstrap"),

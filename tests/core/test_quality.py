@@ -126,3 +126,43 @@ def test_a_result_without_significance_figures_keeps_the_fixed_threshold():
     # older stored results have no *_z figures: the threshold alone decides, as before
     assert "drift-velocity" in quality_flags({"drift_velocity": 0.2}, Limits())
     assert "drift-velocity" not in quality_flags({"drift_velocity": 0.2, "drift_velocity_z": 1.0}, Limits())
+
+
+def test_conditioning_warnings_grade_by_the_propagated_velocity_error():
+    # Two sensors 320 mm apart (the demo's first and third) with the demo's stated 0.5 mm and
+    # 1 K uncertainties. At 40 Hz the pair is far below its usable band (0.1π < ks < 0.8π,
+    # Bodén & Åbom 1986, from memory) but û/ū is known to 0.2 %: a note, no flag. Near the
+    # half-wavelength spacing (cond(H) = max(|tan θ|, |cot θ|) large, domain.md) the same stated
+    # errors make û/ū uncertain by tens of per cent: graded unreliable and flagged.
+    from app.plan import Quality
+
+    from test_uncertainty import rig_variant
+
+    two = rig_variant(0.0, (0, 2))
+    readings = {}
+    for f in (40.0, 550.0):
+        rec = make_record(two, f, n_tau(1.0, 2e-3), noise_pa=1e-3, white=True, duration_s=2.0)
+        pt = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, f, two)
+        readings[f] = pt
+    low, high = readings[40.0], readings[550.0]
+    assert low.quality["velocity_rel_uncertainty"] < 0.005
+    assert low.quality["conditioning_grade"] == 0
+    assert any("usable band" in w and "well determined" in w for w in low.warnings)
+    assert "ill-conditioned" not in quality_flags(low.quality, Quality(cond_max=5.0))  # cond 8.6 but accurate
+    assert high.quality["cond"] > 100 and high.quality["velocity_rel_uncertainty"] > 0.1
+    assert high.quality["conditioning_grade"] == 2
+    assert any("unreliable" in w and "cond(H) = " in w for w in high.warnings)
+    assert "ill-conditioned" in quality_flags(high.quality, Quality())
+    # the two warnings do not read alike
+    assert not set(low.warnings) & set(high.warnings)
+
+
+def test_conditioning_grade_limits():
+    from app.core.quality import conditioning_grade, conditioning_warning
+
+    assert conditioning_grade(3.0, 0.002) == 0
+    assert conditioning_grade(3.0, 0.03) == 1
+    assert conditioning_grade(3.0, 0.2) == 2
+    assert conditioning_grade(500.0, 0.002) == 1      # near-singular: caution even when accurate
+    assert conditioning_grade(np.inf, np.nan) == 2
+    assert conditioning_warning(100.0, 3.0, 0.002, True) is None

@@ -150,3 +150,30 @@ def test_an_hdf5_record_under_another_name_is_read_as_hdf5(tmp_path, capsys, rec
                                 "freq_hz": 275.0})
     assert main(["reprocess", str(final), "--rig", str(RIG), "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["frequency_hz"] == pytest.approx(275.0)
+
+
+def test_json_carries_flags_velocity_uncertainty_and_budget_as_the_sweep_would(tmp_path, capsys, record):
+    # reprocess applies the sweep's quality rules (app.core.quality.quality_flags with the plan's
+    # [quality] limits, defaults without a plan) and states the velocity's uncertainty.
+    from app.core.quality import quality_flags
+    from app.core.response import evaluate_point
+    from app.plan import Quality
+
+    path = _write_csv(tmp_path / "rec.csv", record.data, record.channels, record.sample_rate_hz)
+    assert main(["reprocess", str(path), "--rig", str(RIG), "--json", "--freq-hz", "275"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    point = evaluate_point(record.data, record.channels, record.sample_rate_hz, 275.0, load_rig(RIG))
+    assert out["flags"] == list(quality_flags(point.quality, Quality()))
+    # the demo rig states position and temperature uncertainties: the total exceeds the noise alone
+    assert out["velocity_ratio_uncertainty"] > out["velocity_ratio_sigma"] > 0
+    names = [t["input"] for t in out["budget"]]
+    assert "gas temperature" in names and "p1 position" in names
+    # a plan with a stricter [quality] table raises the flags it implies
+    plan_text = (Path(RIG).parent / "demo-ftf-plan.toml").read_text(encoding="utf-8")
+    plan_text = plan_text.replace('rig = "demo-rig.toml"', f'rig = "{RIG.as_posix()}"')
+    plan_text = plan_text.replace("[quality]\n", "[quality]\nrelative_ci95_max = 1e-6\n", 1)
+    plan = tmp_path / "plan.toml"
+    plan.write_text(plan_text, encoding="utf-8")
+    assert main(["reprocess", str(path), "--rig", str(RIG), "--json", "--freq-hz", "275", "--plan", str(plan)]) == 0
+    strict = json.loads(capsys.readouterr().out)
+    assert "too-uncertain" in strict["flags"] and "too-uncertain" not in out["flags"]
