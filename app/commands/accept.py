@@ -14,7 +14,6 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..services.decisions import DecisionError, parse_choices  # noqa: F401  (DecisionError: the command's error)
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -27,7 +26,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..services.decisions import decide
+    from ..services.decisions import decide, parse_choices
     from ..services.runs import check_run_folder
     from ..services.types import DecideRequest
 

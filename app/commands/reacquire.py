@@ -30,7 +30,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from ..services import reacquire
-    from ..services.reprocess import parse_points
+    from ..services.points import parse_points
     from ..services.runs import check_run_folder
     from ..services.types import ReacquireRequest
     from .resume import check_snapshots, continue_run

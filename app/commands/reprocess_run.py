@@ -14,7 +14,6 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..services.reprocess import parse_points  # noqa: F401  (the --points reader, used by reacquire too)
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -24,6 +23,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from ..services.points import parse_points
     from ..services.reprocess import ReprocessRefused, reprocess
     from ..services.types import ReprocessRequest
 

@@ -9,7 +9,8 @@ Before anything is measured: the folder must be a run folder; a snapshot that di
 from the one the run was created with is refused (named key by key) unless
 ``--accept-changed-snapshot`` is given, and then the change is recorded in the run;
 leftover ``.part`` files and record files no index row names are moved into
-``RUN_DIR/set-aside/`` (never deleted). Must not import Qt.
+``RUN_DIR/set-aside/`` (never deleted). Stored runs are reached through ``app.services``
+(``snapshots``, ``runs``, ``sweeps``). Must not import Qt.
 """
 
 from __future__ import annotations
@@ -41,17 +42,10 @@ def add_snapshot_option(p: argparse.ArgumentParser) -> None:
 
 def check_snapshots(run_dir: Path, accept: bool, command: str) -> None:
     """Refuse a changed snapshot (naming file and keys) unless ``accept``; then record and print it."""
-    from ..storage import index
-    from ..storage.writer import refusal_message
+    from ..services import snapshots
 
-    changes = index.snapshot_changes(run_dir)
-    if not changes:
-        return
-    if not accept:
-        raise index.SnapshotChanged(refusal_message(run_dir, changes))
-    index.accept_snapshot_changes(run_dir, changes, command)
-    for c in changes:
-        print(f"changed snapshot accepted (--accept-changed-snapshot) and recorded in the run: {c.describe()}")
+    for text in snapshots.check(run_dir, accept, command):
+        print(f"changed snapshot accepted (--accept-changed-snapshot) and recorded in the run: {text}")
 
 
 def open_backend(info: dict[str, str], rig: Any, run_dir: Path, fast: bool | None) -> tuple[Any, str]:
@@ -72,29 +66,25 @@ def continue_run(run_dir: str | Path, point_indices: list[int], fast: bool | Non
     from ..engine.sweep import SweepEngine
     from ..plan import load_plan
     from ..rig import load_rig
-    from ..storage import index
-    from ..storage.reader import open_run
-    from ..storage.writer import refusal_message, writer_for_existing_run
+    from ..services import snapshots
+    from ..services.runs import open_run
+    from ..services.sweeps import existing_run_writer
     from .running import run_engine
 
-    changes = index.snapshot_changes(index.require_run_folder(run_dir))
-    if changes:                    # before the back-end is opened: nothing is driven with a changed file
-        raise index.SnapshotChanged(refusal_message(Path(run_dir), changes))
+    snapshots.refuse_changed(run_dir)      # before the back-end is opened: nothing is driven with a changed file
     run = open_run(run_dir, verify=False)
     rig = load_rig(run.rig_path)
     plan = load_plan(run.plan_path, rig)
     device, name = open_backend(run.info, rig, run.run_dir, fast)
     bus = EventBus()
-    writer = writer_for_existing_run(run.run_dir, bus)
+    writer = existing_run_writer(run.run_dir, bus)
     if fast is not None:
         writer.note({"fast": "1" if fast else "0"})
     writer.start()
     bus.subscribe(writer)
     closers: tuple = (writer.close,)
     if show_progress:
-        from ..storage.export import kept_phases
-
-        display = ProgressDisplay(known=kept_phases(run))   # phases unwrapped on the run's kept points
+        display = ProgressDisplay(known=snapshots.kept_phases(run))   # phases unwrapped on the run's kept points
         bus.subscribe(display)
         display.start()
         closers = (display.close, writer.close)
@@ -110,17 +100,16 @@ def continue_run(run_dir: str | Path, point_indices: list[int], fast: bool | Non
 
 def run(args: argparse.Namespace) -> int:
     from ..plan import load_plan
-    from ..storage import index
-    from ..storage.reader import open_run
-    from ..storage.writer import ensure_not_busy, set_aside_leftovers
+    from ..services import snapshots
+    from ..services.runs import check_run_folder, open_run
 
-    run_dir = index.require_run_folder(args.run_dir)
-    if not (run_dir / index.INDEX_NAME).is_file():
-        raise ResumeError(f"{run_dir}: cannot resume: the index {index.INDEX_NAME} is missing (the record "
+    run_dir = check_run_folder(args.run_dir)
+    if not snapshots.has_index(run_dir):
+        raise ResumeError(f"{run_dir}: cannot resume: the index {snapshots.INDEX_NAME} is missing (the record "
                           f"files are still there; 'flamebode review {run_dir}' lists them)")
-    ensure_not_busy(run_dir)
+    snapshots.ensure_not_busy(run_dir)
     check_snapshots(run_dir, args.accept_changed_snapshot, "resume")
-    for src, dst, why in set_aside_leftovers(run_dir):
+    for src, dst, why in snapshots.set_aside_leftovers(run_dir):
         print(f"set aside {src.relative_to(run_dir)} -> {dst.relative_to(run_dir)}: {why}")
     r = open_run(run_dir, verify=True)
     for p in r.problems:

@@ -19,6 +19,7 @@ from app.rig import load_rig
 from app.storage import index
 from app.storage.writer import analysis_from_result, sha256_file
 
+from .points import parse_points  # noqa: F401  (the --points reader, here for callers of reprocess)
 from .runs import open_run
 from .types import ReprocessOutcome, ReprocessRequest, ReprocessResult
 
@@ -29,27 +30,6 @@ class ReprocessRefused(FlamebodeError):
     def __init__(self, message: str, problems: tuple[str, ...]) -> None:
         super().__init__(message)
         self.problems = problems
-
-
-def parse_points(text: str | None) -> list[int] | None:
-    """Point numbers as users see them (from 1) to plan indices (from 0):
-    '3,7,10-12' -> [2, 6, 9, 10, 11]; None -> None (all points)."""
-    if not text:
-        return None
-    out: list[int] = []
-    try:
-        for part in text.split(","):
-            part = part.strip()
-            if "-" in part:
-                a, b = part.split("-", 1)
-                out.extend(range(int(a), int(b) + 1))
-            elif part:
-                out.append(int(part))
-    except ValueError:
-        raise FlamebodeError(f"--points: '{text}' is not a list of point numbers such as 3,7 or 10-12") from None
-    if any(n < 1 for n in out):
-        raise FlamebodeError(f"--points: point numbers start at 1, got '{text}'")
-    return [n - 1 for n in out]
 
 
 def reprocess(req: ReprocessRequest) -> ReprocessResult:
