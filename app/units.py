@@ -29,10 +29,11 @@ _UNITS: dict[str, dict[str, tuple[float, float]]] = {
     "volume_flow": {"m3/s": (1.0, 0.0), "L/min": (1e-3 / 60.0, 0.0), "l/min": (1e-3 / 60.0, 0.0),
                     "mL/min": (1e-6 / 60.0, 0.0), "m3/h": (1.0 / 3600.0, 0.0), "L/s": (1e-3, 0.0)},
     "angle": {"rad": (1.0, 0.0), "deg": (3.141592653589793 / 180.0, 0.0)},
+    "power": {"W": (1.0, 0.0), "kW": (1e3, 0.0), "MW": (1e6, 0.0)},
 }
 
 SI_UNIT = {"length": "m", "temperature": "K", "temperature_difference": "K", "pressure": "Pa", "voltage": "V", "sensitivity": "V/Pa",
-           "frequency": "Hz", "time": "s", "volume_flow": "m3/s", "angle": "rad"}
+           "frequency": "Hz", "time": "s", "volume_flow": "m3/s", "angle": "rad", "power": "W"}
 
 # Kinds whose bare number a person may mean in another unit (K or degC, m3/s or L/min, s or ms,
 # m or mm, V/Pa or mV/Pa, rad or deg): in a file they need a unit. Volts, hertz and pascals
@@ -51,6 +52,7 @@ _EXAMPLES: dict[str, tuple[str, str, str]] = {
     "time": ("a duration", '"0.5 s"', '"300 ms"'),
     "volume_flow": ("a flow", '"180 L/min"', '"0.003 m3/s"'),
     "angle": ("an angle", '"180 deg"', '"3.1416 rad"'),
+    "power": ("a power", '"4 kW"', '"4000 W"'),
 }
 
 _QUANTITY = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(\S.*?)?\s*$")

@@ -22,6 +22,8 @@ def own_window_settings(tmp_path_factory, monkeypatch):
     """The window remembers its layout between launches (app/ui/settings.py): every test, and
     every window it starts as a subprocess, gets a settings file of its own."""
     monkeypatch.setenv("FLAMEBODE_SETTINGS", str(tmp_path_factory.mktemp("settings") / "flamebode.ini"))
+    # commissioning records (app/commissioning_record.py) go beside the rig file: never into configs/
+    monkeypatch.setenv("FLAMEBODE_COMMISSIONING_DIR", str(tmp_path_factory.mktemp("commissioning")))
 
 
 def pytest_configure(config: pytest.Config) -> None:

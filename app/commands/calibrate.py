@@ -78,6 +78,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--record", default="1 s", help="record length per frequency, with its unit (default 1 s)")
     p.add_argument("--segments", type=int, default=16, help="segments per record for the cross-spectra (default 16)")
     p.add_argument("--out", required=True, metavar="CAL_FILE", help="calibration file to write (TOML)")
+    p.add_argument("--commissioning-record", metavar="FILE", help="commissioning record to note the calibration in (default: beside "
+                                                    "the rig file, RIG.commissioning.toml)")
     p.add_argument("--backend", default="simulated", help="back-end name (default: simulated)")
     p.add_argument("--scenario", help="simulated burner scenario (default: the demo's for the demo rig)")
     p.add_argument("--fast", action="store_true", help="simulator only: run as fast as the CPU allows")
@@ -244,9 +246,29 @@ def _calibrate(args: argparse.Namespace, rig: Any, reference: str, second: str |
                     f"one plane, sealed) and repeat")
         written = _write(out, cal, rig, args, target_pa, record_s, cut_on, check)   # atomic: whole or absent
     print(f"calibration file: {written}")
+    _note_in_record(args, rig, written, reference, freqs, check)
     print(f"to use it, add to {rig.source_path} (before its first table): "
           f"pressure_calibration = {json.dumps(str(written.resolve()))}")
     return 0
+
+
+def _note_in_record(args: argparse.Namespace, rig: Any, written: Path, reference: str, freqs: list[float],
+                    check: Any) -> None:
+    """The calibration in the rig's commissioning record (app.commissioning_record); a record that
+    cannot be written is said, and the calibration file already written stays."""
+    from ..calibration_file import rig_identity
+    from ..commissioning_record import Check, append_check, now_utc, record_path_for
+
+    result = {"file": str(written.resolve()), "reference": reference, "band_low_hz": float(freqs[0]),
+              "band_high_hz": float(freqs[-1]), "n_frequencies": len(freqs)}
+    if check is not None:
+        result["check_worst_z"] = float(check.worst_z)
+    try:
+        rec = append_check(args.commissioning_record or record_path_for(args.rig), rig.name,
+                           Check("pressure-calibration", now_utc(), args.backend, rig_identity(rig), result))
+        print(f"commissioning record: {rec.path}")
+    except FlamebodeError as exc:
+        print(f"warning: the commissioning record was not updated: {exc}", file=sys.stderr)
 
 
 def calibration_file_of(cal: Any, rig: Any, conditions: dict[str, Any], cut_on_hz: float,

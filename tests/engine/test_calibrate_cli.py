@@ -45,10 +45,16 @@ def test_calibrate_writes_a_file_that_matches_the_simulated_sensors(tmp_path):
     out = tmp_path / "cal.toml"
     log = tmp_path / "drive.csv"
     proc = _run([str(RIG), "--method", "common-plane", "--band", "100-2000", "--step", "100", "--reference", "p1",
-                 "--check-reference", "p3", "--pressure", "20 Pa", "--fast", "--seed", "3", "--out", str(out)], log)
+                 "--check-reference", "p3", "--pressure", "20 Pa", "--fast", "--seed", "3", "--out", str(out),
+                 "--commissioning-record", str(tmp_path / "rig.commissioning.toml")], log)
     assert proc.returncode == 0, proc.stderr
     assert "Traceback" not in proc.stderr
     assert f"calibration file: {out}" in proc.stdout and "check against p3" in proc.stdout
+    # noted in the commissioning record (app.commissioning_record)
+    from app.commissioning_record import read_record
+
+    noted = read_record(tmp_path / "rig.commissioning.toml").latest("pressure-calibration")
+    assert noted is not None and noted.result["file"] == str(out.resolve()) and noted.result["reference"] == "p1"
     # the coherence reads as a number a person can use, never a rounded "1.000000"
     assert "coherence >= 1.000000" not in proc.stdout and "coherence >= " in proc.stdout, proc.stdout
     cal = read_calibration(out)
@@ -144,7 +150,8 @@ def test_reprocess_run_applies_a_new_calibration_to_an_old_run(tmp_path):
                            timeout=120)
     assert sweep.returncode == 0, sweep.stderr
     cal = tmp_path / "cal.toml"
-    made = _run([str(RIG), "--band", "100-500", "--step", "100", "--fast", "--seed", "3", "--out", str(cal)])
+    made = _run([str(RIG), "--band", "100-500", "--step", "100", "--fast", "--seed", "3", "--out", str(cal),
+                 "--commissioning-record", str(tmp_path / "rig.commissioning.toml")])
     assert made.returncode == 0, made.stderr
     rig = tmp_path / "rig.toml"
     rig.write_text(RIG.read_text(encoding="utf-8").replace(
