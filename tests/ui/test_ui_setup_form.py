@@ -112,3 +112,12 @@ def test_set_value_adds_a_missing_key_and_table() -> None:
 def test_literal_keeps_the_kind_of_value(typed: str, like: object, expected: str) -> None:
     assert literal(typed, like) == expected
     assert tomllib.loads(f"k = {expected}")["k"] is not None
+
+
+def test_lowering_the_rig_ceiling_in_its_form_flags_the_plans_ceiling(qtbot, setup_view) -> None:
+    rig, plan = setup_view.rig_editor, setup_view.plan_editor
+    _type(qtbot, rig.form.fields["drive.ceiling"], "1.5 V")
+    err = plan.form.errors["tuning.ceiling"]
+    qtbot.waitUntil(lambda: not err.isHidden(), timeout=3000)          # the plan is checked against the new rig
+    assert "above the rig's ceiling 1.5 V" in err.text()
+    assert rig.form.errors["drive.ceiling"].isHidden()                 # the rig itself is valid

@@ -188,6 +188,7 @@ class SetupView(QWidget):
         super().__init__(parent)
         self.rig_editor = ConfigEditor("rig", self._validate_rig, RIG_FIELDS)
         self.plan_editor = ConfigEditor("plan", self._validate_plan, PLAN_FIELDS)
+        self.rig_editor.checked.connect(lambda _p: self.plan_editor.check_timer.start())   # the plan is checked
         files = QTabWidget()
         files.addTab(self.rig_editor, "Rig file")
         files.addTab(self.plan_editor, "Plan file")
