@@ -213,6 +213,18 @@ def _calibration_line(rig: Any) -> str:
     return "calibration: none (the sensors' nominal sensitivities; see 'flamebode calibrate')"
 
 
+def commissioning_notes(rig_path: Path, rig: object, max_age_days: float = 30.0) -> list[str]:
+    """What the rig's commissioning record says is missing or old (app.commissioning_record), or
+    why it cannot be read; said before forcing on real hardware, never a reason to refuse."""
+    from ..commissioning_record import age_notes, read_record, record_path_for
+    from ..errors import FlamebodeError
+
+    try:
+        return age_notes(read_record(record_path_for(rig_path), getattr(rig, "name", "")), max_age_days)
+    except FlamebodeError as exc:
+        return [f"the commissioning record cannot be read: {exc}"]
+
+
 REAL_HARDWARE_CAUTION = ("caution: real hardware. Forcing is loud: hearing protection on. The ceiling protects the "
                          "speakers only if set from their ratings. Flame, fuel and photomultiplier high voltage "
                          "stay live: flamebode zeroes only the drive. Your lab's checklist and rules come first "
@@ -246,6 +258,8 @@ def _run_sweep(args: argparse.Namespace, plan: Any, rig: Any, plan_path: Path, r
     bus = EventBus()
     if not args.backend.startswith("simulated"):
         print(REAL_HARDWARE_CAUTION, file=sys.stderr)
+        for note in commissioning_notes(rig_path, rig):
+            print(f"commissioning: {note}", file=sys.stderr)
     device = open_device(args.backend, rig, scenario, args.fast, args.seed)
     writer = None
     if args.out:

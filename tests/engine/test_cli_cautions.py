@@ -41,5 +41,7 @@ def test_a_headless_sweep_on_real_hardware_shows_the_caution(tmp_path: Path) -> 
     assert "caution: real hardware. Forcing is loud: hearing protection on" in out.stderr
     assert "Your lab's checklist and rules come first" in out.stderr
     assert out.returncode != 0 and "Traceback" not in out.stderr
+    # and what the rig's commissioning record lacks (none kept for this rig in this test)
+    assert "commissioning: no dark offset in demo-rig.commissioning.toml" in out.stderr, out.stderr
     sim = _cli("sweep", str(plan), "--rig", str(RIG), "--fast")
     assert sim.returncode == 0 and "caution: real hardware" not in sim.stderr
