@@ -6,5 +6,10 @@ reprocess, export and compare live here as plain functions with typed requests a
 arguments and prints these results; the window (``app.ui``) calls the same functions on its
 worker thread and shows the results. Neither front end opens the index itself.
 
+Modules: ``runs`` (open, review), ``decisions`` (accept/reject), ``reacquire`` (check the
+choice, report which attempt each point uses), ``reprocess``, ``export`` (export, compare,
+report, list), ``snapshots`` (checks before measuring into a run again), ``sweeps`` (the run
+writer a front end's sweep stores through), ``points`` (point numbers people write).
+
 Must not import Qt, pyqtgraph, ``app.ui``, ``app.cli`` or ``app.commands``.
 """
