@@ -21,9 +21,12 @@ Threads and buffers (everything preallocated when the stream opens):
 
 Delay: the reference input is cross-correlated (normalised) with the drive actually played,
 over lags 0..``max_delay``. With a steady sine the correlation repeats every period, so the
-whole-period count is taken from the first block where the drive comes on from zero (the
-envelope makes that unambiguous) and later blocks refine within half a period of the last
-estimate. Blocks are *not* shifted: input samples stay contiguous and every block states
+whole-period count is taken from blocks where the reference's envelope changes (the drive
+coming on from zero, or any ramp arriving: the envelope makes the lag unambiguous, so a delay
+that jumped while the drive was steady is found again at the next ramp) and other blocks
+refine within half a period of the last estimate. Until a delay is measured, a ramp counts
+as arrived only after ``max_delay`` (a loop through another process, e.g. the rig emulator,
+takes far longer than the stream's own latency). Blocks are *not* shifted: input samples stay contiguous and every block states
 the delay (:class:`SoundCardBlock`), and its drive frequency/amplitude are those of the drive
 that reached the inputs in that block (the played drive ``delay`` samples earlier).
 
@@ -83,6 +86,7 @@ RENDER_CHUNK = 256        # frames rendered per step of the renderer thread
 MIN_CORRELATION = 0.9     # below this the reference does not follow the drive: delay not measured
 GLITCH_CORRELATION = 0.98 # a clean electrical loopback stays above this; lower means a gap in the chain
 MIN_DRIVE_RMS = 1e-3      # digital rms of the played drive below which no delay is measured
+START_SILENCE_S = 0.5     # longest wait at start for a signal on any input (see SoundCard.start)
 
 
 # ============================================================================ configuration
@@ -229,6 +233,24 @@ def pick_delay(rho: np.ndarray, previous: int | None, period_samples: float) -> 
     return best if rho[best] >= MIN_CORRELATION else None
 
 
+class AudioServerLost(DriverError):
+    """The duplex stream died under the back-end (audio server restarted or killed, device unplugged)."""
+
+
+def envelope_changes(x: np.ndarray, period_samples: float, ratio: float = 1.25) -> bool:
+    """Whether the rms of ``x`` differs by more than ``ratio`` between its parts (a ramp in it).
+
+    Up to four parts of at least two periods each (fewer: no verdict, False)."""
+    periods = x.size / period_samples if math.isfinite(period_samples) and period_samples > 0 else 0.0
+    parts = int(min(4, periods // 2))
+    if parts < 2:
+        return False
+    n = x.size // parts
+    rms = np.sqrt(np.mean(np.reshape(x[:n * parts], (parts, n)) ** 2, axis=1))
+    lo = float(rms.min())
+    return bool(float(rms.max()) > ratio * lo) if lo > 0 else bool(rms.max() > 0)
+
+
 # ============================================================================ blocks
 @dataclass(frozen=True)
 class SoundCardBlock(Block):
@@ -368,6 +390,8 @@ class SoundCard:
         self._delay: int | None = None
         self._lost = 0
         self._origin = -1                 # capture index of start_index 0 (set by the callback)
+        self._first_clean = -1            # capture index of the first unflagged callback
+        self._origin_open = True          # the callback may still set the origin
 
     # ------------------------------------------------------------------ identity
     def identity(self) -> dict[str, str]:
@@ -428,8 +452,11 @@ class SoundCard:
         flags = (int(status.input_overflow) + int(status.input_underflow) + int(status.output_underflow)
                  + int(status.output_overflow) + int(not halted and avail < frames))
         self._cap_flags[p] = flags
-        if self._origin < 0 and flags == 0:
-            self._origin = w                    # the first clean callback: acquisition starts here
+        if flags == 0 and self._origin_open:
+            if self._first_clean < 0:
+                self._first_clean = w
+            if self._origin < 0 and indata.any():
+                self._origin = w                # the first clean callback with a signal: acquisition starts here
         self._cap_w = w + frames
 
     # ------------------------------------------------------------------ renderer thread
@@ -500,12 +527,18 @@ class SoundCard:
             self._close()
             raise DriverError(f"sound card: cannot start the stream on {self._device_name!r}: {exc}") from None
         # Duplex streams flag the first callbacks (PortAudio zero-fills the input while the
-        # input side starts); the acquisition starts at the first clean callback.
-        deadline = time.monotonic() + 1.0
+        # input side starts), and an audio server's capture first delivers exact digital
+        # silence, which no input of a real chain shows (a dead-sensor check would fire): the
+        # acquisition starts at the first clean callback with a signal on any input, or, if
+        # every input stays exactly silent for START_SILENCE_S (a pure digital loopback with
+        # the drive off), at the first clean callback.
+        deadline = time.monotonic() + START_SILENCE_S
         while self._origin < 0 and time.monotonic() < deadline:
             time.sleep(0.005)
+        self._origin_open = False
         if self._origin < 0:
-            self._origin = 0              # never clean: start at once and let the counts show it
+            # never clean: start at once and let the counts show it
+            self._origin = self._first_clean if self._first_clean >= 0 else 0
         self._read = self._origin
 
     @property
@@ -524,7 +557,10 @@ class SoundCard:
                 raise BackendTimeout(f"sound card: no block from {self._device_name!r} within {timeout_s:g} s "
                                      f"({self._cap_w - self._read} of {n} frames arrived)")
             if not self._stream.active:
-                raise DriverError(f"sound card: the stream on {self._device_name!r} stopped by itself")
+                raise AudioServerLost(
+                    f"sound card: audio-server-lost: the stream on {self._device_name!r} stopped by itself (the audio "
+                    f"server or the device went away; {self._cap_w - self._read} of {n} frames of the block had "
+                    f"arrived); nothing plays any more. Restart the audio server, then resume the run")
             time.sleep(min(0.005, n / self._fs / 4))
         lost = self._skip_lost()
         start = self._read
@@ -559,8 +595,10 @@ class SoundCard:
         A glitch (a gap somewhere in the output→input chain) shows as the tracked delay moving by
         more than two samples, or the reference no longer matching the drive at the known delay.
         """
-        if self._ref_row is None or start < self._max_lag:
+        if self._ref_row is None:
             return None, math.nan, False
+        # before the stream has played max_delay, the history reaches back into the ring's
+        # never-written part: zeros, which is what was played before the stream started
         history = self._ring_rows(self._cap[:, -1], start - self._max_lag, n + self._max_lag).astype(np.float64)
         x = data[self._ref_row]
         d = self._delay if self._delay is not None else 0
@@ -571,7 +609,10 @@ class SoundCard:
         freq = self.guard.status().freq_hz
         period = self._fs / freq if freq > 0 else math.nan
         previous = self._delay
-        delay = pick_delay(rho, previous, period)
+        ramp = envelope_changes(x, period)
+        if previous is None and not ramp:
+            return None, float(rho.max()), False   # a steady sine alone cannot tell whole periods apart
+        delay = pick_delay(rho, None if ramp else previous, period)
         peak = float(rho[delay]) if delay is not None else float(rho.max())
         if delay is not None:
             self._delay = delay
@@ -609,8 +650,11 @@ class SoundCard:
         """The guard's status; still ``ramping`` until the end of the ramp has reached the inputs."""
         status = self.guard.status()
         if not status.ramping and self._running:
-            lag = self._delay if self._delay is not None else int(self._stream.latency[1] * self._fs * 2)
-            if self._cap_w < self._settle_mark + lag:
+            # until a delay is measured, the longest one configured: a loop through another
+            # process (an emulator, an external mixer) takes longer than this stream's latency
+            lag = self._delay if self._delay is not None else max(self._max_lag,
+                                                                  int(self._stream.latency[1] * self._fs * 2))
+            if self._read < self._settle_mark + lag:   # the next block read starts after the ramp
                 return replace(status, ramping=True)
         return status
 
@@ -656,4 +700,4 @@ class SoundCard:
         self.guard.halt()
 
 
-__all__ = ["SoundCard", "SoundCardBlock", "SoundCardConfig", "load_config", "normalised_xcorr", "pick_delay"]
+__all__ = ["AudioServerLost", "SoundCard", "SoundCardBlock", "SoundCardConfig", "load_config", "normalised_xcorr", "pick_delay"]

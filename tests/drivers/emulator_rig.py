@@ -1,0 +1,162 @@
+"""Test helper (not a test module): a private audio server with the rig emulator's two sinks,
+the emulator as a separate process, and the reading of a run's points and the emulator's truth.
+
+The server lives in its own runtime folder (never the suite's shared one, so a test may kill
+and restart it): sink ``fb_drive`` (2 channels: flamebode plays, the emulator listens on its
+monitor) and ``fb_sense`` (6 channels: the emulator plays, flamebode records its monitor).
+flamebode is pointed at them with ``PULSE_SINK``/``PULSE_SOURCE`` in its own environment.
+"""
+
+from __future__ import annotations
+
+import cmath
+import json
+import math
+import os
+import shutil
+import signal
+import sqlite3
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+from typing import Any
+
+import audio_server
+from drivers.emulator.files import read_status
+
+ROOT = Path(__file__).resolve().parents[2]
+RIG = ROOT / "configs" / "emulator-rig.toml"
+SINKS = {"fb_drive": 2, "fb_sense": 6}
+
+
+def no_audio_reason() -> str:
+    """Why the emulator's audio tests cannot run here ('' when they can)."""
+    missing = [p for p in ("pulseaudio", "pactl") if shutil.which(p) is None]
+    if missing:
+        return f"{', '.join(missing)} not found (apt packages pulseaudio pulseaudio-utils): no audio server"
+    try:
+        import sounddevice  # noqa: F401
+    except OSError as exc:
+        return f"PortAudio library missing ({exc}); apt package libportaudio2"
+    except ImportError as exc:
+        return f"sounddevice not installed ({exc})"
+    return ""
+
+
+class PrivateServer:
+    """A PulseAudio server of the test's own, with the emulator sinks; killable and restartable."""
+
+    def __init__(self) -> None:
+        self.runtime = tempfile.mkdtemp(prefix="fb-emu-pulse-")
+        self.env = audio_server.private_server_env(self.runtime)
+
+    def start(self) -> str:
+        return audio_server.start_private(self.runtime, SINKS)
+
+    def kill(self) -> None:
+        audio_server.kill_private(self.runtime)
+
+    def close(self) -> None:
+        self.kill()
+        shutil.rmtree(self.runtime, ignore_errors=True)
+
+    def client_env(self) -> dict[str, str]:
+        """What flamebode needs in its environment to use the emulator's sinks."""
+        return {"PULSE_RUNTIME_PATH": self.env["PULSE_RUNTIME_PATH"], "PULSE_SERVER": self.env["PULSE_SERVER"],
+                "PULSE_STATE_PATH": self.env["PULSE_STATE_PATH"], "PULSE_SINK": "fb_drive",
+                "PULSE_SOURCE": "fb_sense.monitor"}
+
+
+class Emulator:
+    """``python -m drivers.emulator audio`` as a separate process, with its truth and status files."""
+
+    def __init__(self, server: PrivateServer, folder: Path, mode: str = "audio", extra: tuple[str, ...] = ()) -> None:
+        self.truth, self.status, self.log = folder / "truth.json", folder / "status.jsonl", folder / "emulator.log"
+        cmd = [sys.executable, "-m", "drivers.emulator", mode, "--rig", str(RIG), "--truth", str(self.truth),
+               "--status", str(self.status), *extra]
+        if mode == "audio":
+            cmd += ["--drive-source", "fb_drive.monitor", "--sensor-sink", "fb_sense"]
+        env = {**os.environ, **(server.env if server else {})}
+        self._log = open(self.log, "w")
+        self.proc = subprocess.Popen(cmd, cwd=ROOT, env=env, stdout=self._log, stderr=subprocess.STDOUT)
+
+    def wait_for(self, event: str, timeout_s: float = 20.0, after: float = 0.0) -> dict[str, Any] | None:
+        deadline = time.monotonic() + timeout_s
+        while time.monotonic() < deadline:
+            for line in read_status(self.status):
+                if line.get("event") == event and line["time"] >= after:
+                    return line
+            if self.proc.poll() is not None:
+                return None
+            time.sleep(0.1)
+        return None
+
+    def lines(self) -> list[dict[str, Any]]:
+        return read_status(self.status)
+
+    def truth_points(self) -> list[dict[str, Any]]:
+        try:
+            return json.loads(self.truth.read_text(encoding="utf-8"))["points"]
+        except (OSError, ValueError, KeyError):
+            return []
+
+    def truth_at(self, freq_hz: float) -> dict[str, Any] | None:
+        """The emulator's truth at the frequency it was driven nearest to ``freq_hz`` (within 0.1 Hz)."""
+        near = [p for p in self.truth_points() if abs(p["freq_hz"] - freq_hz) <= 0.1]
+        return max(near, key=lambda p: p["blocks"]) if near else None
+
+    def summary(self) -> str:
+        """The emulator's events, last counts and log tail (for a failure message)."""
+        lines = self.lines()
+        events = [ln for ln in lines if "event" in ln]
+        last = lines[-1] if lines else {}
+        try:
+            log = self.log.read_text(errors="replace")[-1500:]
+        except OSError:
+            log = ""
+        return f"\nemulator events: {events}\nlast status: {last}\nemulator log: {log}"
+
+    def stop(self) -> str:
+        if self.proc.poll() is None:
+            self.proc.send_signal(signal.SIGTERM)
+            try:
+                self.proc.wait(10)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
+                self.proc.wait(5)
+        self._log.close()
+        return self.log.read_text(errors="replace")
+
+
+def run_points(run_dir: Path) -> dict[int, dict[str, Any]]:
+    """The latest analysis of every point of a run: freq, gain, phase and their 95 % half-widths."""
+    con = sqlite3.connect(f"{(run_dir / 'index.sqlite').as_uri()}?mode=ro", uri=True)
+    try:
+        rows = con.execute(
+            "SELECT a.point_index, p.freq_hz, an.gain, an.phase_rad, an.gain_ci95, an.phase_ci95_rad, a.overflows "
+            "FROM analyses an JOIN attempts a ON a.attempt_id = an.attempt_id "
+            "JOIN points p ON p.point_index = a.point_index ORDER BY an.analysis_id").fetchall()
+        faults = con.execute("SELECT name, message FROM faults ORDER BY fault_id").fetchall()
+    finally:
+        con.close()
+    out = {r[0]: {"freq_hz": r[1], "gain": r[2], "phase_rad": r[3], "gain_ci95": r[4], "phase_ci95_rad": r[5],
+                  "overflows": r[6]} for r in rows if r[2] is not None}
+    out_faults = [{"name": n, "message": m} for n, m in faults]
+    return out if not out_faults else {**out, -1: {"faults": out_faults}}
+
+
+def within(point: dict[str, Any], true: dict[str, Any]) -> bool:
+    """Truth inside the tool's own 95 % intervals, gain and phase both."""
+    h = complex(true["ftf_re"], true["ftf_im"])
+    dphi = math.remainder(point["phase_rad"] - cmath.phase(h), 2 * math.pi)
+    return abs(point["gain"] - abs(h)) <= point["gain_ci95"] and abs(dphi) <= point["phase_ci95_rad"]
+
+
+def plan_text(name: str, freqs_hz: list[float], record_s: float = 1.0) -> str:
+    """An FTF plan at the given frequencies (5 % peak forcing, short settle and tuning windows)."""
+    values = ", ".join(f"{f:g}" for f in freqs_hz)
+    return (f'name = "{name}"\n[frequencies]\nvalues = [{values}]\n'
+            f'[amplitude]\nvalues = [0.05]\nbasis = "peak"\n[timing]\nrecord = "{record_s:g} s"\n'
+            f'settle = "0.2 s"\ntuning_window = "0.2 s"\ntuning_discard = "0.05 s"\n')
