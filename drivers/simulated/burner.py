@@ -54,7 +54,7 @@ from drivers.protocols import Availability, Block, DriveStatus
 from .faults import FaultClock, RigEvent, active_mask
 from .holder import holder_plane_m, mount
 from .model import BurnerModel, Forced, Oscillation
-from .noise import ColouredNoise, adc, shot_noise
+from .noise import ColouredNoise, SoundSources, adc, shot_noise
 from .scenario import Scenario, load_scenario
 from .selfexcited import self_excitation
 from .stability import Stability, stability
@@ -348,12 +348,19 @@ class SimulatedBurner:
         return Oscillation(u, np.real(ex.flame_linear * u), np.multiply.outer(ex.pressure_per_ratio, u))
 
     def _channels_volts(self, drive_v, forced, flame_mask, state) -> np.ndarray:
-        """Every channel in volts; ``drive_v`` is what the drive chain delivers (the reference sees it)."""
+        """Every channel in volts; ``drive_v`` is what the drive chain delivers (the reference sees it).
+
+        Pressure noise: the sensors' own (local turbulence, partly correlated) plus noise that
+        travels as sound (``noise.SoundNoise``): inflow sound from the plenum and the flame's
+        radiated noise, each heard through the network at the drive frequency with the right
+        inter-sensor phase; the flame's share also reaches the light, and the flame answers the
+        noise's velocity with its F, as it answers the forcing."""
         n, i0 = self._block_n, self._index
         rig, sc, m = self.rig, self.scenario, self.model
         ns = sc.noise
-        noise_level = np.where(flame_mask, 1.0, ns.flame_out_fraction) * ns.pressure_rms
-        p_noise = self._p_noise.block(n) * noise_level
+        level = np.where(flame_mask, 1.0, ns.flame_out_fraction)
+        noise_level = level * ns.pressure_rms
+        p_noise = self._p_noise.block(n) * noise_level * np.sqrt(1.0 - ns.acoustic_fraction)
         n_p = len(rig.pressure_sensors)
         data = self._rng.standard_normal((len(self._channels), n))  # electronic noise of every channel
         data *= ns.electronic_rms
@@ -361,7 +368,15 @@ class SimulatedBurner:
         p = forced.pressure_pa
         data[:n_p] += factor.real * p.real - factor.imag * p.imag  # Re{S e^{iφ} p̂}
         data[:n_p] += m.true_sensitivity_v_pa[:, None] * p_noise
-        data[n_p] += self._light_volts(forced.heat_release_ratio, flame_mask, state)
+        if getattr(self, "_sound", None) is None:         # made on first use, with its own noise streams
+            self._sound = SoundSources(n_p + 1, self._fs, ns.pressure_corner, ns.light_corner,
+                                       np.random.default_rng([self.noise_seed, 5]))
+        freq, lit = float(self.guard.status().freq_hz), bool(flame_mask.any())
+        transfers = m.noise_transfers(freq, state, lit) if freq > 0 else None
+        sound = self._sound.block(n, freq, transfers, ns.acoustic_fraction * ns.pressure_rms**2,
+                                  ns.flame_noise_radiated * ns.light_flame_noise**2 if lit else 0.0)
+        data[:n_p] += m.true_sensitivity_v_pa[:, None] * sound[:n_p] * level
+        data[n_p] += self._light_volts(forced.heat_release_ratio, flame_mask, state, sound[n_p])
         if rig.drive.reference_channel:
             data[n_p + 1] += drive_v
         if self._faults.dropout_channel is not None:
@@ -371,9 +386,13 @@ class SimulatedBurner:
                 data[row, dead] = sc.faults.sensor_dropout.level
         return adc(data, m.input_range_v, sc.adc.bits)
 
-    def _light_volts(self, heat_release_ratio: np.ndarray, flame_mask: np.ndarray, state) -> np.ndarray:
+    def _light_volts(self, heat_release_ratio: np.ndarray, flame_mask: np.ndarray, state,
+                     sound_q: np.ndarray | float = 0.0) -> np.ndarray:
+        """The light channel; ``sound_q`` is the heat release the noise that travels as sound
+        brings (the flame's radiated noise and its answer to the noise's velocity)."""
         sc, n = self.scenario, self._block_n
-        flicker = sc.noise.light_flame_noise * self._l_noise.block(n)[0]
+        optical = np.sqrt(1.0 - sc.noise.flame_noise_radiated)   # the rest of the flame noise is radiated
+        flicker = sc.noise.light_flame_noise * optical * self._l_noise.block(n)[0] + sound_q
         mean_v = sc.light.mean_signal * state.flow_factor
         signal_v = np.where(flame_mask, mean_v * (1.0 + heat_release_ratio + flicker), 0.0)
         sat = active_mask(self._faults.light_saturation, self._index, n)

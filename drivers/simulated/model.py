@@ -116,6 +116,20 @@ def true_sensor_errors(scenario: Scenario, rig: Rig, seed: int) -> tuple[np.ndar
     return gains, phases
 
 
+def true_flow_rig(scenario: Scenario, rig: Rig, seed: int) -> Rig:
+    """The rig with its flow meters' readings replaced by the true flows (scenario's flow_meters)."""
+    spec = scenario.flow_meters
+    if not rig.gas.flows or (spec.reading_spread == 0.0 and not spec.errors):
+        return rig
+    rng = np.random.default_rng([seed, 6])
+    draws = spec.reading_spread * np.clip(rng.standard_normal(len(rig.gas.flows)), -2.5, 2.5)
+    flows = []
+    for meter, draw in zip(rig.gas.flows, draws):
+        err = spec.errors[meter.name].error if meter.name in spec.errors else float(draw)
+        flows.append(meter.model_copy(update={"flow": meter.flow * (1.0 + err)}))
+    return rig.model_copy(update={"gas": rig.gas.model_copy(update={"flows": tuple(flows)})})
+
+
 class BurnerModel:
     """True physics of a rig + scenario; responses are cached per frequency and drift state."""
 
@@ -123,7 +137,7 @@ class BurnerModel:
         self.rig, self.scenario = rig, scenario
         self.flame = build_flame(scenario, rig)
         self.speaker = build_speaker(scenario)
-        self._mean = mean_flow(rig)
+        self._mean = mean_flow(true_flow_rig(scenario, rig, seed))   # the true flows, not the meters' readings
         self._composition = self._mean.composition
         sc, duct = scenario, rig.duct
         self.geometry = BurnerGeometry(
@@ -237,6 +251,31 @@ class BurnerModel:
         net = self.network(freq_hz, state, flame)
         f_lin = complex(self.flame.linear(freq_hz)) if flame else 0j
         return net.sensor_pressures(net.source_state(f_lin, 1.0))
+
+    def noise_transfers(self, freq_hz: float, state: DriftState, flame: bool) -> tuple[np.ndarray, np.ndarray]:
+        """Linear responses at ``freq_hz`` to the two sound sources of the noise, with the flame's
+        feedback: rows (sensor pressures in Pa ..., light fluctuation q'/Q̄) per unit source.
+
+        Row set 0, inflow sound: per unit source volume velocity at the plenum (m³/s) — the
+        sensors' pressures and the flame's heat release F û_ref/ū it drives. Row set 1, flame
+        noise: per unit independent heat-release fluctuation q_n/Q̄ at the flame, which adds
+        (θ − 1) ū q_n to the velocity jump (Rankine–Hugoniot, compact low-Mach flame): the
+        network answers with p̂₀ = −w₁ (θ − 1) ū q_n / D at the rigid source end; the light sees
+        q_n + F û_ref/ū."""
+        net = self.network(freq_hz, state, flame)
+        f_lin = complex(self.flame.linear(freq_hz)) if flame else 0j
+        u_bar = net.flow.velocity_reference_m_s
+        s0 = net.source_state(f_lin, 1.0)
+        inflow = np.append(net.sensor_pressures(s0), f_lin * complex(net.reference_velocity(s0)) / u_bar)
+        theta = net.flow.temperature_ratio
+        if not flame:
+            return inflow, np.zeros_like(inflow)
+        d = complex(net.characteristic(f_lin))
+        jump = (theta - 1.0) * u_bar
+        p0 = -complex(net._end_w[..., 1]) * jump / d if d != 0 else 0j
+        rest = np.array([p0, 0.0], dtype=complex)
+        flame_rows = np.append(net.sensor_pressures(rest), 1.0 + f_lin * complex(net.reference_velocity(rest)) / u_bar)
+        return inflow, flame_rows
 
     # ------------------------------------------------------------------ time series
     def forced(self, z: np.ndarray, freq_hz: np.ndarray, state: DriftState, flame: bool,

@@ -119,6 +119,24 @@ class NoiseSpec(_Strict):
     light_flame_noise: number(0.0, 10.0) = 0.03  # rms of I'/Ī, broadband
     light_corner: Frequency = 1500.0
     light_shot_coefficient: quantity("voltage", 0.0, 1.0, unit="V") = 1e-6  # σ² = coef · mean
+    # Noise that travels as sound (docs/scenario-file.md, "Noise that travels as sound"):
+    # the share of the pressure noise power near the drive frequency that is a sound field from
+    # a source at the plenum (inflow turbulence), reaching every sensor through the network
+    acoustic_fraction: Fraction = 0.0
+    # the share of the light's flame noise that is heat-release fluctuation radiating sound at the
+    # flame (the rest is optical flicker only); the sensors hear it through the network
+    flame_noise_radiated: Fraction = 0.0
+
+
+class FlowMeterError(_Strict):
+    """A flow meter's true error: true flow = (1 + error) × the rig file's stated flow."""
+
+    error: number(-0.5, 0.5) = 0.0
+
+
+class FlowMeterSpec(_Strict):
+    reading_spread: number(0.0, 0.2) = 0.0  # relative std of true/stated flow, drawn per meter from the seed
+    errors: dict[str, FlowMeterError] = Field(default_factory=dict)  # explicit per meter name
 
 
 class SensorError(_Strict):
@@ -200,6 +218,7 @@ class Scenario(_Strict):
     loudspeaker: LoudspeakerSpec = LoudspeakerSpec()
     noise: NoiseSpec = NoiseSpec()
     sensors: SensorSpec = SensorSpec()
+    flow_meters: FlowMeterSpec = FlowMeterSpec()
     light: LightSpec = LightSpec()
     adc: AdcSpec = AdcSpec()
     drift: DriftSpec = DriftSpec()
@@ -243,6 +262,11 @@ class Scenario(_Strict):
         for ch in self.sensors.errors:
             if ch not in names:
                 problems.append(f"sensors.errors.{ch}: no pressure sensor '{ch}' in rig {rig.name!r}")
+        meters = {f.name for f in rig.gas.flows}
+        for name in self.flow_meters.errors:
+            if name not in meters:
+                problems.append(f"flow_meters.errors.{name}: no flow meter '{name}' in rig {rig.name!r}"
+                                f" ({', '.join(sorted(meters)) or 'it states a mean velocity'})")
         drop = self.faults.sensor_dropout
         if drop.enabled and drop.channel not in rig.input_channels:
             problems.append(f"faults.sensor_dropout.channel: '{drop.channel}' is not an input channel of "
