@@ -162,7 +162,7 @@ class Prescan(_Strict):
     enabled: bool = False
     window: quantity("time", 0.05, 60.0, unit="s") = 0.5
     levels: number(1, 6, integer=True) = 3
-    total_level: number(0.0, 10.0, lo_open=True) = 1.5
+    total_level: number(0.0, 10.0, lo_open=True) = 1.25
     precision: number(0.0, 1.0, lo_open=True) = 0.02
     repeat_after: quantity("time", 1.0, 86400.0, unit="s") = 600.0
     table_fresh: quantity("time", 0.0, 30 * 86400.0, unit="s") = 3600.0
@@ -178,6 +178,7 @@ class Survey(_Strict):
     enabled: bool = False
     max_iterations: number(1, 20, integer=True) = 6
     lines_per_record: number(0, MAX_FREQUENCIES, integer=True) = 0
+    total_max: number(0.0, 2.0, lo_open=True) = 0.25
 
 
 class Refinement(_Strict):

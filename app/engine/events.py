@@ -131,6 +131,16 @@ class TransferMeasured(Event):
 
 
 @dataclass(frozen=True)
+class Notice(Event):
+    """Something the operator should read that is neither a fault nor a result (e.g. the caution
+    that a multi-sine survey measures the linear FTF only, or why it was not made)."""
+
+    name: str
+    message: str
+    wall_time_s: float = field(default_factory=time.time)
+
+
+@dataclass(frozen=True)
 class FaultRaised(Event):
     name: str                 # stable fault name, e.g. "input-clipping"
     message: str              # what happened, in plain words, naming the channel/point

@@ -54,6 +54,15 @@ class _Line:
     ratio: float = 0.0                # |u'|/u_mean reached at the last level
 
 
+def within_ceiling(grid: LineGrid, amps: np.ndarray, phases: np.ndarray, ceiling_v: float) -> np.ndarray:
+    """The lines scaled down so that the sum's peak (8 times finer than the samples) stays below
+    ``PEAK_MARGIN`` of the ceiling; the guard refuses anything above the ceiling itself anyway."""
+    fine = LineGrid(grid.sample_rate_hz * 8, grid.period_samples * 8, grid.harmonics)
+    peak = float(np.max(np.abs(period_waveform(fine, amps, phases))))
+    limit = PEAK_MARGIN * ceiling_v
+    return amps * (limit / peak) if peak > limit else amps
+
+
 def skip_reason(plan: Any, drive: Any, prior: tuple, prior_age_s: float | None) -> str:
     """Why no pre-scan is made ("" when it is)."""
     pre = plan.prescan
@@ -125,11 +134,7 @@ class PreScan:
 
     # ------------------------------------------------------------------ internals
     def _fit_ceiling(self, grid: LineGrid, amps: np.ndarray, phases: np.ndarray) -> np.ndarray:
-        """Scale the lines down so that the sum's peak stays below the ceiling (with a margin)."""
-        fine = LineGrid(grid.sample_rate_hz * 8, grid.period_samples * 8, grid.harmonics)
-        peak = float(np.max(np.abs(period_waveform(fine, amps, phases))))
-        limit = PEAK_MARGIN * self.e.ceiling_v
-        return amps * (limit / peak) if peak > limit else amps
+        return within_ceiling(grid, amps, phases, self.e.ceiling_v)
 
     @staticmethod
     def _update(lines: list[_Line], amps: np.ndarray, estimates: list) -> float:

@@ -30,7 +30,7 @@ from rich.text import Text
 
 from ..core.phase import phase_as_read_deg
 from .events import (DriveChanged, Event, FaultRaised, PointSettled, StateChanged, SweepFinished,
-                     SweepStarted, TransferMeasured, TuningStep)
+                     SweepStarted, TransferMeasured, TuningStep, Notice)
 
 _STOP = object()
 
@@ -64,7 +64,7 @@ class ProgressDisplay:
                              float(r.phase_rad), float(r.phase_ci95_rad), event.drive_v,
                              tuple(dict.fromkeys((*event.flags, *map(str, getattr(r, "warnings", ()) or ()))))))
         elif isinstance(event, (StateChanged, DriveChanged, TuningStep, FaultRaised, SweepStarted, SweepFinished,
-                                TransferMeasured)):
+                                TransferMeasured, Notice)):
             self._queue.put(event if not isinstance(event, SweepStarted)
                             else ("started", event.n_points, event.run_label, event.backend))
 
@@ -117,6 +117,8 @@ class ProgressDisplay:
             s["error"] = item.measured_ratio / item.target_ratio - 1.0
         elif isinstance(item, TransferMeasured):
             return transfer_text(item)
+        elif isinstance(item, Notice):
+            return Text(f"  note {item.name}: {item.message}", style="cyan")
         elif isinstance(item, FaultRaised):
             style = "bold red" if item.fatal else "yellow"
             where = f"point {item.point_index + 1}: " if item.point_index is not None else ""

@@ -45,7 +45,7 @@ from drivers.protocols import (Acquirer, Advisories, Armable, EmergencyHalt, Ide
 from . import states as S
 from .controller import AmplitudeController, ControllerSettings, Decision, PointTuner
 from .events import (BlockAcquired, DriveChanged, EventBus, FaultRaised, PointSettled, SweepFinished,
-                     SweepStarted, TransferMeasured, TuningStep)
+                     SweepStarted, TransferMeasured, TuningStep, Notice)
 from .faults import Finding, SignalChecks, ended_action, fault_event
 
 
@@ -191,6 +191,7 @@ class SweepEngine:
         self._prior_age_s = prior_age_s
         self.transfer: TransferMeasured | None = None   # the pre-scan's result (or why it was skipped)
         self._prescan_due = False
+        self._surveyed: set[int] = set()     # points measured by the multi-sine survey
 
     # ================================================================== commands
     @property
@@ -268,9 +269,15 @@ class SweepEngine:
         reason = "fault"
         try:
             self._begin()
+            if self._survey_possible():
+                from .survey import Survey
+
+                Survey(self).run()
             for point in self.points:
                 if self._cmd.stop:
                     raise _Stopped()
+                if point.index in self._surveyed:
+                    continue
                 self._measure_point(point)
             reason = "stopped" if self._cmd.stop else "complete"
         except _Stopped:
@@ -347,6 +354,19 @@ class SweepEngine:
             self.transfer = prescan.PreScan(self).run()
             self._set_state(return_to)
         self.bus.publish(self.transfer)
+
+    def _survey_possible(self) -> bool:
+        """True when the plan asks for the multi-sine survey and it can run; else said why (sines follow)."""
+        if not self.plan.survey.enabled:
+            return False
+        from .survey import CAUTION, unavailable_reason
+
+        why = unavailable_reason(self.plan, self.drive)
+        if why:
+            self.bus.publish(Notice("survey-unavailable", f"multi-sine survey not made: {why}; measuring with sines"))
+            return False
+        self.bus.publish(Notice("survey-linear-only", CAUTION))
+        return True
 
     def _set_multisine(self, grid: Any, amplitudes_v: Any, phases_rad: Any) -> float:
         """Request a multi-sine (through the back-end's guard); returns its peak volts."""

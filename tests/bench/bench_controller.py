@@ -15,7 +15,15 @@ rig with the simulated burner in fast mode:
     for this controller and for plain proportional control opening at 10 % of the ceiling
     (how every sweep opened before the soft start).
 
-Run: python tests/bench/bench_controller.py   (--soft-start: table (c) only)
+(d) the pre-scan (issue #15), side by side from one run of each, with 10 s records on the
+    bench plan, on the demo and the resonant scenarios, cold start: the predictive controller
+    without the pre-scan, with it, and with the first run's table as an earlier run's prior:
+    first-window hit rate (within tolerance), median and mean windows per point, the worst
+    TRUE window amplitude / target (drivers.simulated.truth; the pre-scan's multi-sine counts
+    as the sum of its lines' true amplitudes) and the overhead (pre-scan included).
+
+Run: python tests/bench/bench_controller.py   (table (d) and the last line; --all: (a)-(d);
+--soft-start: table (c) only)
 """
 
 from __future__ import annotations
@@ -30,10 +38,11 @@ sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
 from app.engine.controller import AmplitudeController, ControllerSettings  # noqa: E402
-from app.engine.events import EventBus  # noqa: E402
+from app.engine.events import EventBus, TransferMeasured, TuningStep  # noqa: E402
 from app.engine.sweep import SweepEngine  # noqa: E402
 from app.plan import load_plan, plan_from_dict  # noqa: E402
 from app.rig import load_rig, read_toml  # noqa: E402
+from drivers.simulated import truth  # noqa: E402
 from drivers.simulated.burner import SimulatedBurner  # noqa: E402
 from soft_start import forcing_of_sweep  # noqa: E402
 
@@ -60,10 +69,79 @@ def row(name: str, steps: list[int]) -> str:
             f"{max(later):>6} {statistics.median([s - 1 for s in later]):>16.1f}")
 
 
+def prescan_plan(record: str = "10 s", prescan: bool = True):
+    data = read_toml(ROOT / "configs" / "bench-plan.toml")
+    data["timing"] = {**data["timing"], "record": record}
+    data["prescan"] = {"enabled": prescan}
+    return plan_from_dict(data, str(ROOT / "configs" / "bench-plan.toml"))
+
+
+def measured_sweep(plan, rig, scenario, prior=()):
+    """One sweep with the truth watching every tuning window and every pre-scan level."""
+    sim = SimulatedBurner(rig, scenario=scenario, seed=SEED)
+    bus = EventBus()
+    worst, first, transfer = [0.0], {}, []
+    points = {p.index: p for p in plan.points()}
+
+    def watch(ev):
+        if isinstance(ev, TuningStep):
+            p = points[ev.point_index]
+            worst[0] = max(worst[0], truth.true_amplitude_ratio(sim, p.freq_hz, ev.drive_v) / p.peak_ratio)
+            if ev.step == 1:
+                first[ev.point_index] = ev.within_tolerance
+        elif isinstance(ev, TransferMeasured):
+            transfer.append(ev)
+    bus.subscribe(watch)
+    engine = SweepEngine(plan, rig, sim, bus, prior=prior, backend_name="simulated")
+    original = engine._set_multisine
+    target = min(p.peak_ratio for p in points.values())
+
+    def watched(grid, amps, phases):   # the multi-sine: the sum of its lines' TRUE amplitudes
+        total = sum(truth.true_amplitude_ratio(sim, f, a) for f, a in zip(grid.freqs_hz, amps))
+        worst[0] = max(worst[0], total / target)
+        return original(grid, amps, phases)
+    engine._set_multisine = watched
+    t0 = time.perf_counter()
+    reason = engine.run()
+    steps = engine.stats.tuning_steps
+    return {"reason": reason, "hit": sum(first.values()) / max(1, len(first)), "median": statistics.median(steps),
+            "mean": statistics.mean(steps), "worst": worst[0], "overhead": engine.stats.overhead,
+            "wall": time.perf_counter() - t0, "engine": engine,
+            "prescan_s": transfer[0].duration_s if transfer and not transfer[0].skipped else 0.0}
+
+
+def prescan_table(rig) -> float:
+    """Table (d); returns the median windows per point, cold start with the pre-scan (the larger of
+    the two scenarios)."""
+    print("(d) pre-scan, bench plan 100-2000 Hz / 50 Hz, 10 s records, cold start; worst = TRUE amplitude / target")
+    print(f"{'scenario':<20} {'controller':<34} {'first hit':>9} {'median':>7} {'mean':>6} {'worst':>6} "
+          f"{'overhead':>9} {'pre-scan':>9}")
+    result = None
+    for scenario in ("demo-scenario.toml", "resonant-scenario.toml"):
+        path = ROOT / "configs" / scenario
+        cold = measured_sweep(prescan_plan(prescan=False), rig, path)
+        table = cold["engine"].controller.memory.table(0.05)
+        rows = (("predictive, no pre-scan", cold),
+                ("predictive + pre-scan", measured_sweep(prescan_plan(), rig, path)),
+                ("predictive + earlier run's table", measured_sweep(prescan_plan(prescan=False), rig, path,
+                                                                  prior=table)))
+        for label, r in rows:
+            print(f"{scenario[:-5]:<20} {label:<34} {r['hit']:>9.0%} {r['median']:>7.1f} {r['mean']:>6.2f} "
+                  f"{r['worst']:>6.2f} {r['overhead']:>9.1%} {r['prescan_s']:>7.1f} s   ({r['reason']}, "
+                  f"{r['wall']:.0f} s wall)")
+            if label == "predictive + pre-scan":
+                result = r["median"] if result is None else max(result, r["median"])
+    return float(result)
+
+
 def main() -> None:
     rig = load_rig(ROOT / "configs" / "demo-rig.toml")
     if "--soft-start" in sys.argv:
         soft_start_table(rig)
+        return
+    if "--all" not in sys.argv:
+        median = prescan_table(rig)
+        print(f"median tuning windows per point (cold start, pre-scan): {median:g}")
         return
     plan_path = ROOT / "configs" / "bench-plan.toml"
     plan = load_plan(plan_path, rig)
@@ -106,6 +184,9 @@ def soft_start_table(rig) -> None:
                 f = forcing_of_sweep(plan, rig, ROOT / "configs" / scenario, seed=SEED, controller=ctrl)
                 print(f"{plan_name[:-5]:<16} {scenario[:-5]:<20} {label:<30} {f.worst_ratio:>7.2f} "
                       f"{f.worst_at_hz:>7.0f} {f.windows_per_point:>11.2f}")
+    if "--all" in sys.argv:
+        median = prescan_table(rig)
+        print(f"median tuning windows per point (cold start, pre-scan): {median:g}")
 
 
 if __name__ == "__main__":
