@@ -42,7 +42,7 @@ if TYPE_CHECKING:  # app.rig imports this module lazily; the types are only for 
 FORMAT = "flamebode-calibration"
 VERSION = 1
 DOC = "docs/calibration-file.md"
-METHODS = ("common-plane",)
+METHODS = ("common-plane", "sensor-swap")
 ARRAYS = ("gain", "phase_deg", "u_gain", "u_phase_deg", "coherence")
 
 

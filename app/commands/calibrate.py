@@ -1,4 +1,5 @@
-"""``flamebode calibrate RIG``: relative calibration of the pressure sensors (common-plane method).
+"""``flamebode calibrate RIG``: relative calibration of the pressure sensors (common-plane method;
+``--method sensor-swap`` in the duct is app.commands.sensor_swap).
 
 With every pressure sensor mounted in a calibration holder (one axial plane, the same
 pressure), a stepped sine over ``--band`` every ``--step`` Hz, each frequency tuned so that
@@ -67,8 +68,9 @@ def coherence_text(worst: float) -> str:
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("rig", help="rig file (TOML), see docs/rig-file.md")
-    p.add_argument("--method", choices=("common-plane",), default="common-plane",
-                   help="common-plane: every sensor in a holder at one plane (default)")
+    p.add_argument("--method", choices=("common-plane", "sensor-swap"), default="common-plane",
+                   help="common-plane: every sensor in a holder at one plane (default); sensor-swap: in the duct, "
+                        "each sensor exchanged with the reference in turn (the tool waits for each swap)")
     p.add_argument("--band", default="100-2000", help="LOW-HIGH in Hz (default 100-2000)")
     p.add_argument("--step", type=float, default=50.0, help="frequency step in Hz (default 50)")
     p.add_argument("--reference", help="reference sensor (default: the rig's first pressure sensor)")
@@ -162,6 +164,13 @@ def run(args: argparse.Namespace) -> int:
     from ..outputs import output_target
 
     out = output_target(args.out, "calibration file", _is_calibration)   # never over a rig file or a run's files
+    if args.method == "sensor-swap":
+        if second:
+            raise CalibrateCommandError("--check-reference: the sensor-swap method has no second reference; use it "
+                                        "with --method common-plane")
+        from .sensor_swap import run_swap
+
+        return run_swap(args, rig, reference, freqs, cut_on, target_pa, record_s, out)
     return _calibrate(args, rig, reference, second, freqs, cut_on, target_pa, record_s, out)
 
 
@@ -186,13 +195,39 @@ def _open(args: argparse.Namespace, rig: Any) -> Any:
     return open_backend(args.backend, rig)
 
 
-def _calibrate(args: argparse.Namespace, rig: Any, reference: str, second: str | None, freqs: list[float],
-               cut_on: float, target_pa: float, record_s: float, out: Path) -> int:
+def drive_pass(holder: Any, device: Any, freqs: list[float], on_record: Any, out: Path) -> None:
+    """One stepped-sine pass of ``holder`` over ``freqs``; whatever happens the drive ends at zero
+    (ramped, or zeroed at once if the ramp fails) and the back-end is closed; a stop signal
+    raises CalibrationStopped (nothing written)."""
     from drivers.registry import close_backend
 
-    from ..core import calibration as core
-    from .holder_run import DriveSettings, Halted, HolderRun
+    from .holder_run import Halted
     from .running import StopSignals
+
+    with StopSignals(holder) as stops:
+        try:
+            holder.run(freqs, on_record)
+        except Halted:
+            pass
+        except FlamebodeError:
+            if stops.received is None:   # after a signal, a refused request (halt latched) is the stop itself
+                raise
+        finally:
+            try:
+                holder.ramp_to_zero()
+            except Exception as exc:     # never leave the drive on: zero it at once instead
+                holder.halt(f"the ramp to zero failed: {exc}")
+                print(f"warning: the ramp to zero failed ({exc}); the output was zeroed at once", file=sys.stderr)
+            finally:
+                close_backend(device)
+    if stops.received is not None:
+        raise CalibrationStopped(stops.received, out)
+
+
+def _calibrate(args: argparse.Namespace, rig: Any, reference: str, second: str | None, freqs: list[float],
+               cut_on: float, target_pa: float, record_s: float, out: Path) -> int:
+    from ..core import calibration as core
+    from .holder_run import DriveSettings, HolderRun
 
     sensors = [s.channel for s in rig.pressure_sensors]
     sens = [s.sensitivity for s in rig.pressure_sensors]
@@ -214,37 +249,26 @@ def _calibrate(args: argparse.Namespace, rig: Any, reference: str, second: str |
               f"{coherence_text(float(q.coherence[others].min()))}  "
               f"u(gain) <= {q.u_gain_rel[others].max() * 100:.3f} %{note}", flush=True)
 
-    with StopSignals(holder) as stops:
-        try:
-            holder.run(freqs, on_record)
-        except Halted:
-            pass
-        except FlamebodeError:
-            if stops.received is None:   # after a signal, a refused request (halt latched) is the stop itself
-                raise
-        finally:
-            try:
-                holder.ramp_to_zero()
-            except Exception as exc:     # never leave the drive on: zero it at once instead
-                holder.halt(f"the ramp to zero failed: {exc}")
-                print(f"warning: the ramp to zero failed ({exc}); the output was zeroed at once", file=sys.stderr)
-            finally:
-                close_backend(device)
-        if stops.received is not None:
-            raise CalibrationStopped(stops.received, out)
-        cal = core.assemble(results[reference], sensors, reference)
-        check = None
-        if second:
-            check = core.consistency(cal, core.assemble(results[second], sensors, second))
-            print(f"check against {second}: largest deviation {check.worst_z:.2f} standard uncertainties "
-                  f"({check.worst_part} of {check.worst_sensor} at {check.worst_freq_hz:g} Hz)")
-            if not check.consistent:
-                raise CalibrateCommandError(
-                    f"the calibrations against {reference} and {second} disagree: the {check.worst_part} of "
-                    f"{check.worst_sensor} at {check.worst_freq_hz:g} Hz by {check.worst_z:.1f} standard "
-                    f"uncertainties (limit {check.limit:g}); nothing written. Check the holder (every sensor at "
-                    f"one plane, sealed) and repeat")
-        written = _write(out, cal, rig, args, target_pa, record_s, cut_on, check)   # atomic: whole or absent
+    drive_pass(holder, device, freqs, on_record, out)
+    cal = core.assemble(results[reference], sensors, reference)
+    check = None
+    if second:
+        check = core.consistency(cal, core.assemble(results[second], sensors, second))
+        print(f"check against {second}: largest deviation {check.worst_z:.2f} standard uncertainties "
+              f"({check.worst_part} of {check.worst_sensor} at {check.worst_freq_hz:g} Hz)")
+        if not check.consistent:
+            raise CalibrateCommandError(
+                f"the calibrations against {reference} and {second} disagree: the {check.worst_part} of "
+                f"{check.worst_sensor} at {check.worst_freq_hz:g} Hz by {check.worst_z:.1f} standard "
+                f"uncertainties (limit {check.limit:g}); nothing written. Check the holder (every sensor at "
+                f"one plane, sealed) and repeat")
+    written = _write(out, cal, rig, args, target_pa, record_s, cut_on, check)   # atomic: whole or absent
+    return finish(args, rig, written, reference, freqs, check)
+
+
+def finish(args: argparse.Namespace, rig: Any, written: Path, reference: str, freqs: list[float],
+           check: Any) -> int:
+    """What every method says after its file is written, and its note in the commissioning record."""
     print(f"calibration file: {written}")
     _note_in_record(args, rig, written, reference, freqs, check)
     print(f"to use it, add to {rig.source_path} (before its first table): "

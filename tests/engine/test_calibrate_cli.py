@@ -74,6 +74,30 @@ def test_calibrate_writes_a_file_that_matches_the_simulated_sensors(tmp_path):
     assert first["peak_v"] <= 0.002 * 2.0 + 1e-12                          # soft start: 0.2 % of the ceiling
 
 
+@pytest.mark.slow
+def test_sensor_swap_in_the_duct_recovers_the_simulated_sensors(tmp_path):
+    # Chung & Blaser 1980 (J. Acoust. Soc. Am. 68:907): H_c = sqrt(H_I H_II) = S_i/S_ref whatever the
+    # duct's sound field; on the simulated rig (flame lit, duct mode) every sensor's factor must
+    # match the simulator's true relative factor within 4 of its stated standard uncertainties
+    out = tmp_path / "swap.toml"
+    proc = _run([str(RIG), "--method", "sensor-swap", "--band", "100-1000", "--step", "150", "--reference", "p1",
+                 "--fast", "--seed", "3", "--out", str(out), "--commissioning-record", str(tmp_path / "c.toml")],
+                timeout=300)
+    assert proc.returncode == 0 and "Traceback" not in proc.stderr, proc.stderr
+    assert "p1<->p4" in proc.stdout and f"calibration file: {out}" in proc.stdout
+    cal = read_calibration(out)
+    assert cal.method == "sensor-swap" and cal.reference == "p1"
+    true = truth.true_relative_factors(SimulatedBurner(load_rig(RIG), seed=3, holder=True), "p1")
+    for s in cal.sensors:
+        c = np.array(s.gain) * np.exp(1j * np.radians(s.phase_deg))
+        err = c / true[s.name]
+        assert np.all(np.abs(np.log(np.abs(err))) <= 4 * np.array(s.u_gain) + 1e-12), (s.name, err)
+        assert np.all(np.abs(np.angle(err)) <= 4 * np.radians(s.u_phase_deg) + 1e-12), (s.name, err)
+    refused = _run([str(RIG), "--method", "sensor-swap", "--check-reference", "p2", "--fast", "--out",
+                    str(tmp_path / "x.toml")])
+    assert refused.returncode == 2 and "no second reference" in refused.stderr and not (tmp_path / "x.toml").exists()
+
+
 @pytest.mark.parametrize("args, expected", [
     (["--band", "2000-100"], "--band '2000-100': expected LOW-HIGH in Hz with 0 < LOW <= HIGH"),
     (["--band", "a-b"], "--band 'a-b': expected LOW-HIGH in Hz"),
