@@ -160,7 +160,7 @@ class Prescan(_Strict):
     """[prescan]: the drive-to-velocity transfer measured with a low multi-sine before the first point."""
 
     enabled: bool = False
-    window: quantity("time", 0.05, 60.0, unit="s") = 0.5
+    window: quantity("time", 0.05, 60.0, unit="s") = 1.0
     levels: number(1, 6, integer=True) = 3
     total_level: number(0.0, 10.0, lo_open=True) = 1.25
     precision: number(0.0, 1.0, lo_open=True) = 0.02
@@ -311,7 +311,21 @@ class Plan(_Strict):
             step_s = ramp_time_s + t.tuning_discard + window_s
             settle_left = max(0.0, t.settle_s(p.freq_hz) - t.tuning_discard - window_s)
             total += tuning_steps * step_s + settle_left + t.record + overhead_s
-        return total
+        if self.prescan.enabled:
+            total += self.prescan.worst_case_s(ramp_time_s, t.tuning_discard)
+        return total + self.refinement_worst_case_s(ramp_time_s)
+
+    def refinement_worst_case_s(self, ramp_time_s: float = 0.3) -> float:
+        """Longest the refinement's budget can add: every inserted point at the plan's longest
+        per-point time (all tuning steps at the lowest frequency's window); 0 when it is off."""
+        r, t = self.refinement, self.timing
+        if not r.enabled or r.budget == 0:
+            return 0.0
+        f_min = float(self.frequencies.all_hz().min())
+        window_s = math.ceil(t.tuning_window * f_min) / f_min
+        per_point = (self.tuning.max_steps * (ramp_time_s + t.tuning_discard + window_s)
+                     + t.settle_s(f_min) + t.record + 0.05)
+        return r.budget * per_point * len(set(self.amplitude.values))
 
     def describe_checks(self, rig: Rig | None = None) -> list[str]:
         """The checks the engine will run, in plain words (for --dry-run)."""
@@ -320,6 +334,19 @@ class Plan(_Strict):
             f"{tu.ceiling:g} V" if tu.ceiling else "the rig's ceiling")
         unreachable = ("record at the ceiling and flag" if tu.when_unreachable == "record-at-ceiling"
                        else "skip the point and flag")
+        extra = []
+        if self.prescan.enabled:
+            extra.append(f"pre-scan: a multi-sine at every plan frequency before the first point, the sum of its "
+                         f"lines at most {self.prescan.total_level:g} x the smallest target, its peak under the "
+                         f"ceiling (about {self.prescan.worst_case_s():.0f} s at most)")
+        if self.survey.enabled:
+            extra.append(f"multi-sine survey: lines forced together, the sum of their targets at most "
+                         f"{self.survey.total_max:g}; the LINEAR FTF only (a non-linear flame couples the lines)")
+        if self.refinement.enabled:
+            extra.append(f"refinement: up to {self.refinement.budget} inserted points (flagged 'refined') where gain "
+                         f"changes by more than {self.refinement.gain_change:.0%} or phase by more than "
+                         f"{self.refinement.phase_change:g} rad between neighbours; worst case "
+                         f"{self.refinement_worst_case_s(0.3) / 60:.1f} min more")
         return [
             f"drive never above {ceiling} peak; unreachable target: {unreachable}",
             f"tuning within {tu.tolerance:.1%} of the target in at most {tu.max_steps} steps "
@@ -342,7 +369,7 @@ class Plan(_Strict):
             f"quality flags: SNR < {q.snr_db_min:g} dB, residual > {q.residual_max:g}, pair spread > "
             f"{q.pair_spread_max:g}, distortion > {q.distortion_max:g}, drift > {q.drift_max:g}, "
             f"cond > {q.cond_max:g}",
-        ]
+        ] + extra
 
     def resolve(self, name: Literal["rig", "scenario"]) -> Path | None:
         """The plan's default rig or scenario file, relative to the plan file."""

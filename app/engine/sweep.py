@@ -36,6 +36,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from app.core.point import FtfPoint
 from app.core.quality import quality_flags
 from app.errors import FlamebodeError
 from drivers.errors import BackendTimeout, DriverError
@@ -192,6 +193,8 @@ class SweepEngine:
         self.transfer: TransferMeasured | None = None   # the pre-scan's result (or why it was skipped)
         self._prescan_due = False
         self._surveyed: set[int] = set()     # points measured by the multi-sine survey
+        self._refined: set[int] = set()      # points inserted by the refinement
+        self._results: dict[int, Any] = {}   # point index -> its latest stored result (for refinement)
 
     # ================================================================== commands
     @property
@@ -279,6 +282,8 @@ class SweepEngine:
                 if point.index in self._surveyed:
                     continue
                 self._measure_point(point)
+            if self.plan.refinement.enabled and not self._cmd.stop:
+                self._refine()
             reason = "stopped" if self._cmd.stop else "complete"
         except _Stopped:
             reason = "stopped"
@@ -354,6 +359,34 @@ class SweepEngine:
             self.transfer = prescan.PreScan(self).run()
             self._set_state(return_to)
         self.bus.publish(self.transfer)
+
+    def _refine(self) -> None:
+        """Adaptive refinement (``refine``): rounds of inserted points, up to the plan's budget."""
+        from app.plan import PlanPoint
+
+        from . import refine
+
+        settings = self.plan.refinement
+        left = settings.budget
+        while left > 0 and not self._cmd.stop:
+            new: list[Any] = []
+            for amplitude in sorted({p.amplitude_ratio for p in self._all_points}):
+                measured = [refine.from_result(r) for i, r in self._results.items()
+                            if self._all_points[i].amplitude_ratio == amplitude]
+                wanted = refine.candidates(measured, settings.model_copy(update={"budget": left - len(new)}),
+                                           [p.freq_hz for p in self._all_points if p.amplitude_ratio == amplitude])
+                peak = amplitude * self.plan.amplitude.to_peak
+                for f in wanted:
+                    new.append(PlanPoint(len(self._all_points) + len(new), f, amplitude, peak))
+            if not new:
+                return
+            self._all_points.extend(new)
+            for point in new:
+                self._refined.add(point.index)
+                self._measure_point(point)
+                if self._cmd.stop:
+                    return
+            left -= len(new)
 
     def _survey_possible(self) -> bool:
         """True when the plan asks for the multi-sine survey and it can run; else said why (sines follow)."""
@@ -565,7 +598,7 @@ class SweepEngine:
         if left > 0:
             self._discard(left, S.SETTLING)
 
-    def _evaluate_record(self, point: Any, record: np.ndarray) -> Any | None:
+    def _evaluate_record(self, point: Any, record: np.ndarray) -> FtfPoint | None:
         try:
             result = self._evaluate(record, self._channels, self._fs, point.freq_hz, self.rig)
         except (ArithmeticError, ValueError, np.linalg.LinAlgError, FlamebodeError) as exc:
@@ -578,9 +611,12 @@ class SweepEngine:
             self._point_flags.append("amplitude-off-target")
         return result
 
-    def _store(self, point: Any, drive_v: float, record: np.ndarray, result: Any, started_wall_s: float,
+    def _store(self, point: Any, drive_v: float, record: np.ndarray, result: FtfPoint, started_wall_s: float,
                recorded_wall_s: float) -> None:
         flags = tuple(dict.fromkeys(self._point_flags + list(quality_flags(result.quality, self.plan.quality))))
+        if point.index in self._refined:
+            flags += ("refined",)
+        self._results[point.index] = result
         attempt_id = f"{self.run_label}-point{point.index + 1:04d}-{uuid.uuid4().hex[:8]}"
         self.bus.publish(PointSettled(
             attempt_id=attempt_id, point_index=point.index, freq_hz=point.freq_hz,

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 
 from .. import __version__
+from ..core.point import FtfPoint
 from ..engine.events import Event, EventBus, FaultRaised, PointSettled, SweepFinished, SweepStarted, TransferMeasured
 from ..errors import FlamebodeError
 from . import index
@@ -90,8 +91,9 @@ def _num(value: Any) -> float | None:
     return out if np.isfinite(out) else None
 
 
-def analysis_from_result(result: Any) -> dict[str, Any]:
-    """Plain numbers from a core FtfPoint (read defensively: missing attributes become None)."""
+def analysis_from_result(result: FtfPoint) -> dict[str, Any]:
+    """Plain numbers from a core FtfPoint (read defensively: missing attributes become None, so a
+    partial stand-in in a test or an older result type still stores what it has)."""
     vel = getattr(result, "velocity", None)
     ftf = getattr(result, "ftf", None)
     ftf_c = complex(ftf) if ftf is not None else None
@@ -374,6 +376,8 @@ class RunWriter:
                    "started_wall_s": float(ev.started_wall_s), "recorded_wall_s": float(ev.recorded_wall_s), "stored_wall_s": time.time()}
             analysis.update(rig_path=SNAPSHOT_RIG, rig_sha256=self.rig_sha256, tool_version=__version__)
             with conn:
+                # a point the plan did not list (inserted by the engine's refinement) joins the points table
+                index.upsert_points(conn, [(int(ev.point_index), float(ev.freq_hz), float(ev.target_ratio))])
                 index.insert_attempt(conn, row, analysis)
         except Exception as exc:
             if final is not None:  # renamed but not indexed: remove it so no orphan is left behind
