@@ -7,7 +7,8 @@ frames of an output ring into ``outdata`` (zeros and a count when short), and th
 status flags into counters. The main thread takes blocks of ``block_n`` frames from the
 input ring, runs :class:`~drivers.emulator.physics.ReceivedDriveBurner` on them and writes
 the channels (digital = volts / full scale, clipped to [-1, 1] and counted) to the output
-ring, ``lead_blocks`` blocks ahead of the callback. When the callback finds the ring short
+ring, ``lead_blocks`` blocks ahead of the callback. A received block with a sample beyond
+digital full scale (or not finite) is taken as silence and counted (``invalid_blocks``). When the callback finds the ring short
 (the main thread was late) it plays zeros and counts them; as many rendered frames are then
 left out, so the delay through the emulator stays at the lead instead of growing.
 
@@ -102,7 +103,7 @@ class AudioEmulator:
         self._resample_pos = 0.0
         self._resample_tail = np.zeros((1, self.n_out))
         self.counts = {"input_overflow": 0, "input_underflow": 0, "output_underflow": 0, "output_overflow": 0,
-                       "starved": 0, "clipped": 0, "reconnects": 0, "blocks": 0}
+                       "starved": 0, "clipped": 0, "reconnects": 0, "blocks": 0, "invalid_blocks": 0}
         self._stop = threading.Event()
         self._stream: Any = None
         self._sd: Any = None
@@ -200,11 +201,17 @@ class AudioEmulator:
                     self.status.write(event="audio-server-lost", **self._counts())
                     self._abandon()
                     self._wait_for_server(t_end)
+                    acc = _Interval()           # what follows is received on the new connection only
                     continue
                 if self.in_ring.w - self.in_ring.r < self.block_n:
                     time.sleep(0.002)
                 else:
                     self.in_ring.take(block)
+                    if not np.all(np.abs(block) <= 1.0):
+                        # beyond full scale (or not a number): no converter plays that; it is what a
+                        # dying connection leaves in a buffer. A gap, counted, not a drive.
+                        block.fill(0.0)
+                        self.counts["invalid_blocks"] += 1
                     t0 = time.perf_counter()
                     self._process(block[:, 0].astype(np.float64) * self.cfg.output_full_scale_v, acc)
                     acc.proc_max_s = max(acc.proc_max_s, time.perf_counter() - t0)
@@ -233,6 +240,7 @@ class AudioEmulator:
             c[k] += int(v)
         c["starved"] += self._cb_starved
         c["dropped_frames"] = self._dropped_frames
+        c["discontinuities"] = self.burner.discontinuities
         return c
 
     def _process(self, drive_v: np.ndarray, acc: "_Interval") -> None:

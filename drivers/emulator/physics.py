@@ -25,11 +25,15 @@ from drivers.simulated import truth
 
 MIN_DRIVE_V = 1e-4        # peak volts below which the drive counts as off (no frequency estimated)
 HISTORY_S = 0.2           # received drive kept for the frequency estimate
+TWO_PI = 2.0 * math.pi
 FREQ_RESOLUTION_HZ = 0.01 # estimates are rounded to this (keeps the simulator's caches useful)
 
 
 def estimate_frequency(x: np.ndarray, fs: float) -> float:
-    """Frequency (Hz) of a sine from its rising zero crossings (linear interpolation); 0 if < 3."""
+    """Frequency (Hz) of a sine from its rising zero crossings (linear interpolation); 0 if < 3.
+
+    The median period between crossings, so a gap in the signal (a drop-out, a cut) or a
+    frequency change inside the window does not pull the estimate off."""
     x = np.asarray(x, dtype=np.float64)
     x = x - x.mean()
     rising = np.flatnonzero((x[:-1] < 0.0) & (x[1:] >= 0.0))
@@ -37,13 +41,31 @@ def estimate_frequency(x: np.ndarray, fs: float) -> float:
         return 0.0
     frac = -x[rising] / (x[rising + 1] - x[rising])
     t = rising + frac
-    return float((t.size - 1) / (t[-1] - t[0]) * fs)
+    return float(fs / np.median(np.diff(t)))
 
 
 def block_rig(rig: Rig, block_n: int) -> Rig:
     """The rig with its acquisition block set to ``block_n`` samples (the emulator's own step)."""
     acq = rig.acquisition.model_copy(update={"block_duration": block_n / float(rig.acquisition.sample_rate)})
     return rig.model_copy(update={"acquisition": acq})
+
+
+def jumps(x: np.ndarray, theta: float, threshold: float) -> np.ndarray:
+    """Indices k >= 2 of ``x`` where it leaves the sine recursion x[k] = 2cosθ x[k-1] - x[k-2]."""
+    r = x[2:] - 2.0 * math.cos(theta) * x[1:-1] + x[:-2]
+    return np.flatnonzero(np.abs(r) > threshold) + 2
+
+
+def notch(n: int, centres: np.ndarray, width: int) -> np.ndarray:
+    """Gains (n + width) that fall to 0 at each centre as a raised cosine of half-width ``width``."""
+    gain = np.ones(n + width)
+    k = np.arange(-width, width)
+    w = 0.5 - 0.5 * np.cos(np.pi * np.abs(k) / width)
+    for c in centres:
+        idx = c + k
+        ok = (idx >= 0) & (idx < gain.size)
+        gain[idx[ok]] = np.minimum(gain[idx[ok]], w[ok])
+    return gain
 
 
 class ReceivedDriveBurner(SimulatedBurner):
@@ -58,6 +80,10 @@ class ReceivedDriveBurner(SimulatedBurner):
         self._history: deque[np.ndarray] = deque()
         self._history_n = max(block_n, int(HISTORY_S * self._fs))
         self._freq_hz = 0.0
+        self._pending = np.zeros(block_n)      # the block answered next (one block of look-ahead)
+        self._raw_tail = np.zeros(2)           # last two raw samples before the pending block
+        self._carry = np.ones(block_n)         # notch gains reaching into the pending block
+        self.discontinuities = 0
         self.start()
 
     @property
@@ -68,11 +94,35 @@ class ReceivedDriveBurner(SimulatedBurner):
     def _render(self):  # the simulator's hook: the received samples instead of the guard's
         return self._received, self._cps, self._status
 
-    def respond(self, drive_v: np.ndarray) -> tuple[np.ndarray, float, float]:
-        """Channel volts (rig.input_channels order) for one received block; (data, freq_hz, peak_v)."""
-        drive_v = np.asarray(drive_v, dtype=np.float64)
-        if drive_v.size != self.block_n:
-            raise ValueError(f"expected {self.block_n} drive samples, got {drive_v.size}")
+    def respond(self, received_v: np.ndarray) -> tuple[np.ndarray, float, float]:
+        """Channel volts (rig.input_channels order) for the block received *before* this one
+        (one block of look-ahead); (data, freq_hz, peak_v).
+
+        The simulator turns the drive into an analytic signal from consecutive samples, exact for
+        a sine and wild at a jump (a drive cut off mid-period by a dying connection, a gap after a
+        drop-out): a jump would read as a huge amplitude and blow the simulated flame off. Each
+        jump is therefore notched (the drive faded to zero and back over about one period on
+        either side, counted in ``discontinuities``); the look-ahead lets the fade start before it.
+        """
+        received_v = np.asarray(received_v, dtype=np.float64)
+        if received_v.size != self.block_n:
+            raise ValueError(f"expected {self.block_n} drive samples, got {received_v.size}")
+        drive_v = self._pending.copy()
+        raw = np.concatenate([self._raw_tail, drive_v, received_v[:2]])
+        f_est = self._freq_hz if self._freq_hz > 0 else 100.0
+        width = max(16, int(self._fs / f_est))
+        peak_all = float(np.abs(raw).max())
+        found = jumps(raw, TWO_PI * f_est / self._fs, 0.05 * peak_all) - 2 if peak_all >= MIN_DRIVE_V else np.array([], int)
+        gain = notch(self.block_n, found, width)
+        new_carry = np.ones(self.block_n)
+        new_carry[:width] = gain[self.block_n:self.block_n + width]
+        gain = np.minimum(gain[:self.block_n], self._carry)
+        fresh = found[(found >= 0) & (found < self.block_n)]  # the boundary ones count in the next call
+        self.discontinuities += int(np.count_nonzero(np.diff(fresh) > width)) + 1 if fresh.size else 0
+        self._raw_tail = raw[-4:-2]
+        self._pending = received_v.copy()
+        self._carry = new_carry
+        drive_v *= gain
         self._history.append(drive_v)
         while sum(h.size for h in self._history) - self._history[0].size >= self._history_n:
             self._history.popleft()
