@@ -196,3 +196,33 @@ def test_the_run_and_the_progress_display_get_duration_level_and_transfer():
     text = out.getvalue()
     assert "pre-scan: 2 lines 100-150 Hz, 3 levels, 2.2 s, peak drive 0.15 V" in text
     assert "gain per volt (log)" in text and "pre-scan skipped: the back-end cannot" in text
+
+
+@pytest.mark.parametrize("command", ["halt", "abort"])
+def test_halt_or_abort_during_the_prescan_brings_the_multisine_to_zero(rig, tmp_path, command):
+    log_path = tmp_path / "drive.csv"
+    sim = SimulatedBurner(rig, seed=5)
+    plan = short_plan(FREQS, [0.05], record_s=0.2, prescan=ON)
+    bus = EventBus()
+    rec = Recorder()
+    bus.subscribe(rec)
+    engine = SweepEngine(plan, rig, sim, bus, backend_name="simulated")
+    seen = []
+
+    def stop_in_prescan(ev):
+        if engine.state == "pre-scan" and sim.guard.multisine is not None and not seen:
+            seen.append(True)
+            getattr(engine, command)()
+    rec.hooks.append(stop_in_prescan)
+    drive_log.open_log(log_path)
+    try:
+        reason = engine.run()
+        drive_log.flush()
+    finally:
+        drive_log.open_log(None)
+    assert seen and reason == {"halt": "halted", "abort": "aborted"}[command]
+    status = sim.drive_status()
+    assert status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0
+    log = drive_log.read_log(log_path)
+    assert log["end_v"][-1] == 0.0 and np.all(log["peak_v"] <= log["ceiling_v"] + 1e-12)
+    assert not rec.of(PointSettled)
