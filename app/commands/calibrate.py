@@ -262,22 +262,67 @@ def _calibrate(args: argparse.Namespace, rig: Any, reference: str, second: str |
                 f"{check.worst_sensor} at {check.worst_freq_hz:g} Hz by {check.worst_z:.1f} standard "
                 f"uncertainties (limit {check.limit:g}); nothing written. Check the holder (every sensor at "
                 f"one plane, sealed) and repeat")
+    drifted = drift_since_last(args, cal)        # before the file is written: it may replace the last one
     written = _write(out, cal, rig, args, target_pa, record_s, cut_on, check)   # atomic: whole or absent
-    return finish(args, rig, written, reference, freqs, check)
+    return finish(args, rig, written, reference, freqs, check, drifted)
 
 
 def finish(args: argparse.Namespace, rig: Any, written: Path, reference: str, freqs: list[float],
-           check: Any) -> int:
-    """What every method says after its file is written, and its note in the commissioning record."""
+           check: Any, drifted: list[str]) -> int:
+    """What every method says after its file is written, and its note (with the sensors that
+    drifted, :func:`drift_since_last`) in the commissioning record."""
     print(f"calibration file: {written}")
-    _note_in_record(args, rig, written, reference, freqs, check)
+    _note_in_record(args, rig, written, reference, freqs, check, drifted)
     print(f"to use it, add to {rig.source_path} (before its first table): "
           f"pressure_calibration = {json.dumps(str(written.resolve()))}")
     return 0
 
 
+def core_calibration(cf: Any) -> Any:
+    """A calibration file's factors as the core's :class:`~app.core.calibration.Calibration`."""
+    from ..core.calibration import Calibration
+
+    g = np.array([s.gain for s in cf.sensors]).T
+    ph = np.radians(np.array([s.phase_deg for s in cf.sensors]).T)
+    return Calibration(tuple(s.name for s in cf.sensors), cf.reference, np.array(cf.frequency_hz), g * np.exp(1j * ph),
+                       np.array([s.u_gain for s in cf.sensors]).T, np.radians(np.array([s.u_phase_deg
+                                                                                        for s in cf.sensors]).T),
+                       np.array([s.coherence for s in cf.sensors]).T, cf.method, str(getattr(cf, "source", "")))
+
+
+def drift_since_last(args: argparse.Namespace, cal: Any) -> list[str]:
+    """Sensors whose factors moved beyond their uncertainties (app.core.sensor_drift) since the record's previous
+    calibration (printed either way); a previous file that is gone or unreadable is said."""
+    from ..calibration_file import read_calibration
+    from ..commissioning_record import read_record, record_path_for
+    from ..core.sensor_drift import drift_limit, sensor_drift
+
+    try:
+        last = read_record(args.commissioning_record or record_path_for(args.rig)).latest("pressure-calibration")
+    except FlamebodeError:
+        return []
+    if last is None:
+        print("drift: no earlier calibration in the commissioning record to compare with")
+        return []
+    try:
+        previous = core_calibration(read_calibration(last.result.get("file", "")))
+        drift = sensor_drift(previous, cal)
+    except (FlamebodeError, OSError, ValueError) as exc:
+        print(f"drift: not compared with the calibration of {last.date} ({exc})")
+        return []
+    moved = [d for d in drift if d.drifted]
+    for d in moved:
+        amount = f"{d.change * 100:+.2f} %" if d.part == "gain" else f"{np.degrees(d.change):+.2f} deg"
+        print(f"drift: {d.sensor} {d.part} changed by {amount} at {d.freq_hz:g} Hz since {last.date} "
+              f"({d.z:.1f} standard uncertainties): check its mounting, cable and certificate")
+    if not moved:
+        print(f"drift: no sensor moved beyond its uncertainty since {last.date} (limit "
+              f"{drift_limit(len(cal.freq_hz)):.1f} standard uncertainties, 1 % false alarms per sensor)")
+    return [d.sensor for d in moved]
+
+
 def _note_in_record(args: argparse.Namespace, rig: Any, written: Path, reference: str, freqs: list[float],
-                    check: Any) -> None:
+                    check: Any, drifted: list[str] | None = None) -> None:
     """The calibration in the rig's commissioning record (app.commissioning_record); a record that
     cannot be written is said, and the calibration file already written stays."""
     from ..calibration_file import rig_identity
@@ -287,6 +332,8 @@ def _note_in_record(args: argparse.Namespace, rig: Any, written: Path, reference
               "band_high_hz": float(freqs[-1]), "n_frequencies": len(freqs)}
     if check is not None:
         result["check_worst_z"] = float(check.worst_z)
+    if drifted is not None:
+        result["drifted"] = list(drifted)
     try:
         rec = append_check(args.commissioning_record or record_path_for(args.rig), rig.name,
                            Check("pressure-calibration", now_utc(), args.backend, rig_identity(rig), result))

@@ -19,7 +19,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
-from .calibrate import CalibrateCommandError, coherence_text, drive_pass, finish
+from .calibrate import CalibrateCommandError, coherence_text, drift_since_last, drive_pass, finish
 
 
 def swapped_rig(rig: Any, a: str, b: str) -> Any:
@@ -98,5 +98,6 @@ def run_swap(args: argparse.Namespace, rig: Any, reference: str, freqs: list[flo
     cal = core.assemble(points, sensors, reference, method="sensor-swap")
     worst = float(cal.coherence[:, [sensors.index(o) for o in others]].min())
     print(f"lowest {coherence_text(worst)}; largest u(gain) {cal.u_gain_rel.max() * 100:.3f} %")
+    drifted = drift_since_last(args, cal)
     written = _write(out, cal, rig, args, target_pa, record_s, cut_on, None)
-    return finish(args, rig, written, reference, freqs, None)
+    return finish(args, rig, written, reference, freqs, None, drifted)
