@@ -4,6 +4,10 @@ Per point: preparing -> tuning (short windows, drive adjusted by the amplitude c
 -> settling -> recording -> evaluating -> storing, then the next point; at the end the
 drive is ramped to zero. Every state change goes through the table in ``states.py``.
 
+Optional, when the plan asks for them: a transfer pre-scan before the first point
+(``prescan``: a low multi-sine seeds the amplitude controller), a multi-sine survey of the
+linear FTF (``survey``) and adaptive refinement after the plan's points (``refine``).
+
 Commands (thread-safe, for a window or a signal handler on another thread):
 
 * ``pause()`` takes effect at the next step boundary: the drive is ramped to zero and held
