@@ -34,15 +34,17 @@ class ReviewActions:
             self.open_review(Path(name))
 
     def open_review(self, run_dir: Path, show: bool = True) -> None:
-        """Load a run into the review tab (read on the worker); ``show`` switches to the tab."""
+        """Load a run into the review tab (``app.services.runs.review`` on the worker, as the
+        ``review`` command reads it); ``show`` switches to the tab."""
         def done(result: TaskResult) -> None:
             if result.error is None:
-                self.review.load(result.value)
+                rv = result.value
+                self.review.load(rv.run, rv.counts_text, tuple(n.text for n in rv.snapshot_notes if not n.accepted))
                 if show:
                     self.tabs.setCurrentWidget(self.review)
                 self._update_controls()
 
-        self.tasks.submit("open run", lambda: runs.open_run(run_dir), on_done=done)
+        self.tasks.submit("open run", lambda: runs.review(run_dir), on_done=done)
 
     def _review_selected(self, indices: list[int]) -> None:
         if not indices or self.review.run is None:

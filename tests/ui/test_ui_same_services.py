@@ -81,3 +81,19 @@ def test_window_and_cli_call_the_same_services(qtbot, make_window, tiny_plan, tm
     cli_csv = (cli_run / "export" / "points.csv").read_text(encoding="utf-8")
     win_csv = (win_run / "export" / "points.csv").read_text(encoding="utf-8")
     assert cli_csv.splitlines()[0] == win_csv.splitlines()[0] and len(cli_csv.splitlines()) == 4
+
+
+def test_the_review_tab_reads_the_run_as_the_review_command_does(qtbot, make_window, tiny_plan, tmp_path: Path,
+                                                               capsys, monkeypatch) -> None:
+    run_dir = tmp_path / "run"
+    assert main(["sweep", str(tiny_plan), "--fast", "--seed", "7", "--out", str(run_dir)]) == 0
+    spy = Recorder(runs.review)
+    monkeypatch.setattr(runs, "review", lambda d, verify=True: spy(d))
+    capsys.readouterr()
+    assert main(["review", str(run_dir)]) == 0
+    summary = capsys.readouterr().out.splitlines()[-1]
+    win = make_window(tiny_plan)
+    win.open_review(run_dir)
+    qtbot.waitUntil(lambda: win.review.run is not None, timeout=LONG_MS)
+    assert [Path(d) for d in spy.requests] == [run_dir, run_dir]
+    assert summary in win.review.title.text()           # the same count line, word for word

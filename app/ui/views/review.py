@@ -92,15 +92,19 @@ class ReviewView(QWidget):
                   self.reprocess_button, self.export_button):
             b.setEnabled(on)
 
-    def load(self, run: Any) -> None:
+    def load(self, run: Any, summary: str = "", notes: tuple[str, ...] = ()) -> None:
+        """Show a run; ``summary`` is the run's count line as ``review`` prints it, ``notes`` the
+        snapshot notes (both from ``app.services.runs.review``)."""
         self.run = run
         self.thresholds = run_thresholds(run)
         self.points.load_run(run)
         kind = run.kind
-        n_ok = len(run.accepted())
-        problems = f" — {len(run.problems)} problem(s): " + "; ".join(run.problems[:3]) if run.problems else ""
-        self.title.setText(f"<b>{kind} run</b> {run.run_dir} — {n_ok} of {len(run.points)} points with an "
-                           f"accepted attempt, {len(run.flagged_points())} flagged{problems}")
+        if not summary:
+            summary = (f"{len(run.accepted())} of {len(run.points)} points with an accepted attempt, "
+                       f"{len(run.flagged_points())} flagged")
+        shown = list(run.problems) + list(notes)
+        problems = f" — {len(shown)} problem(s): " + "; ".join(shown[:3]) if shown else ""
+        self.title.setText(f"<b>{kind} run</b> {run.run_dir} — {summary}{problems}")
         self.set_enabled(run.index_readable)
         self.attempt_box.clear()
         self.details.clear()
