@@ -18,7 +18,7 @@ from typing import Any
 
 _TABLE = re.compile(r"^\s*\[\s*([A-Za-z0-9_.\-\s\"]+?)\s*\]\s*(#.*)?$")
 _ARRAY_TABLE = re.compile(r"^\s*\[\[")
-_KEY = re.compile(r"^(\s*)([A-Za-z0-9_\-]+)(\s*=\s*)")
+_KEY = re.compile(r"^(\s*)([A-Za-z0-9_\-]+(?:\s*\.\s*[A-Za-z0-9_\-]+)*)(\s*=\s*)")
 
 
 def value_at(data: dict[str, Any], dotted: str) -> Any:
@@ -132,7 +132,8 @@ def set_value(text: str, dotted: str, value_literal: str) -> str:
         if k is None:
             continue
         last_line_of[current] = n
-        if current == table and k.group(2) == key:
+        written = re.sub(r"\s+", "", k.group(2))            # ``a.b = 1`` (a dotted key) names a.b too
+        if (f"{current}.{written}" if current else written) == dotted:
             body = line.rstrip("\r\n")
             end = _value_end(body, k.end())
             if end is None:

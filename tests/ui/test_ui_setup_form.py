@@ -121,3 +121,11 @@ def test_lowering_the_rig_ceiling_in_its_form_flags_the_plans_ceiling(qtbot, set
     qtbot.waitUntil(lambda: not err.isHidden(), timeout=3000)          # the plan is checked against the new rig
     assert "above the rig's ceiling 1.5 V" in err.text()
     assert rig.form.errors["drive.ceiling"].isHidden()                 # the rig itself is valid
+
+
+def test_set_value_finds_a_dotted_key_written_in_a_parent_table() -> None:
+    text = 'name = "x"\ndrive.ceiling = "2 V"   # kept\n\n[tuning]\nlimits.max_steps = 8\n'
+    out = set_value(set_value(text, "drive.ceiling", '"1 V"'), "tuning.limits.max_steps", "5")
+    assert read_values(out, ["drive.ceiling", "tuning.limits.max_steps"]) == \
+        {"drive.ceiling": "1 V", "tuning.limits.max_steps": 5}
+    assert "# kept" in out and out.count("\n") == text.count("\n")
