@@ -66,6 +66,8 @@ def run(args: argparse.Namespace) -> int:
     rig = load_rig(args.rig)
     path = Path(args.commissioning_record) if args.commissioning_record else record_path_for(args.rig)
     record = read_record(path, rig.name)          # a broken record is named before anything is recorded
+    if args.action in ("dark", "light-step", "lamp"):
+        _duration(args.duration)                  # a bad option is named before any caution or recording
     action = {"dark": _dark, "light-step": _light_step, "lamp": _lamp, "linearity": _linearity,
               "uniformity": _uniformity, "hot-wire": _hot_wire, "status": _status}[args.action]
     return action(args, rig, record)
