@@ -30,6 +30,13 @@ def compare(req: CompareRequest) -> CompareResult:
     return CompareResult(figure=Path(_report.compare(list(req.run_dirs), req.out)))
 
 
+def compare_figure_in(run_dir: str | Path, name: str = "compare.png") -> Path:
+    """Where a comparison drawn from a run goes: its export folder (made when missing)."""
+    out = check_run_folder(run_dir) / "export"
+    out.mkdir(exist_ok=True)
+    return out / name
+
+
 def write_report(run_dir: str | Path, out: str | Path | None = None) -> tuple[Path, ...]:
     """The run's report (PDF and PNG pages); the files written."""
     check_run_folder(run_dir)

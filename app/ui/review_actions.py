@@ -5,7 +5,8 @@ about the live sweep.
 
 Everything that reads or writes the run folder runs on the window's worker thread, and every
 operation is the run service the command line uses too (``app.services``: ``runs.open_run``,
-``decisions.decide``, ``reprocess.reprocess``, ``export.export``, ``reacquire.prepare``); the
+``decisions.decide``, ``reprocess.reprocess``, ``export.export``, ``export.compare``,
+``reacquire.prepare``); the
 window never opens the index or builds a command's arguments.
 
 Imports: PySide6, the window's bridge types and ``app.services``. Never ``app.storage`` or
@@ -21,8 +22,8 @@ import numpy as np
 from PySide6.QtWidgets import QFileDialog
 
 from app.services import decisions, export, reacquire, reprocess, runs
-from app.services.types import (Choice, DecideRequest, ExportRequest, ReacquirePlan, ReacquireRequest,
-                                ReprocessRequest)
+from app.services.types import (Choice, CompareRequest, DecideRequest, ExportRequest, ReacquirePlan,
+                                ReacquireRequest, ReprocessRequest)
 
 from .bridge import TaskResult
 
@@ -182,6 +183,32 @@ class ReviewActions:
 
         self.review.message.setText("Exporting…")
         self.tasks.submit("export", lambda: export.export(ExportRequest(run_dir=Path(run.run_dir))), on_done=done)
+
+    def choose_compare(self) -> None:
+        run = self.review.run
+        if run is None:
+            return
+        name = QFileDialog.getExistingDirectory(self, "Run folder to compare with", str(Path(run.run_dir).parent))
+        if name:
+            self.compare_with([Path(name)])
+
+    def compare_with(self, others: list[Path]) -> None:
+        """The reviewed run and ``others`` on one figure in RUN/export (``app.services.export.compare``)."""
+        run = self.review.run
+        if run is None:
+            return
+        dirs = (Path(run.run_dir), *others)
+
+        def draw() -> Any:
+            return export.compare(CompareRequest(run_dirs=dirs, out=export.compare_figure_in(run.run_dir)))
+
+        def done(result: TaskResult) -> None:
+            if result.error is None:
+                self.last_compare = result.value.figure
+                self.review.message.setText(f"Compared {len(dirs)} runs: {result.value.figure}")
+
+        self.review.message.setText("Comparing…")
+        self.tasks.submit("compare", draw, on_done=done)
 
     @staticmethod
     def _simulated_run(run: Any) -> bool:

@@ -240,6 +240,7 @@ class MainWindow(ReviewActions, QMainWindow):
             lambda: self.reacquire(r.run.flagged_points() if r.run is not None else []))
         r.reprocess_button.clicked.connect(self.choose_reprocess_rig)
         r.export_button.clicked.connect(self.export_run)
+        r.compare_button.clicked.connect(self.choose_compare)
 
     # ================================================================== run controls
     @property

@@ -97,3 +97,23 @@ def test_the_review_tab_reads_the_run_as_the_review_command_does(qtbot, make_win
     qtbot.waitUntil(lambda: win.review.run is not None, timeout=LONG_MS)
     assert [Path(d) for d in spy.requests] == [run_dir, run_dir]
     assert summary in win.review.title.text()           # the same count line, word for word
+
+
+def test_compare_from_the_window_and_the_command_line(qtbot, make_window, tiny_plan, tmp_path: Path,
+                                                      monkeypatch) -> None:
+    one, two = tmp_path / "one", tmp_path / "two"
+    assert main(["sweep", str(tiny_plan), "--fast", "--seed", "1", "--out", str(one)]) == 0
+    shutil.copytree(one, two)
+    spy = Recorder(export.compare)
+    monkeypatch.setattr(export, "compare", spy)
+    cli_figure = tmp_path / "cli-compare.png"
+    assert main(["compare", str(one), str(two), "--out", str(cli_figure)]) == 0
+    win = make_window(tiny_plan)
+    win.open_review(one)
+    qtbot.waitUntil(lambda: win.review.run is not None and win.review.compare_button.isEnabled(), timeout=LONG_MS)
+    win.compare_with([two])
+    qtbot.waitUntil(lambda: "Compared 2 runs" in win.review.message.text(), timeout=LONG_MS)
+    cli_req, win_req = spy.requests
+    assert [p.resolve() for p in cli_req.run_dirs] == [p.resolve() for p in win_req.run_dirs]
+    assert win_req.out == one / "export" / "compare.png" and win_req.out.stat().st_size > 1000
+    assert cli_figure.stat().st_size > 1000

@@ -42,6 +42,8 @@ class ReviewView(QWidget):
         self.reacquire_flagged_button = QPushButton("Re-acquire flagged")
         self.reprocess_button = QPushButton("Reprocess with rig file…")
         self.export_button = QPushButton("Export")
+        self.compare_button = QPushButton("Compare with run…")
+        self.compare_button.setToolTip("Draw this run and another on one gain/phase figure (RUN/export/compare.png)")
         self.accept_button.setToolTip("Use this attempt for the point (A)")
         self.reject_button.setToolTip("Do not use this attempt (R)")
         self.reacquire_button.setToolTip("Measure the selected points again; old attempts are kept")
@@ -52,12 +54,13 @@ class ReviewView(QWidget):
         self.attempt_box.setToolTip("The attempt that Accept / Reject act on, and whose record is drawn")
         grid = QGridLayout()
         for k, b in enumerate((self.accept_button, self.reject_button, self.reacquire_button,
-                               self.reacquire_flagged_button, self.reprocess_button, self.export_button)):
+                               self.reacquire_flagged_button, self.reprocess_button, self.export_button,
+                               self.compare_button)):
             grid.addWidget(b, k // 2, k % 2)      # two columns: the tab fits a half-screen window
         attempt_row = QHBoxLayout()
         attempt_row.addWidget(QLabel("Attempt:"))
         attempt_row.addWidget(self.attempt_box, 1)
-        grid.addLayout(attempt_row, 3, 0, 1, 2)
+        grid.addLayout(attempt_row, 4, 0, 1, 2)
         actions = QGroupBox("Decisions and actions")
         actions.setLayout(grid)
         self.message = QLabel("")
@@ -89,7 +92,7 @@ class ReviewView(QWidget):
 
     def set_enabled(self, on: bool) -> None:
         for b in (self.accept_button, self.reject_button, self.reacquire_button, self.reacquire_flagged_button,
-                  self.reprocess_button, self.export_button):
+                  self.reprocess_button, self.export_button, self.compare_button):
             b.setEnabled(on)
 
     def load(self, run: Any, summary: str = "", notes: tuple[str, ...] = ()) -> None:
