@@ -391,6 +391,7 @@ class SoundCard:
         self._lost = 0
         self._origin = -1                 # capture index of start_index 0 (set by the callback)
         self._first_clean = -1            # capture index of the first unflagged callback
+        self._arriving_v = 0.0            # amplitude of the drive reaching the inputs in the last block read
         self._origin_open = True          # the callback may still set the origin
 
     # ------------------------------------------------------------------ identity
@@ -571,6 +572,7 @@ class SoundCard:
         drive_played = raw[:, -1]
         delay, rho, glitch = self._measure_delay(data, start, n)
         freq_hz, amp_v = self._drive_at(start + n, drive_played)
+        self._arriving_v = amp_v
         return SoundCardBlock(data=np.ascontiguousarray(data), channels=self._channels, sample_rate_hz=self._fs,
                               start_index=start - self._origin, overflows=flags + int(glitch), drive_freq_hz=freq_hz,
                               drive_amplitude_v=amp_v, delay_samples=-1 if self._delay is None else self._delay,
@@ -647,15 +649,20 @@ class SoundCard:
         self.guard.arm(min(ceiling_v, self.guard.hard_ceiling_v))
 
     def drive_status(self) -> DriveStatus:
-        """The guard's status; still ``ramping`` until the end of the ramp has reached the inputs."""
+        """The guard's status; still ``ramping`` until the end of the ramp has reached the inputs.
+
+        While it is, ``amplitude_v`` is at least the amplitude of the drive that reached the
+        inputs in the last block read: a caller comparing what it reads with what was commanded
+        (an over-output check) must not see the previous, larger drive, still on its way through
+        a long loop or a backlog of unread blocks, as an output above its command."""
         status = self.guard.status()
-        if not status.ramping and self._running:
+        if self._running:
             # until a delay is measured, the longest one configured: a loop through another
             # process (an emulator, an external mixer) takes longer than this stream's latency
             lag = self._delay if self._delay is not None else max(self._max_lag,
                                                                   int(self._stream.latency[1] * self._fs * 2))
-            if self._read < self._settle_mark + lag:   # the next block read starts after the ramp
-                return replace(status, ramping=True)
+            if status.ramping or self._read < self._settle_mark + lag:   # the next block read starts after the ramp
+                return replace(status, ramping=True, amplitude_v=max(status.amplitude_v, self._arriving_v))
         return status
 
     def stop(self) -> None:

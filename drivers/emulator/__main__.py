@@ -27,7 +27,7 @@ def _parser() -> argparse.ArgumentParser:
                    help="audio source carrying flamebode's outputs (default: fb_drive.monitor)")
     a.add_argument("--sensor-sink", default="fb_sense", help="sink whose monitor is flamebode's input (default: fb_sense)")
     a.add_argument("--block", type=int, default=2048, help="frames per processing block (default 2048)")
-    a.add_argument("--lead-blocks", type=int, default=6, help="blocks rendered ahead of the audio callback (default 6)")
+    a.add_argument("--lead-blocks", type=int, default=5, help="blocks rendered ahead of the audio callback (default 5)")
     a.add_argument("--clock-ppm", type=float, default=0.0, help="emulate a second sample clock off by this many ppm")
     a.add_argument("--seed", type=int, default=None, help="simulated rig seed (default: the scenario's)")
     for q in (a,):

@@ -7,10 +7,13 @@ frames of an output ring into ``outdata`` (zeros and a count when short), and th
 status flags into counters. The main thread takes blocks of ``block_n`` frames from the
 input ring, runs :class:`~drivers.emulator.physics.ReceivedDriveBurner` on them and writes
 the channels (digital = volts / full scale, clipped to [-1, 1] and counted) to the output
-ring, ``lead_blocks`` blocks ahead of the callback. A received block with a sample beyond
-digital full scale (or not finite) is taken as silence and counted (``invalid_blocks``). When the callback finds the ring short
-(the main thread was late) it plays zeros and counts them; as many rendered frames are then
-left out, so the delay through the emulator stays at the lead instead of growing.
+ring, ``lead_blocks`` blocks ahead of the callback. A late main thread (a loaded machine)
+leaves the ring short: the callback then holds the last frame played (silence would read as
+a flame-out on the light channel; the hold is a glitch flamebode sees on the drive reference)
+and counts it (``starved``). A received block with a sample beyond
+digital full scale (or not finite) is taken as silence and counted (``invalid_blocks``). After a short callback as many
+rendered frames are left out, so the delay through the emulator stays at the lead instead of
+growing.
 
 Volts ↔ full scale: both ends read the same rig file's ``[hardware.soundcard]`` table.
 flamebode plays drive volts / ``output_full_scale`` on ``output_channel``; the emulator reads
@@ -83,9 +86,9 @@ class AudioEmulator:
     """The emulated rig behind an audio server (see the module docstring)."""
 
     def __init__(self, rig: Rig, drive_source: str, sensor_sink: str, truth_path: Path | None = None,
-                 status_path: Path | None = None, block_n: int = 2048, lead_blocks: int = 6,
+                 status_path: Path | None = None, block_n: int = 2048, lead_blocks: int = 5,
                  device: str = "pulse", clock_ppm: float = 0.0, seed: int | None = None,
-                 latency: str | float = 0.2) -> None:
+                 latency: str | float = 0.1) -> None:
         self.rig = rig
         self.cfg = load_config(rig)
         self.fs = self.cfg.sample_rate_hz
@@ -116,6 +119,7 @@ class AudioEmulator:
         self.out_ring = Ring(int(4 * self.fs), self.n_out)
         self.out_ring.put(np.zeros((self.lead_n, self.n_out), dtype=np.float32))
         self._cb_flags = np.zeros(4, dtype=np.int64)
+        self._hold = np.zeros(self.n_out, dtype=np.float32)   # last frame played
         self._cb_starved = 0
         self._cb_starved_frames = 0       # zeros the callback played for want of data
         self._dropped_frames = 0          # rendered frames left out since, to keep the delay at the lead
@@ -124,9 +128,10 @@ class AudioEmulator:
         self.in_ring.put(indata[:, self.drive_col:self.drive_col + 1])
         got = self.out_ring.take(outdata)
         if got < frames:
-            outdata[got:] = 0.0
+            outdata[got:] = outdata[got - 1] if got else self._hold   # hold, not silence: see the docstring
             self._cb_starved += 1
             self._cb_starved_frames += frames - got
+        self._hold[:] = outdata[frames - 1]
         f = self._cb_flags
         f[0] += int(status.input_overflow)
         f[1] += int(status.input_underflow)

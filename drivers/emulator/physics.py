@@ -108,18 +108,18 @@ class ReceivedDriveBurner(SimulatedBurner):
         if received_v.size != self.block_n:
             raise ValueError(f"expected {self.block_n} drive samples, got {received_v.size}")
         drive_v = self._pending.copy()
-        raw = np.concatenate([self._raw_tail, drive_v, received_v[:2]])
+        n = self.block_n
+        raw = np.concatenate([self._raw_tail, drive_v, received_v])
         f_est = self._freq_hz if self._freq_hz > 0 else 100.0
-        width = max(16, int(self._fs / f_est))
+        width = min(n, max(16, int(self._fs / f_est)))
         peak_all = float(np.abs(raw).max())
         found = jumps(raw, TWO_PI * f_est / self._fs, 0.05 * peak_all) - 2 if peak_all >= MIN_DRIVE_V else np.array([], int)
-        gain = notch(self.block_n, found, width)
-        new_carry = np.ones(self.block_n)
-        new_carry[:width] = gain[self.block_n:self.block_n + width]
-        gain = np.minimum(gain[:self.block_n], self._carry)
-        fresh = found[(found >= 0) & (found < self.block_n)]  # the boundary ones count in the next call
+        gain = notch(2 * n, found, width)          # a whole block of look-ahead: every fade starts in time
+        new_carry = gain[n:2 * n].copy()
+        gain = np.minimum(gain[:n], self._carry)
+        fresh = found[(found >= 0) & (found < n)]  # those further on count in the next call
         self.discontinuities += int(np.count_nonzero(np.diff(fresh) > width)) + 1 if fresh.size else 0
-        self._raw_tail = raw[-4:-2]
+        self._raw_tail = raw[n:n + 2].copy()           # the pending block's last two raw samples
         self._pending = received_v.copy()
         self._carry = new_carry
         drive_v *= gain
