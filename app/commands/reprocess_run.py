@@ -13,7 +13,10 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
+from typing import TYPE_CHECKING
 
+if TYPE_CHECKING:
+    from ..services.types import ReprocessOutcome
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -24,25 +27,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from ..services.points import parse_points
-    from ..services.reprocess import ReprocessRefused, reprocess
+    from ..services.reprocess import reprocess
     from ..services.types import ReprocessRequest
 
     wanted = parse_points(args.points)
     req = ReprocessRequest(run_dir=Path(args.run_dir), rig_path=Path(args.rig),
                            point_indices=None if wanted is None else tuple(wanted))
-    try:
-        result = reprocess(req)
-    except ReprocessRefused as exc:
-        for prob in exc.problems:
-            print(f"problem: {prob}")
-        raise
-    for prob in result.problems:
-        print(f"problem: {prob}")
-    for o in result.outcomes:
-        if o.problem is None:
-            print(f"{o.where}: analysis {o.analysis_id}: gain {o.gain:.4f}, phase {o.phase_rad:+.4f} rad")
-        else:
-            print(f"{o.where}: not reprocessed: {o.problem}")
+    result = reprocess(req, on_opened=_print_problems, on_outcome=_print_outcome)     # printed as they come
     print(f"{result.n_done} attempt(s) reprocessed with {args.rig} (sha256 {result.rig_sha256[:12]}, "
           f"copy in {result.rig_copy})")
     if result.not_done:
@@ -50,3 +41,15 @@ def run(args: argparse.Namespace) -> int:
               f"their records are unchanged")
         return 1
     return 0
+
+
+def _print_problems(problems: tuple[str, ...]) -> None:
+    for prob in problems:
+        print(f"problem: {prob}")
+
+
+def _print_outcome(o: "ReprocessOutcome") -> None:
+    if o.problem is None:
+        print(f"{o.where}: analysis {o.analysis_id}: gain {o.gain:.4f}, phase {o.phase_rad:+.4f} rad")
+    else:
+        print(f"{o.where}: not reprocessed: {o.problem}")

@@ -11,6 +11,7 @@ from __future__ import annotations
 import shutil
 import time
 from pathlib import Path
+from typing import Callable
 
 from app import __version__
 from app.core.response import evaluate_point
@@ -32,11 +33,17 @@ class ReprocessRefused(FlamebodeError):
         self.problems = problems
 
 
-def reprocess(req: ReprocessRequest) -> ReprocessResult:
-    """Evaluate the chosen attempts again with ``req.rig_path``; one outcome per attempt."""
+def reprocess(req: ReprocessRequest, on_opened: Callable[[tuple[str, ...]], None] | None = None,
+              on_outcome: Callable[[ReprocessOutcome], None] | None = None) -> ReprocessResult:
+    """Evaluate the chosen attempts again with ``req.rig_path``; one outcome per attempt.
+
+    ``on_opened`` gets the run's problems as soon as it is open and ``on_outcome`` each outcome
+    as it happens (a long run shows progress); the result holds them all as well."""
     rig = load_rig(req.rig_path)
     r = open_run(req.run_dir)
     problems = tuple(r.problems)
+    if on_opened is not None:
+        on_opened(problems)
     if not r.index_readable:
         raise ReprocessRefused(f"{r.run_dir}: the index cannot be changed now (see the problems above)", problems)
     wanted = None if req.point_indices is None else set(req.point_indices)
@@ -51,6 +58,12 @@ def reprocess(req: ReprocessRequest) -> ReprocessResult:
     if not copy.exists():
         shutil.copyfile(req.rig_path, copy)
     outcomes: list[ReprocessOutcome] = []
+
+    def add(o: ReprocessOutcome) -> None:
+        outcomes.append(o)
+        if on_outcome is not None:
+            on_outcome(o)
+
     conn = index.connect(r.run_dir / index.INDEX_NAME)
     try:
         for a in r.attempts:
@@ -58,22 +71,22 @@ def reprocess(req: ReprocessRequest) -> ReprocessResult:
                 continue
             point, aid = a["point_index"] + 1, a["attempt_id"]
             if a["record_status"] != "ok":
-                outcomes.append(ReprocessOutcome(point, aid, problem=f"its record file is {a['record_status']} "
-                                                                     f"(see the problems above)"))
+                add(ReprocessOutcome(point, aid, problem=f"its record file is {a['record_status']} "
+                                                         f"(see the problems above)"))
                 continue
             try:
                 rec = r.read_record(aid)
                 result = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, rec.freq_hz, rig)
             except FlamebodeError as exc:
-                outcomes.append(ReprocessOutcome(point, aid, problem=str(exc)))
+                add(ReprocessOutcome(point, aid, problem=str(exc)))
                 continue
             analysis = analysis_from_result(result)
             analysis.update(rig_path=str(Path(req.rig_path).resolve()), rig_sha256=digest,
                             tool_version=__version__, created_wall_s=time.time())
             with conn:
                 analysis_id = index.insert_analysis(conn, aid, analysis)
-            outcomes.append(ReprocessOutcome(point, aid, analysis_id=analysis_id, gain=float(analysis["gain"]),
-                                             phase_rad=float(analysis["phase_rad"])))
+            add(ReprocessOutcome(point, aid, analysis_id=analysis_id, gain=float(analysis["gain"]),
+                                 phase_rad=float(analysis["phase_rad"])))
     finally:
         conn.close()
     return ReprocessResult(rig_path=Path(req.rig_path), rig_sha256=digest, rig_copy=copy, problems=problems,

@@ -146,3 +146,11 @@ def test_reacquire_prepare_checks_points_and_names_the_runs_backend(stored_run: 
         reacquire.prepare(ReacquireRequest(run_dir=stored_run, point_indices=(4,)))
     uses, summary = reacquire.point_uses(stored_run, [1])
     assert [(u.point, u.used, u.n_attempts) for u in uses] == [(2, "2/1", 1)] and summary == runs.review(stored_run).counts_text
+
+
+def test_reprocess_reports_problems_then_each_outcome_as_it_comes(stored_run: Path) -> None:
+    seen: list[object] = []
+    res = reprocess.reprocess(ReprocessRequest(run_dir=stored_run, rig_path=CONFIGS / "demo-rig.toml"),
+                              on_opened=lambda probs: seen.append(("opened", probs)), on_outcome=seen.append)
+    assert seen[0] == ("opened", res.problems)
+    assert tuple(seen[1:]) == res.outcomes and len(res.outcomes) == 3

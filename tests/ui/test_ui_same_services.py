@@ -23,9 +23,9 @@ class Recorder:
     def __init__(self, real) -> None:
         self.real, self.requests = real, []
 
-    def __call__(self, req):
+    def __call__(self, req, *args, **kwargs):
         self.requests.append(req)
-        return self.real(req)
+        return self.real(req, *args, **kwargs)
 
 
 @pytest.fixture
