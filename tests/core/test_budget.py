@@ -27,7 +27,7 @@ def _exact(**sensor_fields):
     data = rig_variant(0.0, light={"dark_offset_uncertainty": 0.0}, temperature_uncertainty=0.0).model_dump()
     data.pop("source_path")
     for s in data["pressure_sensors"]:
-        s["position_uncertainty"] = 0.0
+        s["position_uncertainty"] = s["gain_uncertainty"] = s["phase_uncertainty"] = 0.0
         s.update(sensor_fields)
     return data
 

@@ -57,14 +57,14 @@ QUICK = (40, "shared-", 2, 0.0, SHORT)
 
 def exact_rig(n_sensors: int, reference_x_m: float):
     """The demo rig's sensors (all four, or the first and third) with exact positions,
-    temperature and dark offset (the generator makes none of those errors) and the reference
+    calibrations, temperature and dark offset (the generator makes none of those errors) and the reference
     plane at x."""
     base = rig_variant(0.0, (0, 1, 2, 3) if n_sensors == 4 else (0, 2), light={"dark_offset_uncertainty": 1e-9},
                        temperature_uncertainty=0.0)
     data = base.model_dump()
     data.pop("source_path")
     for s in data["pressure_sensors"]:
-        s["position_uncertainty"] = 0.0
+        s["position_uncertainty"] = s["gain_uncertainty"] = s["phase_uncertainty"] = 0.0
     data["duct"]["reference_plane"] = reference_x_m
     return rig_from_dict(data, "monte-carlo")
 

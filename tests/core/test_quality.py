@@ -129,8 +129,8 @@ def test_a_result_without_significance_figures_keeps_the_fixed_threshold():
 
 
 def test_conditioning_warnings_grade_by_the_propagated_velocity_error():
-    # Two sensors 320 mm apart (the demo's first and third) with the demo's stated 0.5 mm and
-    # 1 K uncertainties. At 40 Hz the pair is far below its usable band (0.1π < ks < 0.8π,
+    # Two calibrated sensors 320 mm apart (the demo's first and third) with the demo's stated
+    # 0.5 mm and 1 K uncertainties. At 40 Hz the pair is far below its usable band (0.1π < ks < 0.8π,
     # Bodén & Åbom 1986, from memory) but û/ū is known to 0.2 %: a note, no flag. Near the
     # half-wavelength spacing (cond(H) = max(|tan θ|, |cot θ|) large, domain.md) the same stated
     # errors make û/ū uncertain by tens of per cent: graded unreliable and flagged.
@@ -138,7 +138,11 @@ def test_conditioning_warnings_grade_by_the_propagated_velocity_error():
 
     from test_uncertainty import rig_variant
 
-    two = rig_variant(0.0, (0, 2))
+    data = rig_variant(0.0, (0, 2)).model_dump()                  # calibrated sensors: no gain/phase term
+    data.pop("source_path")
+    for sensor in data["pressure_sensors"]:
+        sensor["gain_uncertainty"] = sensor["phase_uncertainty"] = 0.0
+    two = rig_from_dict(data, "two calibrated sensors")
     readings = {}
     for f in (40.0, 550.0):
         rec = make_record(two, f, n_tau(1.0, 2e-3), noise_pa=1e-3, white=True, duration_s=2.0)

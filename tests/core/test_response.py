@@ -22,9 +22,10 @@ from synth import gaussian_delay, make_record, n_tau
 @pytest.fixture(scope="module")
 def rig():
     """The demo rig without its stated systematic uncertainties: the synthetic records here
-    are made with exact positions, temperature and dark offset, so only random errors are present."""
+    are made with exact positions, temperature, sensors and dark offset, so only random errors are present."""
     return _with(load_rig(Path(__file__).resolve().parents[2] / "configs" / "demo-rig.toml"),
-                 temperature_uncertainty=0.0, position_uncertainty=0.0, dark_offset_uncertainty=0.0)
+                 temperature_uncertainty=0.0, position_uncertainty=0.0, dark_offset_uncertainty=0.0,
+                 gain_uncertainty=0.0, phase_uncertainty=0.0)
 
 
 @pytest.fixture(scope="module")
@@ -147,9 +148,10 @@ def _with(rig, **gas_or_sensor):
         data["gas"]["temperature"] = gas_or_sensor["temperature"]
     if "dark_offset_uncertainty" in gas_or_sensor:
         data["light"]["dark_offset_uncertainty"] = gas_or_sensor["dark_offset_uncertainty"]
-    if "position_uncertainty" in gas_or_sensor:
-        for s in data["pressure_sensors"]:
-            s["position_uncertainty"] = gas_or_sensor["position_uncertainty"]
+    for key in ("position_uncertainty", "gain_uncertainty", "phase_uncertainty"):
+        if key in gas_or_sensor:
+            for s in data["pressure_sensors"]:
+                s[key] = gas_or_sensor[key]
     from app.rig import rig_from_dict
 
     return rig_from_dict(data, "variant")

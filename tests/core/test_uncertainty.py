@@ -18,9 +18,11 @@ from synth import make_record, n_tau
 DEMO_RIG = Path(__file__).resolve().parents[2] / "configs" / "demo-rig.toml"
 
 
-def rig_variant(shift_m: float = 0.0, sensors: tuple[int, ...] | None = None, light: dict | None = None, **gas):
+def rig_variant(shift_m: float = 0.0, sensors: tuple[int, ...] | None = None, light: dict | None = None,
+                calibration_uncertainty: bool = False, **gas):
     """The demo rig with every axial position (reference plane and duct end included) moved by
-    ``shift_m``, optionally only the sensors numbered in ``sensors``, light and gas fields replaced."""
+    ``shift_m``, optionally only the sensors numbered in ``sensors``, light and gas fields replaced;
+    the sensors' stated calibration uncertainties kept only with ``calibration_uncertainty``."""
     data = load_rig(DEMO_RIG).model_dump()
     data.pop("source_path")
     duct = data["duct"]
@@ -29,6 +31,8 @@ def rig_variant(shift_m: float = 0.0, sensors: tuple[int, ...] | None = None, li
     chosen = [s for i, s in enumerate(data["pressure_sensors"]) if sensors is None or i in sensors]
     for s in chosen:
         s["position"] += shift_m
+        if not calibration_uncertainty:
+            s["gain_uncertainty"] = s["phase_uncertainty"] = 0.0
     data["pressure_sensors"] = chosen
     data["gas"].update(gas)
     data["light"].update(light or {})
@@ -39,7 +43,10 @@ def _reported(pt) -> np.ndarray:
     v = pt.velocity
     return np.array([v.velocity_ref.real, v.velocity_ref.imag, v.var_velocity_ref, v.sigma_ratio, pt.gain,
                      pt.phase_rad, pt.gain_ci95, pt.phase_ci95_rad, pt.quality["relative_uncertainty"],
-                     pt.quality["relative_uncertainty_systematic"]])
+                     pt.quality["relative_uncertainty_systematic"], pt.quality["velocity_rel_uncertainty"],
+                     pt.quality["drift_velocity_z"], pt.quality["drift_light_z"],
+                     np.nan_to_num(pt.quality["pair_spread_z"], nan=0.0)]
+                    + [abs(d) for _, d in pt.budget])   # the budget's terms, calibration included
 
 
 @pytest.mark.parametrize("sensors", [(0, 2), (0, 1, 2, 3)], ids=["2 sensors", "4 sensors"])
@@ -49,13 +56,13 @@ def test_shifting_the_axis_origin_changes_no_reported_value(sensors, freq_hz):
     # û = gᵀa, E|δû|² = gᵀ Cov(a) ḡ is origin-invariant, JCGM 102:2011 §6 for complex outputs).
     # The record is the same (the generator works relative to the reference plane); only the
     # coordinates in the rig file move.
-    base = rig_variant(0.0, sensors)
+    base = rig_variant(0.0, sensors, calibration_uncertainty=True)
     rec = make_record(base, freq_hz, n_tau(0.9, 2.1e-3), duration_s=1.0, noise_pa=1.0, light_noise_v=0.04,
                       rng=np.random.default_rng(5))
     ref = _reported(evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, freq_hz, base))
     assert np.all(np.isfinite(ref)) and ref[2] > 0 and ref[-1] > 0
     for shift in (0.3, 0.9, -1.7):
-        moved = rig_variant(shift, sensors)
+        moved = rig_variant(shift, sensors, calibration_uncertainty=True)
         rec_m = make_record(moved, freq_hz, n_tau(0.9, 2.1e-3), duration_s=1.0, noise_pa=1.0, light_noise_v=0.04,
                             rng=np.random.default_rng(5))
         np.testing.assert_allclose(rec_m.data, rec.data, rtol=0, atol=1e-9)   # same record to rounding

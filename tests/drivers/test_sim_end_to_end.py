@@ -32,7 +32,9 @@ def calibrated(rig: Rig, sim: SimulatedBurner) -> Rig:
     factors = truth.true_sensor_factors(sim)
     for s in data["pressure_sensors"]:
         c = s["sensitivity"] / factors[s["channel"]]
-        s["calibration"] = [{"frequency": 10.0, "gain": abs(c), "phase_deg": math.degrees(np.angle(c))}]
+        # the simulator's own factors are exact: their standard uncertainty is zero
+        s["calibration"] = [{"frequency": 10.0, "gain": abs(c), "phase_deg": math.degrees(np.angle(c)),
+                             "u_gain": 0.0, "u_phase_deg": 0.0}]
     return rig_from_dict(data, "calibrated-demo-rig")
 
 

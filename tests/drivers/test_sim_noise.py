@@ -114,6 +114,13 @@ def test_a_flow_meter_error_biases_the_gain_and_the_stated_uncertainty_covers_it
     # analysis assumes, so its û/ū is too high and its FTF gain too low by ū_stated/ū_true
     # (ū = ṁ/(ρA), domain.md). A rig file stating the meter's 4 % standard uncertainty has an
     # interval that covers the truth; the nominal one does not.
+    from app.rig import rig_from_dict
+
+    data_rig = rig.model_dump()
+    data_rig.pop("source_path")
+    for sensor in data_rig["pressure_sensors"]:      # the scenario's sensors are exact: say so
+        sensor["gain_uncertainty"] = sensor["phase_uncertainty"] = 0.0
+    rig = rig_from_dict(data_rig, "exact sensors")
     sc = _scenario(flow_meters={"errors": {"air": {"error": 0.04}}})
     sim = SimulatedBurner(rig, sc, seed=5)
     data = _record(sim, 4.0)
@@ -124,11 +131,7 @@ def test_a_flow_meter_error_biases_the_gain_and_the_stated_uncertainty_covers_it
     true_f = truth.true_ftf(sim, FREQ_HZ, pt.velocity.amplitude_ratio * u_stated / u_true)
     assert pt.gain / abs(true_f) == pytest.approx(u_stated / u_true, abs=0.01)
     assert abs(pt.gain - abs(true_f)) > pt.gain_ci95                  # unstated: not covered
-    data_rig = rig.model_dump()
-    data_rig.pop("source_path")
     data_rig["gas"]["flows"][0]["relative_uncertainty"] = 0.04
-    from app.rig import rig_from_dict
-
     stated = evaluate_point(data, sim.channels, sim.sample_rate_hz, FREQ_HZ, rig_from_dict(data_rig, "stated"))
     assert abs(stated.gain - abs(true_f)) <= stated.gain_ci95         # stated: covered
     assert sim.scenario.flow_meters.errors["air"].error == 0.04
