@@ -132,7 +132,7 @@ class ScpiEmulator:
 
     def __init__(self, idn: str = IDN, reply_delay_s: float = 0.0, max_peak_v: float = 5.0,
                  resolution_vpp: float = 0.0, default_load_ohm: float = LOAD_OHM, load_supported: bool = True,
-                 inf_answer: str = "+9.9E+37", connected_load_ohm: float = math.inf) -> None:
+                 inf_answer: str = "+9.9E+37", connected_load_ohm: float = math.inf, port: int = 0) -> None:
         self.idn = idn
         self.reply_delay_s = reply_delay_s
         self.max_peak_v = max_peak_v
@@ -149,7 +149,7 @@ class ScpiEmulator:
         self._next_delay_s: float | None = None
         self._lock = threading.Lock()
         self._conns: list[socket.socket] = []
-        self._server = socket.create_server(("127.0.0.1", 0))
+        self._server = socket.create_server(("127.0.0.1", port))   # SO_REUSEADDR: a restart may take the port back
         self.port = self._server.getsockname()[1]
         self._closing = False
         self._thread = threading.Thread(target=self._accept_loop, name="scpi-emulator", daemon=True)
@@ -350,3 +350,31 @@ class ScpiEmulator:
             raise _ScpiError(-221, "Settings conflict")
         s.load_ohm = value
         return None
+
+
+def _serve_forever(argv: list[str] | None = None) -> int:
+    """``python tests/drivers/scpi_emulator.py --port P --status FILE``: the instrument as a process
+    of its own (a test kills it mid-sweep); its output state goes to FILE (JSON lines, 20 a second)."""
+    import argparse
+    import json
+    import signal
+
+    p = argparse.ArgumentParser()
+    p.add_argument("--port", type=int, default=0)
+    p.add_argument("--status", required=True)
+    args = p.parse_args(argv)
+    stop = threading.Event()
+    signal.signal(signal.SIGTERM, lambda *_: stop.set())
+    with ScpiEmulator(port=args.port) as emu, open(args.status, "a", encoding="utf-8") as fh:
+        print(f"scpi emulator on port {emu.port}", flush=True)
+        while not stop.is_set():
+            st = emu.state
+            fh.write(json.dumps({"time": time.time(), "output": st.output, "freq_hz": st.freq_hz,
+                                 "peak_v": st.peak_v, "commands": len(emu.received)}) + "\n")
+            fh.flush()
+            stop.wait(0.05)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(_serve_forever())
