@@ -1,4 +1,4 @@
-"""Command line of the rig emulator: ``python -m drivers.emulator audio|scpi ...``.
+"""Command line of the rig emulator: ``python -m drivers.emulator audio ...``.
 
 Runs until SIGINT/SIGTERM (or ``--duration``); on every exit path its outputs fall silent.
 See docs/hardware.md, "Rehearsing with the rig emulator".
@@ -19,7 +19,7 @@ from app.rig import load_rig
 
 def _parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="python -m drivers.emulator",
-                                description="Emulated rig: the simulated burner behind an audio server or SCPI.")
+                                description="Emulated rig: the simulated burner behind an audio server.")
     sub = p.add_subparsers(dest="mode", required=True)
     a = sub.add_parser("audio", help="drive in from a null sink's monitor, sensor signals out to another sink")
     a.add_argument("--rig", required=True, help="rig file with a [hardware.soundcard] table (the same file flamebode uses)")
@@ -30,17 +30,9 @@ def _parser() -> argparse.ArgumentParser:
     a.add_argument("--lead-blocks", type=int, default=5, help="blocks rendered ahead of the audio callback (default 5)")
     a.add_argument("--clock-ppm", type=float, default=0.0, help="emulate a second sample clock off by this many ppm")
     a.add_argument("--seed", type=int, default=None, help="simulated rig seed (default: the scenario's)")
-    for q in (a,):
-        q.add_argument("--truth", type=Path, help="write the applied FTF here (JSON; for tests, never for flamebode)")
-        q.add_argument("--status", type=Path, help="append status lines here (JSON lines)")
-        q.add_argument("--duration", type=float, default=None, help="stop after this many seconds")
-    s = sub.add_parser("scpi", help="a loopback SCPI generator and recorder whose settings feed the physics")
-    s.add_argument("--rig", required=True, help="rig file (the same file flamebode uses)")
-    s.add_argument("--port", type=int, default=0, help="TCP port on 127.0.0.1 (0: any free; printed on start)")
-    s.add_argument("--seed", type=int, default=None)
-    s.add_argument("--truth", type=Path)
-    s.add_argument("--status", type=Path)
-    s.add_argument("--duration", type=float, default=None)
+    a.add_argument("--truth", type=Path, help="write the applied FTF here (JSON; for tests, never for flamebode)")
+    a.add_argument("--status", type=Path, help="append status lines here (JSON lines)")
+    a.add_argument("--duration", type=float, default=None, help="stop after this many seconds")
     return p
 
 
@@ -48,15 +40,10 @@ def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
         rig = load_rig(args.rig)
-        if args.mode == "audio":
-            from .audio import AudioEmulator
+        from .audio import AudioEmulator
 
-            emu = AudioEmulator(rig, args.drive_source, args.sensor_sink, args.truth, args.status,
-                                block_n=args.block, lead_blocks=args.lead_blocks, clock_ppm=args.clock_ppm, seed=args.seed)
-        else:
-            from .scpi import ScpiEmulator
-
-            emu = ScpiEmulator(rig, port=args.port, truth_path=args.truth, status_path=args.status, seed=args.seed)
+        emu = AudioEmulator(rig, args.drive_source, args.sensor_sink, args.truth, args.status,
+                            block_n=args.block, lead_blocks=args.lead_blocks, clock_ppm=args.clock_ppm, seed=args.seed)
     except FlamebodeError as exc:
         print(f"emulator: {exc}", file=sys.stderr)
         return 2

@@ -7,7 +7,7 @@
 * status (JSON lines, appended about four times a second): what the emulator received
   (peak and rms of the drive in volts, its frequency), its counts (overflow/underflow flags of
   the audio stream, output starved, samples clipped at full scale) and events
-  ("audio-server-lost", "audio-server-back", "scpi-...").
+  ("audio-server-lost", "audio-server-back").
 
 Imports: json, os, time only.
 """
