@@ -35,6 +35,7 @@ from . import states as S
 from .events import TuningStep
 from .faults import Finding
 from .prescan import within_ceiling
+from .sweep import _Recording
 
 MULTISINE_FLAG = "multisine"
 CAUTION = ("multi-sine survey: the FTF of a LINEAR flame only (a non-linear flame couples the lines); "
@@ -137,12 +138,15 @@ class Survey:
             e._discard(left, S.SETTLING)
         e._set_state(S.RECORDING)
         n_rec = grid.periods_for(plan.timing.record) * grid.period_samples
+        # cut short (halt, abort, fault): stored as evidence under its first line, flagged interrupted
+        e._recording = _Recording(points[0], e._drive_v, started)
         record = e._take(n_rec, S.RECORDING)
         e.stats.recorded_samples += n_rec
         recorded = time.time()
         e._react(e.checks.check_window(record, e._channels, e._drive_v, f"survey record at {self._where(points)}"),
                  skip_ok=False)
         e._set_state(S.EVALUATING)
+        e._recording = None
         results = evaluate_lines(record, e._channels, e._fs, grid, e.rig)
         e._set_state(S.STORING)
         off = [not (abs(r / t - 1.0) <= tol) for r, t in zip(ratios, targets)]

@@ -86,3 +86,24 @@ def test_an_fdf_plan_is_measured_with_sines_and_says_why(rig):
     assert "linear FTF only" in notice.message
     assert not any("multisine" in e.flags for e in rec.of(PointSettled))
     assert len(rec.of(PointSettled)) == 4
+
+
+def test_an_abort_during_a_survey_record_keeps_it_as_interrupted_evidence(rig):
+    sim = SimulatedBurner(rig, seed=3)
+    plan = short_plan([300.0, 450.0, 600.0], [0.05], record_s=2.0, survey={"enabled": True})
+    bus = EventBus()
+    rec = Recorder()
+    bus.subscribe(rec)
+    engine = SweepEngine(plan, rig, sim, bus, backend_name="simulated")
+    blocks = []
+
+    def abort_mid_record(ev):
+        if type(ev).__name__ == "BlockAcquired" and ev.stage == "recording":
+            blocks.append(1)
+            if len(blocks) == 5:
+                engine.abort()
+    rec.hooks.append(abort_mid_record)
+    assert engine.run() == "aborted"
+    (kept,) = rec.of(PointSettled)
+    assert "interrupted" in kept.flags
+    assert sim.drive_status().amplitude_v == 0.0
