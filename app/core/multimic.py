@@ -285,6 +285,7 @@ def decompose(
     noise_cov: np.ndarray | None = None,
     noise_dof: float = float("inf"),
     generalised: bool = True,
+    systematic_var: np.ndarray | None = None,
 ) -> WaveFit:
     """Fit A⁺, A⁻ to calibrated pressures ``p_hat`` (Pa) at axial ``positions_m`` (m).
 
@@ -301,7 +302,12 @@ def decompose(
     (m/(m − n + 2))² for complex Wishart Σ̂ (from the complex Wishart moments, from memory;
     tests/core check it by Monte Carlo), so cov_a carries that factor and cov_dof = 2(m − n + 2).
     Below that, or with ``generalised`` False, the rig weights are used with the full Σ̂ in the
-    sandwich (cov_dof = noise_dof).
+    sandwich (cov_dof = noise_dof). ``systematic_var`` (Pa², per sensor) adds each sensor's
+    stated calibration error variance to the weighting matrix only, W = D (Σ̂ + diag)⁻¹ D: the
+    fit then weights by the total error each sensor carries (JCGM 102:2011 treats type-B inputs
+    as covariances alike) instead of relying on strongly correlated noise cancelling exactly,
+    which calibration errors break; cov_a stays the noise's sandwich (the calibration errors are
+    the point's systematic terms).
     ``cond`` is that of the rig-weighted system (cond(H) for equal weights); ``residual`` is
     ‖p − Ha‖/‖p‖.
     """
@@ -321,7 +327,8 @@ def decompose(
     m = noise_dof / 2.0
     if generalised and noise_cov is not None and np.all(w > 0) and m >= 5 * n and n > 2:
         try:
-            weight_matrix = sqrt_w[:, None] * np.linalg.inv(sigma) * sqrt_w[None, :]
+            total = sigma if systematic_var is None else sigma + np.diag(_per_sensor(systematic_var, n, "systematic_var"))
+            weight_matrix = sqrt_w[:, None] * np.linalg.inv(total) * sqrt_w[None, :]
             used_gls = True
             inflation = (m / (m - n + 2)) ** 2
             dof = 2.0 * (m - n + 2)

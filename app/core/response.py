@@ -124,12 +124,16 @@ def _velocity_from_fit(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.Me
         volts = fit.harmonics[prep.pressure_rows, harmonic - 2]
     scale = corr / prep.sensitivities                              # volts → calibrated pascals
     p_hat = volts * scale
-    noise_cov = None
+    noise_cov = sys_var = None
     if harmonic == 1:
         cov = channel_covariance(fit)
         noise_cov = cov.matrix[np.ix_(prep.pressure_rows, prep.pressure_rows)] * np.outer(scale, scale.conj())
+        u_cal = np.array([s.calibration_uncertainty(freq) for s in rig.pressure_sensors])
+        if np.any(u_cal > 0):   # each sensor's stated calibration error variance, E|δp_i|² = |p_i|²(u_g² + u_φ²)
+            sys_var = np.abs(p_hat) ** 2 * np.sum(u_cal**2, axis=1)
     wf = decompose(p_hat, prep.positions_m, freq, rig.duct.radius_m, medium,
-                   weights=prep.weights, noise_cov=noise_cov, noise_dof=fit.noise_dof, generalised=generalised)
+                   weights=prep.weights, noise_cov=noise_cov, noise_dof=fit.noise_dof, generalised=generalised,
+                   systematic_var=sys_var)
     u_ref, var_u = velocity_at_reference(wf, rig.duct.reference_plane, rig.duct.area_ratio)
     row = np.zeros(fit.amplitude.size, dtype=complex)
     row[prep.pressure_rows] = (np.sqrt(wf.variance_inflation) * rig.duct.area_ratio

@@ -56,17 +56,19 @@ def test_sensor_calibration_terms_match_an_actual_calibration_error(freq_hz):
     rec = _quiet_record(rig0, freq_hz)
     stated = _exact(gain_uncertainty=0.01, phase_uncertainty=math.radians(0.3))
     budget = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, freq_hz, _rig(stated))
-    corrected = _exact()
+    # the same stated uncertainties in both analyses: they set the fit's weights too
+    corrected = _exact(gain_uncertainty=0.01, phase_uncertainty=math.radians(0.3))
     corrected["pressure_sensors"][1]["calibration"] = [{"frequency": 10.0, "gain": 1.01, "phase_deg": 0.3}]
-    plain = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, freq_hz, rig0)
+    plain = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, freq_hz, _rig(stated))
     shifted = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, freq_hz, _rig(corrected))
+    unstated = evaluate_point(rec.data, rec.channels, rec.sample_rate_hz, freq_hz, rig0)
     actual = shifted.ftf / plain.ftf - 1.0
     predicted = _term(budget, "p2 calibration gain") + _term(budget, "p2 calibration phase")
     assert abs(actual) > 1e-3                                  # the error matters at all
     assert abs(actual - predicted) < 0.03 * abs(actual)        # second-order terms only
     # one term per sensor and kind, all four sensors
     assert sum(name.endswith("calibration gain") for name, _ in budget.budget) == 4
-    assert budget.gain_ci95 > plain.gain_ci95 and budget.phase_ci95_rad > plain.phase_ci95_rad
+    assert budget.gain_ci95 > unstated.gain_ci95 and budget.phase_ci95_rad > unstated.phase_ci95_rad
 
 
 def test_one_percent_gain_error_on_every_sensor_moves_the_gain_one_percent():
