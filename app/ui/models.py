@@ -276,8 +276,9 @@ class PointTable(Observable):
             r.faults.append("interrupted")
             self.notify()
             return
-        r.flags = tuple(ev.flags)
-        r.status = FLAGGED if ev.flags else KEPT
+        # the attempt's flags and the result's own warnings, as the stored run and the sweep's output count them
+        r.flags = tuple(dict.fromkeys((*ev.flags, *map(str, getattr(res, "warnings", ()) or ()))))
+        r.status = FLAGGED if r.flags else KEPT
         r.gain, r.phase_rad = float(getattr(res, "gain", math.nan)), float(getattr(res, "phase_rad", math.nan))
         r.gain_ci95 = float(getattr(res, "gain_ci95", math.nan))
         r.phase_ci95_rad = float(getattr(res, "phase_ci95_rad", math.nan))

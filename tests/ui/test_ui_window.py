@@ -17,6 +17,7 @@ from app.storage.reader import open_run
 from conftest import CONFIGS, write_plan, write_scenario
 
 LONG_MS = 60_000
+RESULT = ("kept", "flagged")      # a point with a result; flagged when its attempt or its result warns
 
 
 def _click(qtbot, win, action) -> None:
@@ -38,7 +39,8 @@ def test_fast_sweep_through_the_window(qtbot, make_window, tiny_plan) -> None:
     _click(qtbot, win, win.start_action)
     qtbot.waitUntil(lambda: _finished(win) and win.review.run is not None, timeout=LONG_MS)
     assert win.status.finish_reason == "complete"
-    assert [r.status for r in win.points.rows] == ["kept", "kept", "kept"]
+    live = [r.status for r in win.points.rows]
+    assert set(live) <= {"kept", "flagged"} and len(live) == 3
     curves = win.points.curves()
     assert len(curves) == 1 and list(next(iter(curves.values()))["freq_hz"]) == [200.0, 400.0, 600.0]
     qtbot.waitUntil(lambda: 0.05 in win.response._items and len(win.response._items[0.05][0].getData()[0]) == 3,
@@ -51,7 +53,9 @@ def test_fast_sweep_through_the_window(qtbot, make_window, tiny_plan) -> None:
     assert win.traces.frames >= 1
     run = open_run(win.last_run_dir)
     assert sorted(run.accepted()) == [0, 1, 2]
-    assert win.review.points.rows[2].status == "kept"
+    # one face: the live table, the review table and the stored run agree on which points are flagged
+    assert [r.status for r in win.review.points.rows] == live
+    assert [i for i, st in enumerate(live) if st == "flagged"] == run.flagged_points()
 
 
 def test_pause_resume_then_abort_mid_point(qtbot, make_window, tiny_plan) -> None:
@@ -67,7 +71,7 @@ def test_pause_resume_then_abort_mid_point(qtbot, make_window, tiny_plan) -> Non
     qtbot.keyClick(win, Qt.Key.Key_F6)                               # resume by shortcut
     qtbot.waitUntil(lambda: win.points.row(1).status == "measuring", timeout=LONG_MS)
     assert not win.traces.stopped_text and not win.traces.overlay.isVisible()
-    assert win.points.row(0).status == "kept"
+    assert win.points.row(0).status in RESULT         # point 1 has its result (flagged or not)
     qtbot.keyClick(win, Qt.Key.Key_F8)                               # abort by shortcut, mid-point 2
     qtbot.waitUntil(lambda: _finished(win), timeout=LONG_MS)
     assert win.status.finish_reason == "aborted"
@@ -76,6 +80,7 @@ def test_pause_resume_then_abort_mid_point(qtbot, make_window, tiny_plan) -> Non
     assert status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0
     run = open_run(win.last_run_dir)
     assert sorted(run.accepted()) == [0]                             # the stored point is kept
+    assert win.points.row(0).status == ("flagged" if run.flagged_points() == [0] else "kept")
     assert win.points.row(1).status == "planned" and win.points.row(2).status == "planned"
 
 
@@ -92,7 +97,7 @@ def test_injected_fault_shows_its_banner(qtbot, make_window, tmp_path: Path) -> 
     assert win.banner.advice.text().startswith("What you can do:")
     hit = win.banner.last.point_index
     assert hit is not None and win.points.row(hit).status == "fault"
-    assert all(win.points.row(i).status == "kept" for i in range(hit))
+    assert all(win.points.row(i).status in RESULT for i in range(hit))
     assert win.session.device.drive_status().amplitude_v == 0.0
 
 
@@ -121,7 +126,8 @@ def test_review_reject_reacquire_reprocess_export(qtbot, make_window, tiny_plan,
                     timeout=LONG_MS)
     run = open_run(run_dir)
     assert sorted(run.accepted()) == [0, 1, 2] and len(run.attempts_of(1)) == 2
-    assert review.points.row(1).status == "kept"
+    assert run.accepted()[1]["seq"] == 2                              # the person's rejection of attempt 1 holds
+    assert review.points.row(1).status == ("flagged" if 1 in run.flagged_points() else "kept")
 
     review.point_list.select_points([1])                             # choose the first attempt again
     qtbot.waitUntil(lambda: review.attempt_box.count() == 2, timeout=LONG_MS)
