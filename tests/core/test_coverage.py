@@ -94,6 +94,7 @@ def rig_with_stated_errors(n_sensors: int, reference_x_m: float, gain_u: float, 
 RIG_ERROR_CASES = [
     (40, "independent", 4, 0.2, LONG, 0.01, 0.3, (0.01, 0.02)),     # the rig's errors dominate
     (20, "acoustic", 2, 0.0, LONG, 0.02, 0.5, (0.015, 0.0)),         # comparable to the noise
+    (20, "shared-", 4, 0.2, LONG, 0.01, 0.3, (0.01, 0.0)),           # GLS weighted by the total error
 ]
 
 
