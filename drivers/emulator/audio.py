@@ -88,7 +88,7 @@ class AudioEmulator:
     def __init__(self, rig: Rig, drive_source: str, sensor_sink: str, truth_path: Path | None = None,
                  status_path: Path | None = None, block_n: int = 2048, lead_blocks: int = 5,
                  device: str = "pulse", clock_ppm: float = 0.0, seed: int | None = None,
-                 latency: str | float = 0.1) -> None:
+                 latency: str | float = 0.25) -> None:
         self.rig = rig
         self.cfg = load_config(rig)
         self.fs = self.cfg.sample_rate_hz

@@ -19,7 +19,7 @@ import time
 
 import pytest
 
-from emulator_rig import RIG, ROOT, Emulator, PrivateServer, no_audio_reason, plan_text, run_points
+from emulator_rig import RIG, ROOT, Emulator, PrivateServer, no_audio_reason, plan_text, resume_until_done, run_points
 from run_watch import committed_attempts, run_cli
 
 _REASON = no_audio_reason()
@@ -89,7 +89,8 @@ def test_audio_server_restarted_mid_sweep_is_a_named_fault_with_the_drive_at_zer
         assert any(s.get("event") == "audio-server-lost" and s["time"] >= killed_at - 1 for s in emu.lines())
 
         # the run resumes through the restarted server
-        out = run_cli("resume", str(run_dir), timeout_s=120)
+        out, resumed = resume_until_done(run_dir, run_cli("resume", str(run_dir), timeout_s=120), emu)
+        print("resumed again after:", resumed)
         assert out.returncode == 0, out.stdout[-3000:] + out.stderr[-2000:] + emu.summary()
         done = run_points(run_dir)
         done.pop(-1, None)
