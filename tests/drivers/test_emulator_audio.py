@@ -23,6 +23,8 @@ times (``emulator_rig.resume_until_done``). About 60 s.
 
 from __future__ import annotations
 
+import time
+
 import pytest
 
 from emulator_rig import RIG, Emulator, PrivateServer, no_audio_reason, plan_text, resume_until_done, run_points, within
@@ -109,6 +111,7 @@ def test_full_ftf_sweep_through_the_audio_server_recovers_the_emulators_ftf(serv
                              f"points in-process (audio path: {inside}/{clean}); an interval matter, not the audio path")
             assert inside >= 0.9 * clean, table
     finally:
+        time.sleep(2.0)      # the end of flamebode's last ramp-down is still on its way through the loop
         log = emu.stop()
     lines = emu.lines()
     assert lines[-1]["event"] == "stop", log

@@ -96,6 +96,7 @@ def test_audio_server_restarted_mid_sweep_is_a_named_fault_with_the_drive_at_zer
         done.pop(-1, None)
         assert sorted(p["freq_hz"] for p in done.values()) == FREQS_HZ, (done, out.stdout[-2000:])
     finally:
+        time.sleep(2.0)      # the end of flamebode's last ramp-down is still on its way through the loop
         emu.stop()
     tail = [s for s in emu.lines() if "drive_peak_v" in s][-4:]
     assert tail and all(s["drive_peak_v"] == 0.0 for s in tail), tail
