@@ -72,6 +72,8 @@ def run(args: argparse.Namespace) -> int:
                       f"{a['decision'] or 'not used'}{reason}, record {a['record_status']}, flags {flags}, "
                       f"id {a['attempt_id']}")
     print(rv.counts_text)
+    for line in rv.amplitude_lines:
+        print(line)
     if rv.pending_points:
         print(f"{len(rv.pending_points)} point(s) without an accepted attempt: "
               f"{', '.join(map(str, rv.pending_points))} (continue with 'flamebode resume {r.run_dir}')")

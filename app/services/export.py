@@ -19,7 +19,7 @@ from .types import CompareRequest, CompareResult, ExportRequest, ExportResult
 def export(req: ExportRequest) -> ExportResult:
     """Write the run's files; the summary line counts what they hold."""
     check_run_folder(req.run_dir)                          # a plain error when it is not a run folder
-    paths = _export.export_run(req.run_dir, req.out_dir, plots=req.plots)
+    paths = _export.export_run(req.run_dir, req.out_dir, plots=req.plots, convention=req.convention)
     return ExportResult(paths=tuple(Path(p) for p in paths), counts_text=counts_text(open_run(req.run_dir, False)))
 
 

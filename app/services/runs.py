@@ -46,7 +46,16 @@ def review(run_dir: str | Path, verify: bool = True) -> RunReview:
               for c in _accepted_changes(run.run_dir)]
     return RunReview(run=run, plan_name=plan_name(run), rows=tuple(rows), problems=tuple(run.problems),
                      snapshot_notes=tuple(notes), counts_text=describe_counts(counts(rows)),
-                     pending_points=tuple(i + 1 for i in run.pending_points()))
+                     pending_points=tuple(i + 1 for i in run.pending_points()),
+                     amplitude_lines=amplitude_lines(run))
+
+
+def amplitude_lines(run: "Run") -> tuple[str, ...]:
+    """The amplitude-dependence test in words for a run forced at two or more amplitudes (else none)."""
+    from app.storage.amplitude import amplitude_test, run_points
+
+    test = amplitude_test(run_points(run))
+    return tuple(test.lines()) if len(test.amplitudes) > 1 else ()
 
 
 def opening_problems(run_dir: str | Path) -> tuple[str, ...]:

@@ -70,6 +70,7 @@ class RunReview:
     snapshot_notes: tuple[SnapshotNote, ...]
     counts_text: str                    # "n of m points with a result, k flagged ..." as the export says
     pending_points: tuple[int, ...]     # point numbers from 1 without an accepted attempt
+    amplitude_lines: tuple[str, ...] = ()   # the amplitude-dependence test of an FDF run (app.storage.amplitude)
 
 
 @dataclass(frozen=True)
@@ -119,6 +120,7 @@ class ExportRequest:
     run_dir: Path
     out_dir: Path | None = None         # default: RUN_DIR/export
     plots: bool = True
+    convention: str = "plus"            # time convention of points.mat/.h5: "plus" e^{+iwt}, "minus" e^{-iwt}
 
 
 @dataclass(frozen=True)

@@ -40,7 +40,8 @@ class ReviewActions:
         def done(result: TaskResult) -> None:
             if result.error is None:
                 rv = result.value
-                self.review.load(rv.run, rv.counts_text, tuple(n.text for n in rv.snapshot_notes if not n.accepted))
+                self.review.load(rv.run, rv.counts_text, tuple(n.text for n in rv.snapshot_notes if not n.accepted),
+                                 rv.amplitude_lines)
                 if show:
                     self.tabs.setCurrentWidget(self.review)
                 self._update_controls()

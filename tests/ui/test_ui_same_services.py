@@ -117,3 +117,23 @@ def test_compare_from_the_window_and_the_command_line(qtbot, make_window, tiny_p
     assert [p.resolve() for p in cli_req.run_dirs] == [p.resolve() for p in win_req.run_dirs]
     assert win_req.out == one / "export" / "compare.png" and win_req.out.stat().st_size > 1000
     assert cli_figure.stat().st_size > 1000
+
+
+def test_an_fdf_run_shows_its_amplitude_test_in_the_review_tab_as_review_prints_it(qtbot, make_window, tmp_path: Path,
+                                                                                  capsys) -> None:
+    # the demo flame saturates at |Q'|/Q_mean = 0.30 (configs/demo-scenario.toml): forced at 0.03 and 0.35
+    # the response differs, and both front ends say so in the same words (app.storage.amplitude)
+    from conftest import write_plan, write_scenario
+
+    plan = write_plan(tmp_path / "fdf.toml", write_scenario(tmp_path / "scenario.toml"), freqs=(200.0, 300.0, 400.0),
+                      amps=(0.03, 0.35))
+    run_dir = tmp_path / "fdf-run"
+    assert main(["sweep", str(plan), "--fast", "--seed", "5", "--out", str(run_dir)]) == 0
+    capsys.readouterr()
+    assert main(["review", str(run_dir)]) == 0
+    lines = [ln for ln in capsys.readouterr().out.splitlines() if ln.startswith("amplitude dependence")]
+    assert len(lines) == 1 and "(0.03, 0.35)" in lines[0], lines
+    win = make_window(plan)
+    win.open_review(run_dir)
+    qtbot.waitUntil(lambda: win.review.run is not None, timeout=LONG_MS)
+    assert lines[0] in win.review.title.text()

@@ -7,6 +7,7 @@ Imports: PySide6, ``app.ui.models`` and the sibling views only.
 
 from __future__ import annotations
 
+import html
 import math
 from typing import Any
 
@@ -95,9 +96,10 @@ class ReviewView(QWidget):
                   self.reprocess_button, self.export_button, self.compare_button):
             b.setEnabled(on)
 
-    def load(self, run: Any, summary: str = "", notes: tuple[str, ...] = ()) -> None:
+    def load(self, run: Any, summary: str = "", notes: tuple[str, ...] = (), amplitude: tuple[str, ...] = ()) -> None:
         """Show a run; ``summary`` is the run's count line as ``review`` prints it, ``notes`` the
-        snapshot notes (both from ``app.services.runs.review``)."""
+        snapshot notes, ``amplitude`` the amplitude-dependence lines of an FDF run (all from
+        ``app.services.runs.review``)."""
         self.run = run
         self.thresholds = run_thresholds(run)
         self.points.load_run(run)
@@ -107,7 +109,8 @@ class ReviewView(QWidget):
                        f"{len(run.flagged_points())} flagged")
         shown = list(run.problems) + list(notes)
         problems = f" — {len(shown)} problem(s): " + "; ".join(shown[:3]) if shown else ""
-        self.title.setText(f"<b>{kind} run</b> {run.run_dir} — {summary}{problems}")
+        amp = "<br>" + "<br>".join(html.escape(line.strip()) for line in amplitude) if amplitude else ""
+        self.title.setText(f"<b>{kind} run</b> {run.run_dir} — {summary}{problems}{amp}")
         self.set_enabled(run.index_readable)
         self.attempt_box.clear()
         self.details.clear()
