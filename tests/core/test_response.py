@@ -25,7 +25,7 @@ def rig():
     are made with exact positions, temperature, sensors and dark offset, so only random errors are present."""
     return _with(load_rig(Path(__file__).resolve().parents[2] / "configs" / "demo-rig.toml"),
                  temperature_uncertainty=0.0, position_uncertainty=0.0, dark_offset_uncertainty=0.0,
-                 gain_uncertainty=0.0, phase_uncertainty=0.0)
+                 gain_uncertainty=0.0, phase_uncertainty=0.0, flow_uncertainty=0.0)
 
 
 @pytest.fixture(scope="module")
@@ -148,6 +148,9 @@ def _with(rig, **gas_or_sensor):
         data["gas"]["temperature"] = gas_or_sensor["temperature"]
     if "dark_offset_uncertainty" in gas_or_sensor:
         data["light"]["dark_offset_uncertainty"] = gas_or_sensor["dark_offset_uncertainty"]
+    if "flow_uncertainty" in gas_or_sensor:
+        for meter in data["gas"]["flows"]:
+            meter["relative_uncertainty"] = gas_or_sensor["flow_uncertainty"]
     for key in ("position_uncertainty", "gain_uncertainty", "phase_uncertainty"):
         if key in gas_or_sensor:
             for s in data["pressure_sensors"]:

@@ -22,7 +22,8 @@ def rig_variant(shift_m: float = 0.0, sensors: tuple[int, ...] | None = None, li
                 calibration_uncertainty: bool = False, **gas):
     """The demo rig with every axial position (reference plane and duct end included) moved by
     ``shift_m``, optionally only the sensors numbered in ``sensors``, light and gas fields replaced;
-    the sensors' stated calibration uncertainties kept only with ``calibration_uncertainty``."""
+    the sensors' stated calibration and the flow meters' uncertainties kept only with
+    ``calibration_uncertainty``."""
     data = load_rig(DEMO_RIG).model_dump()
     data.pop("source_path")
     duct = data["duct"]
@@ -34,6 +35,9 @@ def rig_variant(shift_m: float = 0.0, sensors: tuple[int, ...] | None = None, li
         if not calibration_uncertainty:
             s["gain_uncertainty"] = s["phase_uncertainty"] = 0.0
     data["pressure_sensors"] = chosen
+    if not calibration_uncertainty:
+        for meter in data["gas"]["flows"]:
+            meter["relative_uncertainty"] = 0.0
     data["gas"].update(gas)
     data["light"].update(light or {})
     return rig_from_dict(data, "variant")
