@@ -2,7 +2,10 @@
 
 Figures (computed by ``app.core.response``): SNR per channel, multi-microphone residual
 and pair spread, harmonic distortion of velocity and light, drift between the first and
-second half of the record. Flags are short stable names a reviewer can filter on.
+second half of the record, each of pair spread and drift also over its own standard error
+(``*_z``), the velocity's propagated uncertainty and the plane-wave fit's grade. Flags are
+short stable names a reviewer can filter on; a figure beyond its threshold but within its
+own noise (or, for cond(H), with an accurate velocity) raises none.
 
 Must not import Qt, pyqtgraph, matplotlib, h5py, drivers, the engine or storage.
 """
@@ -127,11 +130,13 @@ FLAG_TEXT = {
     "low-snr-pressure": "a pressure channel has a low signal-to-noise ratio at the forcing frequency",
     "low-snr-light": "the light channel has a low signal-to-noise ratio at the forcing frequency",
     "high-residual": "the pressures do not fit plane waves well (sensor position, calibration or higher modes)",
-    "pair-spread": "sensor pairs disagree on the velocity at the reference plane",
+    "pair-spread": "sensor pairs disagree on the velocity at the reference plane, beyond their noise",
     "distortion-velocity": "the velocity has strong harmonics (speaker nonlinearity or a resonance)",
     "distortion-light": "the light has strong harmonics (flame saturation)",
-    "drift-velocity": "the forcing at the reference plane drifted between the two halves of the record",
-    "drift-light": "the mean light drifted between the two halves of the record (flow, temperature or flame)",
+    "drift-velocity": "the forcing at the reference plane drifted between the two halves of the record, "
+                      "beyond its noise",
+    "drift-light": "the mean light drifted between the two halves of the record beyond its noise (flow, "
+                   "temperature or flame)",
     "ill-conditioned": "the multi-microphone fit is badly conditioned at this frequency (sensor spacing) and "
                        "the velocity's propagated error is more than 1 %",
     "too-uncertain": "the 95 % interval is too wide for the point to be used (low signal-to-noise ratio)",
