@@ -265,7 +265,10 @@ class PointTable(Observable):
     def on_settled(self, ev: PointSettled) -> None:
         r = self.row(ev.point_index)
         if r is None:
-            return
+            # a point the plan did not list (adaptive refinement inserts them while the sweep runs)
+            r = PointRow(int(ev.point_index), float(ev.freq_hz), float(ev.target_ratio))
+            self.rows.append(r)
+            self._by_index[r.index] = r
         res = ev.result
         r.attempts += 1
         if NEVER_ACCEPTED & set(ev.flags):

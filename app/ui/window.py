@@ -22,6 +22,7 @@ simulator's truth (rehearsal overlay only). Never ``app.storage`` or ``app.comma
 
 from __future__ import annotations
 
+import html
 import math
 import time
 from pathlib import Path
@@ -33,8 +34,8 @@ from PySide6.QtWidgets import QApplication, QDialog, QLabel, QMainWindow, QSplit
     QVBoxLayout, QWidget
 
 from app.engine import states as S
-from app.engine.events import (DriveChanged, FaultRaised, PointSettled, StateChanged, SweepFinished,
-                               SweepStarted, TuningStep)
+from app.engine.events import (DriveChanged, FaultRaised, Notice, PointSettled, StateChanged, SweepFinished,
+                               SweepStarted, TransferMeasured, TuningStep)
 
 from .bridge import EventBridge, TaskResult, TaskRunner
 from .review_actions import ReviewActions
@@ -44,6 +45,7 @@ from .views.controls import ControlStrip
 from .views.fault_banner import FaultBanner
 from .views.halt_banner import HaltBanner
 from .views.points import PointListView
+from .views.prescan import PrescanView
 from .views.response import ResponseView
 from .views.review import ReviewView
 from .views.setup import SetupView
@@ -54,7 +56,8 @@ from .views.tuning import TuningView
 FRAME_MS = 27                     # ~37 frames/s nominal: >= 30 even when a tick comes late
 TRACE_SECONDS = 0.2
 FAST_YIELD_S = 0.001              # engine pause per block in a fast rehearsal (see session.GiveWay)
-STATE_WORDS = {S.IDLE: "ready", S.PREPARING: "preparing the point", S.TUNING: "tuning the amplitude",
+STATE_WORDS = {S.IDLE: "ready", S.PREPARING: "preparing the point", S.PRESCAN: "pre-scan: measuring the drive transfer",
+               S.TUNING: "tuning the amplitude",
                S.SETTLING: "settling", S.RECORDING: "recording", S.EVALUATING: "computing gain and phase",
                S.STORING: "storing", S.PAUSED: "paused (drive at zero)", S.WINDING_DOWN: "ramping the drive down",
                S.FINISHED: "finished", S.ABORTED: "aborted (drive at zero)",
@@ -163,10 +166,17 @@ class MainWindow(ReviewActions, QMainWindow):
         self.caution = QLabel(REAL_RIG_CAUTION)
         self.caution.setWordWrap(True)
         self.caution.setStyleSheet(CAUTION_STYLE)
+        self.notice = QLabel()                   # the engine's notices (e.g. a survey's linear-only caution)
+        self.notice.setWordWrap(True)
+        self.notice.setStyleSheet(CAUTION_STYLE)
+        self.notice.hide()
+        self.prescan = PrescanView()             # shown when the sweep makes (or skips) a pre-scan
+        self.prescan.hide()
         left = QSplitter(Qt.Orientation.Vertical)
         left.setObjectName("sweep-left")
         left.addWidget(self.traces)
         left.addWidget(self.tuning)
+        left.addWidget(self.prescan)
         left.setStretchFactor(0, 3)
         left.setStretchFactor(1, 2)
         right = QSplitter(Qt.Orientation.Vertical)
@@ -184,6 +194,7 @@ class MainWindow(ReviewActions, QMainWindow):
         lay.setContentsMargins(4, 4, 4, 4)
         lay.addWidget(self.state_label)
         lay.addWidget(self.caution)
+        lay.addWidget(self.notice)
         lay.addWidget(self.banner)
         lay.addWidget(split, 1)
         self.response.point_clicked.connect(lambda i: self.point_list.select_points([i]))
@@ -412,7 +423,14 @@ class MainWindow(ReviewActions, QMainWindow):
         elif isinstance(ev, FaultRaised):
             self.banner.show_fault(ev)
             self.points.on_fault(ev)
+        elif isinstance(ev, TransferMeasured):
+            self.prescan.show_transfer(ev)
+            self.prescan.show()
+        elif isinstance(ev, Notice):
+            self.notice.setText(f"<b>{html.escape(ev.name)}</b>: {html.escape(ev.message)}")
+            self.notice.show()
         elif isinstance(ev, SweepStarted):
+            self.notice.hide()
             self._on_started(ev)
         elif isinstance(ev, SweepFinished):
             self._on_finished(ev)
