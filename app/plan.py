@@ -123,15 +123,53 @@ class Order(_Strict):
 
 
 class Timing(_Strict):
+    """[timing]. ``settle = "auto"`` sets ``settle_auto`` and leaves ``settle`` at the plan's
+    conservative value (``settle_fallback``, default 0.5 s): the engine then settles each point
+    for ``settle_k`` decay time constants of the rig measured by the pre-scan
+    (``app.engine.settle``), and for ``settle`` where it has no measured decay."""
+
     record: quantity("time", 0.01, 3600.0, unit="s")
     settle: quantity("time", 0.0, 3600.0, unit="s") = 0.5
     settle_periods: number(0.0, 1e5) = 0.0
     tuning_window: quantity("time", 0.01, 60.0, unit="s") = 0.3
     tuning_discard: quantity("time", 0.0, 60.0, unit="s") = 0.1
+    settle_auto: bool = False
+    settle_k: number(1.0, 50.0) = 5.0
+    settle_min_periods: number(0.0, 1e4) = 3.0
+    settle_floor: quantity("time", 0.0, 60.0, unit="s") = 0.02
+
+    @model_validator(mode="before")
+    @classmethod
+    def _auto(cls, data: Any) -> Any:
+        if not isinstance(data, dict):
+            return data
+        data = dict(data)
+        fallback = data.pop("settle_fallback", None)
+        if isinstance(data.get("settle"), str) and data["settle"].strip().lower() == "auto":
+            data["settle_auto"] = True
+            if fallback is None:
+                data.pop("settle")
+            else:
+                data["settle"] = fallback
+        elif fallback is not None:
+            raise ValueError('settle_fallback is the settle time used by settle = "auto" where the rig\'s '
+                             'decay is not measured; give it only with settle = "auto"')
+        return data
 
     def settle_s(self, freq_hz: float) -> float:
-        """Settle time: the longer of the seconds and the periods given."""
+        """Settle time: the longer of the seconds and the periods given (with ``settle_auto``, the
+        conservative value used where no decay was measured: the worst case for estimates)."""
         return max(self.settle, self.settle_periods / freq_hz)
+
+    def describe_settle(self) -> str:
+        """The settle rule in plain words (dry run, run info)."""
+        fixed = f"{self.settle:g} s" + (f" or {self.settle_periods:g} periods" if self.settle_periods else "")
+        if not self.settle_auto:
+            return f"settle {fixed} after the last drive change"
+        return (f"settle auto: {self.settle_k:g} decay time constants of the rig at each frequency (from the "
+                f"pre-scan's transfer; residual transient e^-{self.settle_k:g} = {math.exp(-self.settle_k):.2%}), "
+                f"at least {self.settle_min_periods:g} periods and {self.settle_floor:g} s; {fixed} where the "
+                f"decay is not measured (no pre-scan, a line lost, a phase step too large between neighbours)")
 
 
 class Tuning(_Strict):

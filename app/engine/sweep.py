@@ -195,6 +195,7 @@ class SweepEngine:
         self._prior = tuple(t.prior) + tuple(prior)
         self._prior_age_s = prior_age_s
         self.transfer: TransferMeasured | None = None   # the pre-scan's result (or why it was skipped)
+        self.auto_settle: Any = None        # settle.AutoSettle with ``timing.settle = "auto"``
         self._prescan_due = False
         self._surveyed: set[int] = set()     # points measured by the multi-sine survey
         self._refined: set[int] = set()      # points inserted by the refinement
@@ -363,6 +364,27 @@ class SweepEngine:
             self.transfer = prescan.PreScan(self).run()
             self._set_state(return_to)
         self.bus.publish(self.transfer)
+        if self.plan.timing.settle_auto:
+            self._update_auto_settle()
+
+    def _update_auto_settle(self) -> None:
+        """``settle = "auto"``: settle times from the pre-scan's decay (the plan's settle without one)."""
+        from . import settle
+
+        t, tr = self.plan.timing, self.transfer
+        if tr is None or tr.skipped or not tr.freqs_hz:
+            self.auto_settle = settle.no_measured_decay(t.settle)
+        else:
+            self.auto_settle = settle.auto_settle(tr.freqs_hz, tr.ratio_per_volt, tr.phase_rad, tr.rel_sigma, fallback_s=t.settle,
+                                                  k=t.settle_k, min_periods=t.settle_min_periods,
+                                                  floor_s=t.settle_floor)
+        self.bus.publish(Notice("settle-auto", self.auto_settle.summary()))
+
+    def settle_time_s(self, freq_hz: float) -> float:
+        """The settle time at ``freq_hz``: the plan's, or with ``settle = "auto"`` the measured one."""
+        t = self.plan.timing
+        measured = self.auto_settle.at(freq_hz) if (t.settle_auto and self.auto_settle is not None) else None
+        return t.settle_s(freq_hz) if measured is None else measured
 
     def _refine(self) -> None:
         """Adaptive refinement (``refine``): rounds of inserted points, up to the plan's budget."""
@@ -598,7 +620,7 @@ class SweepEngine:
 
     def _settle(self, point: Any, drive_v: float) -> None:
         """Wait the settle time since the drive reached its final value (the last window counts)."""
-        left = int(round(self.plan.timing.settle_s(point.freq_hz) * self._fs)) - self._since_settled
+        left = int(round(self.settle_time_s(point.freq_hz) * self._fs)) - self._since_settled
         if left > 0:
             self._discard(left, S.SETTLING)
 
