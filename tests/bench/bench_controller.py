@@ -20,7 +20,8 @@ rig with the simulated burner in fast mode:
     without the pre-scan, with it, and with the first run's table as an earlier run's prior:
     first-window hit rate (within tolerance), median and mean windows per point, the worst
     TRUE window amplitude / target (drivers.simulated.truth; the pre-scan's multi-sine counts
-    as the sum of its lines' true amplitudes) and the overhead (pre-scan included).
+    as the sum of its lines' true amplitudes) and the overhead (pre-scan included); and the
+    pre-scan with ``settle = "auto"`` (the bench plan's 0.5 s where the decay cannot be told).
 
 Run: python tests/bench/bench_controller.py   (table (d) and the last line; --all: (a)-(d);
 --soft-start: table (c) only)
@@ -69,9 +70,11 @@ def row(name: str, steps: list[int]) -> str:
             f"{max(later):>6} {statistics.median([s - 1 for s in later]):>16.1f}")
 
 
-def prescan_plan(record: str = "10 s", prescan: bool = True):
+def prescan_plan(record: str = "10 s", prescan: bool = True, settle_auto: bool = False):
     data = read_toml(ROOT / "configs" / "bench-plan.toml")
     data["timing"] = {**data["timing"], "record": record}
+    if settle_auto:     # settle = "auto", the bench plan's settle as the fallback
+        data["timing"] = {**data["timing"], "settle": "auto", "settle_fallback": data["timing"]["settle"]}
     data["prescan"] = {"enabled": prescan}
     return plan_from_dict(data, str(ROOT / "configs" / "bench-plan.toml"))
 
@@ -123,12 +126,16 @@ def prescan_table(rig) -> float:
         table = cold["engine"].controller.memory.table(0.05)
         rows = (("predictive, no pre-scan", cold),
                 ("predictive + pre-scan", measured_sweep(prescan_plan(), rig, path)),
+                ("predictive + pre-scan, settle auto", measured_sweep(prescan_plan(settle_auto=True), rig, path)),
                 ("predictive + earlier run's table", measured_sweep(prescan_plan(prescan=False), rig, path,
                                                                   prior=table)))
         for label, r in rows:
             print(f"{scenario[:-5]:<20} {label:<34} {r['hit']:>9.0%} {r['median']:>7.1f} {r['mean']:>6.2f} "
                   f"{r['worst']:>6.2f} {r['overhead']:>9.1%} {r['prescan_s']:>7.1f} s   ({r['reason']}, "
                   f"{r['wall']:.0f} s wall)")
+            auto = r["engine"].auto_settle
+            if auto is not None:
+                print(f"{'':<20} {'':<34} {auto.summary()}")
             if label == "predictive + pre-scan":
                 result = r["median"] if result is None else max(result, r["median"])
     return float(result)
