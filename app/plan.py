@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Literal
 
@@ -204,6 +205,19 @@ class Prescan(_Strict):
     precision: number(0.0, 1.0, lo_open=True) = 0.02
     repeat_after: quantity("time", 1.0, 86400.0, unit="s") = 600.0
     table_fresh: quantity("time", 0.0, 30 * 86400.0, unit="s") = 3600.0
+    # when the earlier run's table in [tuning] prior was measured (a TOML date-time; no offset:
+    # local time); without it the table's age is unknown and it never counts as fresh
+    table_measured: datetime | None = None
+
+    def table_age_s(self, now: datetime | None = None) -> float | None:
+        """Seconds since ``table_measured`` (None when it is not given)."""
+        if self.table_measured is None:
+            return None
+        when = self.table_measured
+        if when.tzinfo is None:
+            when = when.astimezone()          # local time
+        now = now or datetime.now(timezone.utc)
+        return max(0.0, (now - when).total_seconds())
 
     def worst_case_s(self, ramp_time_s: float = 0.3, discard_s: float = 0.1) -> float:
         """Longest the pre-scan takes: every level's ramps, discard and window."""

@@ -1,7 +1,10 @@
 """``flamebode sweep PLAN``: run a sweep plan headless, with a live progress display.
 
-``--dry-run`` prints the points, the estimated duration and the checks without touching
-hardware. Before any sweep (and in the dry run) a record is checked against the machine's
+``--dry-run`` prints the points, the estimated duration, the settle rule and the checks without
+touching hardware. ``--prescan``/``--no-prescan``, ``--survey`` and ``--refine`` override the
+plan's ``[prescan]``, ``[survey]`` and ``[refinement]`` sections (``--prescan`` makes the pre-scan
+even with a fresh earlier table). The engine is given the age of the earlier run's table
+(``[tuning] prior``) from ``[prescan] table_measured``; a table of unknown age is never fresh. Before any sweep (and in the dry run) a record is checked against the machine's
 memory: one that would need more than half the RAM is refused with the numbers. The dry
 run also asks the chosen back-end (its ``probe()``, nothing is opened) whether it can give
 the rig's sample rate: a back-end that knows its limits states them in its
@@ -52,6 +55,51 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--fast", action="store_true", help="simulator only: run as fast as the CPU allows")
     p.add_argument("--seed", type=_seed, default=None, help="simulator only: random seed (0 or more)")
     p.add_argument("--dry-run", action="store_true", help="print the points, duration and checks; touch nothing")
+    pre = p.add_mutually_exclusive_group()
+    pre.add_argument("--prescan", dest="prescan", action="store_const", const=True, default=None,
+                     help="make the transfer pre-scan ([prescan] enabled = true), even with a fresh earlier table")
+    pre.add_argument("--no-prescan", dest="prescan", action="store_const", const=False,
+                     help="no transfer pre-scan ([prescan] enabled = false)")
+    p.add_argument("--survey", action="store_true", default=None,
+                   help="multi-sine survey of the LINEAR FTF first ([survey] enabled = true)")
+    p.add_argument("--refine", action="store_true", default=None,
+                   help="adaptive refinement after the plan's points ([refinement] enabled = true)")
+
+
+def with_overrides(plan: Any, args: argparse.Namespace) -> tuple[Any, list[str]]:
+    """The plan with the command line's --prescan/--no-prescan/--survey/--refine applied (validated
+    again: the refinement's worst case counts towards the run-time limit); and what was changed."""
+    from ..configfile import model_from_dict
+    from ..plan import PLAN_DOC
+
+    changes: dict[str, dict[str, Any]] = {}
+    said = []
+    if getattr(args, "prescan", None) is not None:
+        changes["prescan"] = {"enabled": bool(args.prescan)}
+        if args.prescan:
+            changes["prescan"]["table_fresh"] = 0.0     # asked for: made even with a fresh table
+        said.append("--prescan" if args.prescan else "--no-prescan")
+    if getattr(args, "survey", None):
+        changes["survey"] = {"enabled": True}
+        said.append("--survey")
+    if getattr(args, "refine", None):
+        changes["refinement"] = {"enabled": True}
+        said.append("--refine")
+    if not changes:
+        return plan, []
+    data = plan.model_dump(exclude={"source_path"})
+    for section, values in changes.items():
+        data[section] = {**data[section], **values}
+    updated = model_from_dict(type(plan), data, plan.source_path or "<plan>", PLAN_DOC)
+    return updated, said
+
+
+def prior_age_s(plan: Any) -> float | None:
+    """Age of the earlier run's table the engine is given ([tuning] prior, the only source of
+    one): from [prescan] table_measured; None (unknown: never counted fresh) without it."""
+    if not plan.tuning.prior:
+        return None
+    return plan.prescan.table_age_s()
 
 
 def _rig_path(args: argparse.Namespace, plan_path: Path) -> Path:
@@ -190,6 +238,13 @@ def dry_run(plan: Any, rig: Any, out: Any = None, backend: str | None = None, sc
         print(f"  {p.index + 1:>4}  {p.freq_hz:9.2f} Hz  a = {p.amplitude_ratio:.4f} {basis}", file=out)
     est = plan.estimated_duration_s(ramp_time_s=rig.drive.ramp_time)
     print(f"estimated duration: {est / 60:.1f} min ({est:.0f} s, {plan.timing.record:g} s records)", file=out)
+    print(f"settle: {plan.timing.describe_settle()}"
+          + ("; the estimate uses the fallback" if plan.timing.settle_auto else ""), file=out)
+    if plan.tuning.prior:
+        age = prior_age_s(plan)
+        print("earlier table ([tuning] prior): " + ("of unknown age ([prescan] table_measured not given): not "
+              "counted fresh" if age is None else f"{age:.0f} s old, fresh up to {plan.prescan.table_fresh:g} s"),
+              file=out)
     for line in simulated:
         print(line, file=out)
     print(f"memory: {memory}", file=out)
@@ -239,9 +294,15 @@ def run(args: argparse.Namespace) -> int:
     rig_path = _rig_path(args, plan_path)
     rig = load_rig(rig_path)
     plan = load_plan(plan_path, rig)
+    plan, said = with_overrides(plan, args)
+    if said:
+        plan.check_against(rig)
+    args.overrides = said
     scenario = Path(args.scenario) if args.scenario else (plan.resolve("scenario") if args.backend == "simulated"
                                                           else None)
     if args.dry_run:
+        if said:
+            print(f"command line: {' '.join(said)} (over the plan's sections)")
         dry_run(plan, rig, backend=args.backend, scenario=scenario)
         return 0
     check_memory(plan, rig)
@@ -266,7 +327,9 @@ def _run_sweep(args: argparse.Namespace, plan: Any, rig: Any, plan_path: Path, r
         from ..storage.writer import RunWriter
 
         writer = RunWriter(args.out, rig_path, plan_path, bus, scenario_path=scenario,
-                           options={"backend": args.backend, "fast": "1" if args.fast else "0"})
+                           options={"backend": args.backend, "fast": "1" if args.fast else "0",
+                                    "sweep_options": " ".join(getattr(args, "overrides", ()) or ()) or "none",
+                                    "settle_rule": plan.timing.describe_settle()})
         writer.start()
         bus.subscribe(writer)
     else:
@@ -274,10 +337,18 @@ def _run_sweep(args: argparse.Namespace, plan: Any, rig: Any, plan_path: Path, r
     display = ProgressDisplay(estimated_s=plan.estimated_duration_s(ramp_time_s=rig.drive.ramp_time))
     bus.subscribe(display)
     engine = SweepEngine(plan, rig, device, bus, backend_name=args.backend,
-                         run_label=time.strftime("s%Y%m%d-%H%M%S"), wait_for_store=writer is not None)
+                         run_label=time.strftime("s%Y%m%d-%H%M%S"), wait_for_store=writer is not None,
+                         prior_age_s=prior_age_s(plan))
+
+    def close_writer() -> None:
+        try:                      # what settle = "auto" used, once the pre-scan has told it
+            if engine.auto_settle is not None:
+                writer.note({"settle_used": engine.auto_settle.summary()})
+        finally:
+            writer.close()
     display.start()
     try:
-        run_engine(engine, device, (display.close,) + ((writer.close,) if writer is not None else ()))
+        run_engine(engine, device, (display.close,) + ((close_writer,) if writer is not None else ()))
     except StoppedBySignal:
         print(f"run folder: {args.out}" if args.out else "nothing stored (no --out RUN_DIR)")
         raise

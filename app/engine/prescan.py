@@ -18,7 +18,8 @@ the ceiling; its envelope ramped like a sine's). The table seeds the amplitude c
 uncertainty (the point then opens low). The result is published as ``TransferMeasured``.
 
 Back-ends without the ``MultiSineDrive`` capability, plans that do not ask for it, and runs
-given a fresh table from an earlier run skip it, with the reason published.
+given a fresh table from an earlier run skip it, with the reason published. A table of
+unknown age (``prior_age_s`` None) is never counted fresh: the pre-scan is made.
 
 Imports: numpy, ``app.core.multisine``, ``drivers.protocols`` (protocols only) and this package.
 Never Qt, never storage, never a concrete back-end.
@@ -70,10 +71,10 @@ def skip_reason(plan: Any, drive: Any, prior: tuple, prior_age_s: float | None) 
         return "the plan does not ask for one ([prescan] enabled = false)"
     if not isinstance(drive, MultiSineDrive):
         return "the back-end cannot put out a multi-sine (no MultiSineDrive capability)"
-    if prior and (prior_age_s is None or prior_age_s <= pre.table_fresh):
-        age = "of unknown age" if prior_age_s is None else f"{prior_age_s:.0f} s old"
-        return f"an earlier run's table is fresh ({age}, [prescan] table_fresh = {pre.table_fresh:g} s)"
-    return ""
+    if prior and prior_age_s is not None and prior_age_s <= pre.table_fresh:
+        return (f"an earlier run's table is fresh ({prior_age_s:.0f} s old, [prescan] table_fresh = "
+                f"{pre.table_fresh:g} s)")
+    return ""     # no table, a stale one, or one of unknown age (never counted fresh)
 
 
 def plan_frequencies(plan: Any, points: list) -> np.ndarray:
