@@ -10,10 +10,12 @@ Result lines number points from 1 and show the phase as people read it everywher
 (app.core.phase: degrees, unwrapped along frequency per forcing amplitude, ±95 %), over
 the points settled so far plus the run's kept points given as ``known`` (re-acquire,
 resume), so a line reads what ``review`` and the export will show for an ascending sweep.
-The finish line counts flagged points among those settled. The pre-scan's transfer is shown
+The finish line counts flagged points among those settled by the rule the run's index and
+export count with (``app.core.flagging``: the attempt the acceptance rule takes is flagged). The pre-scan's transfer is shown
 as one summary line and a text plot of its gain per volt against frequency (log scale).
 
-Imports: standard library, numpy, rich, ``app.core.phase`` and ``app.engine.events`` only.
+Imports: standard library, numpy, rich, ``app.core.phase``, ``app.core.flagging`` and
+``app.engine.events`` only.
 """
 
 from __future__ import annotations
@@ -28,6 +30,7 @@ from rich.console import Console
 from rich.live import Live
 from rich.text import Text
 
+from ..core.flagging import point_flagged
 from ..core.phase import phase_as_read_deg
 from .events import (DriveChanged, Event, FaultRaised, PointSettled, StateChanged, SweepFinished,
                      SweepStarted, TransferMeasured, TuningStep, Notice)
@@ -53,7 +56,8 @@ class ProgressDisplay:
         # point index -> (freq_hz, target_ratio, wrapped phase_rad): the curve the phase is unwrapped on
         self._phases: dict[int, tuple[float, float, float]] = {int(i): (float(f), float(a), float(ph))
                                                                for i, f, a, ph in known}
-        self._flagged: dict[int, bool] = {}    # points settled in this sweep -> newest attempt flagged
+        # points settled in this sweep -> (flags, warnings) of each attempt, counted by app.core.flagging
+        self._attempts: dict[int, list[tuple[tuple[str, ...], tuple[str, ...]]]] = {}
 
     # -- engine thread: copy and enqueue only
     def __call__(self, event: Event) -> None:
@@ -62,7 +66,8 @@ class ProgressDisplay:
             self._queue.put(("settled", event.point_index, event.freq_hz, event.target_ratio,
                              float(r.velocity.amplitude_ratio), float(r.gain), float(r.gain_ci95),
                              float(r.phase_rad), float(r.phase_ci95_rad), event.drive_v,
-                             tuple(dict.fromkeys((*event.flags, *map(str, getattr(r, "warnings", ()) or ()))))))
+                             tuple(dict.fromkeys((*event.flags, *map(str, getattr(r, "warnings", ()) or ())))),
+                             tuple(event.flags), tuple(map(str, getattr(r, "warnings", ()) or ()))))
         elif isinstance(event, (StateChanged, DriveChanged, TuningStep, FaultRaised, SweepStarted, SweepFinished,
                                 TransferMeasured, Notice)):
             self._queue.put(event if not isinstance(event, SweepStarted)
@@ -125,7 +130,7 @@ class ProgressDisplay:
             return Text(f"  {'FAULT' if item.fatal else 'flag '} {item.name}: {where}{item.message}. "
                         f"{item.action}. {item.advice}", style=style)
         elif isinstance(item, SweepFinished):
-            flagged = [i + 1 for i, f in sorted(self._flagged.items()) if f]
+            flagged = [i + 1 for i, a in sorted(self._attempts.items()) if point_flagged(a)]
             which = (f"{len(flagged)} flagged: point{'s' if len(flagged) > 1 else ''} {', '.join(map(str, flagged))}"
                      if flagged else "none flagged")
             return Text(f"sweep {item.reason}: {item.n_settled} of {item.n_points} points settled and kept "
@@ -133,13 +138,13 @@ class ProgressDisplay:
         return None
 
     def _result_line(self, item: tuple) -> Text:
-        _, index, freq, target, achieved, gain, gain_ci, phase, phase_ci, drive_v, flags = item
+        _, index, freq, target, achieved, gain, gain_ci, phase, phase_ci, drive_v, flags, own, warnings = item
         self.status["settled"] += 1
         n = self.status["n"] or "?"
+        self._attempts.setdefault(index, []).append((own, warnings))
         interrupted = "interrupted" in flags
         if not interrupted:          # a record cut short is never kept: it does not join the curve
             self._phases[index] = (freq, target, phase)
-            self._flagged[index] = bool(flags)
         shown = self._phase_deg(index, freq, target, phase)
         text = (f"  {self.status['settled']:>3}/{n}  point {index + 1:<4}{freq:8.1f} Hz  a {achieved:.4f} ({(achieved / target - 1) * 100:+5.1f} %)  "
                 f"gain {gain:.3f} ± {gain_ci:.3f}  phase {shown:+7.1f}° ± {math.degrees(phase_ci):.1f}°  "
