@@ -160,6 +160,7 @@ class WaveFit:
     generalised: bool = False         # True: weighted by the estimated noise covariance (GLS)
     variance_inflation: float = 1.0   # factor already in cov_a for weights estimated from the same noise
     noise_cov: np.ndarray | None = None  # Σ = E[δp δpᴴ] of the pressures (Pa²) the fit was given, if any
+    systematic_var: np.ndarray | None = None  # each sensor's stated calibration error variance (Pa²), if any
 
     @property
     def amplitudes(self) -> np.ndarray:
@@ -206,8 +207,10 @@ class WaveFit:
         """Largest |û_pair − û| over its own standard error among the pairs in band (all if none is).
 
         The difference is linear in the pressures, û_pair − û = (g E_pair − g E) p, so its
-        variance is r Σ r̄ᵀ with the noise covariance Σ the fit was given (JCGM 102:2011 §6).
-        A pair spread that is a few standard errors or less is the noise, not a sensor fault.
+        variance is r Σ r̄ᵀ with the noise covariance Σ the fit was given (JCGM 102:2011 §6), plus
+        Σ_i |r_i|² s_i for the sensors' stated calibration error variances s_i (uncalibrated
+        sensors disagree by what their tolerance says). A pair spread that is a few standard
+        errors or less is the noise and the stated tolerances, not a sensor fault.
         NaN for two sensors or without a noise covariance.
         """
         n = len(self.positions_m)
@@ -226,6 +229,8 @@ class WaveFit:
             row = -full_row.copy()
             row[[i, j]] += g @ _inverse_2x2(h)
             var = float(np.real(row @ self.noise_cov @ row.conj())) * self.variance_inflation
+            if self.systematic_var is not None:
+                var += float(np.sum(np.abs(row) ** 2 * self.systematic_var))
             dev = abs(by_pair[(i, j)] - u)
             z.append(dev / np.sqrt(var) if var > 0 else (0.0 if dev == 0 else np.inf))
         return float(max(z)) if z else float("inf")
@@ -357,6 +362,7 @@ def decompose(
         any_pair_in_band=any(in_band.values()), cov_a=cov, pressures_pa=p_ro, estimator=estimator,
         cov_dof=dof if sigma is not None else float("inf"), generalised=used_gls, variance_inflation=inflation,
         noise_cov=sigma,
+        systematic_var=None if systematic_var is None else _per_sensor(systematic_var, n, "systematic_var"),
     )
 
 

@@ -149,17 +149,23 @@ FLAG_TEXT = {
 # point tolerates; cond(H) beyond 100 amplifies any unstated sensor error a hundredfold).
 VELOCITY_ERROR_CAUTION = 0.01
 VELOCITY_ERROR_UNRELIABLE = 0.05
+COND_CAUTION = 10.0         # the plan's default cond_max: below it the fit amplifies no input error much
 COND_UNRELIABLE = 100.0
 GRADE_WORDS = ("well determined", "poorly determined: use with care", "unreliable")
 
 
 def conditioning_grade(cond: float, velocity_rel_uncertainty: float) -> int:
-    """0, 1 or 2: the worse of the grade by the velocity's propagated error and, at cond(H) above
-    COND_UNRELIABLE (near a half-wavelength spacing), at least caution."""
+    """0, 1 or 2: how far the plane-wave fit's conditioning spoils û/ū. A fit with cond(H) up to
+    COND_CAUTION is sound whatever the velocity's error (that error comes from the inputs — noise,
+    uncalibrated sensors — and is in the point's interval already); above it, graded by the
+    velocity's propagated error, and above COND_UNRELIABLE (near a half-wavelength spacing) at
+    least caution. An undetermined velocity is unreliable."""
     err = float(velocity_rel_uncertainty)
-    grade = 0 if err <= VELOCITY_ERROR_CAUTION else 1 if err <= VELOCITY_ERROR_UNRELIABLE else 2
     if not np.isfinite(err):
-        grade = 2
+        return 2
+    if np.isfinite(cond) and cond <= COND_CAUTION:
+        return 0
+    grade = 0 if err <= VELOCITY_ERROR_CAUTION else 1 if err <= VELOCITY_ERROR_UNRELIABLE else 2
     if not np.isfinite(cond) or cond > COND_UNRELIABLE:
         grade = max(grade, 1)
     return grade
@@ -167,9 +173,11 @@ def conditioning_grade(cond: float, velocity_rel_uncertainty: float) -> int:
 
 def conditioning_warning(freq_hz: float, cond: float, velocity_rel_uncertainty: float, any_pair_in_band: bool
                          ) -> str | None:
-    """A graded warning about the plane-wave fit, or None when it is sound and some pair is in band."""
+    """A graded warning about the plane-wave fit, or None when it is sound (grade 0): a warning
+    flags the point, and a point whose velocity is well determined is not flagged for its
+    sensor spacing (e.g. far below every pair's usable band but accurate to 0.2 %)."""
     grade = conditioning_grade(cond, velocity_rel_uncertainty)
-    if grade == 0 and any_pair_in_band:
+    if grade == 0:
         return None
     where = ("no sensor pair lies in its usable band (0.1π < ks < 0.8π)" if not any_pair_in_band
              else "the plane-wave fit is badly conditioned")

@@ -151,7 +151,7 @@ def test_conditioning_warnings_grade_by_the_propagated_velocity_error():
     low, high = readings[40.0], readings[550.0]
     assert low.quality["velocity_rel_uncertainty"] < 0.005
     assert low.quality["conditioning_grade"] == 0
-    assert any("usable band" in w and "well determined" in w for w in low.warnings)
+    assert not any("usable band" in w for w in low.warnings)       # accurate: no warning, so no flag
     assert "ill-conditioned" not in quality_flags(low.quality, Quality(cond_max=5.0))  # cond 8.6 but accurate
     assert high.quality["cond"] > 100 and high.quality["velocity_rel_uncertainty"] > 0.1
     assert high.quality["conditioning_grade"] == 2
@@ -165,8 +165,34 @@ def test_conditioning_grade_limits():
     from app.core.quality import conditioning_grade, conditioning_warning
 
     assert conditioning_grade(3.0, 0.002) == 0
-    assert conditioning_grade(3.0, 0.03) == 1
-    assert conditioning_grade(3.0, 0.2) == 2
+    # well conditioned: an error from the inputs (uncalibrated sensors, noise) is not the fit's fault
+    assert conditioning_grade(3.0, 0.03) == 0 and conditioning_grade(9.9, 0.2) == 0
+    assert conditioning_grade(30.0, 0.002) == 0
+    assert conditioning_grade(30.0, 0.03) == 1
+    assert conditioning_grade(30.0, 0.2) == 2
     assert conditioning_grade(500.0, 0.002) == 1      # near-singular: caution even when accurate
     assert conditioning_grade(np.inf, np.nan) == 2
     assert conditioning_warning(100.0, 3.0, 0.002, True) is None
+
+
+def test_uncalibrated_sensors_within_their_stated_tolerance_do_not_raise_pair_spread(rig):
+    # Sensors whose true sensitivities differ by up to their stated 3 % tolerance (the rig says
+    # gain_uncertainty = 0.03) disagree pair by pair by about that much: expected, so no flag;
+    # the same records read with a rig claiming exact sensors are flagged (common practice: a
+    # deviation is judged against every stated error, JCGM 100:2008 §5).
+    limits = Limits(pair_spread_max=0.01)
+    stated = _exact()
+    for s in stated["pressure_sensors"]:
+        s["gain_uncertainty"] = 0.03
+    tolerant = rig_from_dict(stated, "tolerant")
+    flagged_stated = flagged_exact = 0
+    for seed in range(12):
+        rng = np.random.default_rng(100 + seed)
+        data = _exact()
+        for s in data["pressure_sensors"]:          # the true sensitivities, drawn within the tolerance
+            s["sensitivity"] = float(s["sensitivity"]) * (1 + 0.03 * float(np.clip(rng.standard_normal(), -2, 2)))
+        true_rig = rig_from_dict(data, "true")
+        rec = make_record(true_rig, 400.0, n_tau(1.0, 2e-3), noise_pa=1e-3, white=True, rng=rng)
+        flagged_stated += "pair-spread" in quality_flags(_point(tolerant, rec).quality, limits)
+        flagged_exact += "pair-spread" in quality_flags(_point(rig, rec).quality, limits)
+    assert flagged_exact >= 8 and flagged_stated <= 1, (flagged_exact, flagged_stated)
