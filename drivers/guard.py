@@ -9,7 +9,15 @@ amplitude commands a back-end actually sends, independently of any controller ab
 * the amplitude moves linearly toward the request at ``ceiling_v / ramp_time_s`` volts per
   second, inside a block (speaker protection);
 * a frequency change while the output is non-zero ramps down to zero, switches frequency
-  at zero and ramps back up; the phase runs on continuously across blocks;
+  at zero and ramps back up; the phase runs on continuously across blocks. A guard built with
+  ``retune="direct"`` (for back-ends that render every sample themselves, never for instruments
+  set by commands) instead switches a sine's frequency at the next peak of the waveform, where
+  its slope is zero, with the phase continuous (so the samples and their slope are continuous
+  across the switch), and ramps the amplitude straight from the old value to the new one at the
+  same rate: the envelope never passes above the larger of the two, and never faster than the
+  speaker-protection rate. Changes to or from a multi-sine still pass through zero;
+  ``last_switch_samples`` tells a simulator how many samples of the last block were at the old
+  frequency;
 * :meth:`CeilingGuard.halt` zeroes the output from the next sample, from any thread or a
   signal handler (it takes no lock), and *latches*: every later request is refused with
   :class:`~drivers.errors.DriveHalted` until :meth:`CeilingGuard.arm` (called when a new
@@ -75,11 +83,16 @@ class MultiSine:
 
 @dataclass(frozen=True)
 class _Pending:
-    """A frequency (or waveform) change waiting for the output to reach zero."""
+    """A frequency (or waveform) change waiting for the output to reach zero (or, ``direct``,
+    for the next peak of the sine)."""
 
     freq_hz: float
     amplitude_v: float
     multi: MultiSine | None = None
+    direct: bool = False
+
+
+RETUNE_MODES = ("through-zero", "direct")
 
 
 def _positive_finite(name: str, value: float) -> float:
@@ -115,7 +128,13 @@ class CeilingGuard:
     next call (and, if it arrives while a block is being rendered, that block is zeroed).
     """
 
-    def __init__(self, ceiling_v: float, sample_rate_hz: float, ramp_time_s: float = 0.3) -> None:
+    def __init__(self, ceiling_v: float, sample_rate_hz: float, ramp_time_s: float = 0.3,
+                 retune: str = "through-zero") -> None:
+        if retune not in RETUNE_MODES:
+            raise InvalidDriveRequest(f"ceiling guard: retune must be one of {', '.join(RETUNE_MODES)}, "
+                                      f"got {retune!r}")
+        self._retune = retune
+        self.last_switch_samples: int | None = None   # samples of the last block at the old frequency
         self._ceiling_v = _positive_finite("ceiling_v", ceiling_v)
         self._hard_ceiling_v = self._ceiling_v      # the rig's: arm() may lower the ceiling, never raise it
         self._fs_hz = _positive_finite("sample_rate_hz", sample_rate_hz)
@@ -157,6 +176,11 @@ class CeilingGuard:
         return self._ramp_time_s
 
     @property
+    def retune(self) -> str:
+        """How a sine's frequency changes while the output is on: "through-zero" or "direct"."""
+        return self._retune
+
+    @property
     def ramp_rate_v_per_s(self) -> float:
         return self._hard_ceiling_v / self._ramp_time_s
 
@@ -166,6 +190,9 @@ class CeilingGuard:
             self._apply_halt_flag()
             if self._pending is None:
                 return abs(self._target_v - self._amp_v) / self.ramp_rate_v_per_s
+            if self._pending.direct:      # the ramp, or up to half a period to the next peak
+                return max(abs(self._target_v - self._amp_v) / self.ramp_rate_v_per_s,
+                           0.5 / self._freq_hz + 1.0 / self._fs_hz)
             return (self._amp_v + self._pending.amplitude_v) / self.ramp_rate_v_per_s
 
     @property
@@ -195,6 +222,9 @@ class CeilingGuard:
             self._freq_hz, self._multi = freq_hz, multi
             self._phase_rad = 0.0 if multi is not None else self._phase_rad
             self._target_v = amplitude_v
+        elif self._retune == "direct" and multi is None and self._multi is None:
+            self._pending = _Pending(freq_hz, amplitude_v, None, direct=True)
+            self._target_v = amplitude_v      # ramped straight from the old amplitude
         else:
             self._pending = _Pending(freq_hz, amplitude_v, multi)
             self._target_v = 0.0
@@ -294,6 +324,7 @@ class CeilingGuard:
             raise InvalidDriveRequest(f"ceiling guard: cannot render {n_samples!r} samples")
         with self._lock:
             self._apply_halt_flag()
+            self.last_switch_samples = None
             multi_before = self._multi
             involved = multi_before is not None or (self._pending is not None and self._pending.multi is not None)
             if not involved and self._pending is None and self._amp_v == self._target_v:
@@ -332,6 +363,9 @@ class CeilingGuard:
         n_steps = math.ceil(duration_s / step_s - 1e-9)
         with self._lock:
             self._apply_halt_flag()
+            if self._pending is not None and self._pending.direct:
+                raise InvalidDriveRequest("ceiling guard: a direct retune is for back-ends that render the "
+                                          "samples, not for amplitude schedules")
             step_samples = step_s * self._fs_hz
             k = np.arange(1, n_steps + 1, dtype=np.float64) * step_samples
             amp_v, _ = self._advance(k, quantum=step_samples)
@@ -420,6 +454,8 @@ class CeilingGuard:
                 self._phase_rad = float(phase[-1] % TWO_PI)
             return (amp_v, phase, np.zeros(k.size, dtype=bool)) if with_switch else (amp_v, phase)
         pend = self._pending
+        if pend.direct:
+            return self._advance_direct(k, with_switch)
         # first point at exactly zero (at least one point on, so a zero is always emitted)
         m = max(1, math.ceil(a0 / (self._step_v * quantum) - SNAP)) * quantum
         after = k > m
@@ -435,6 +471,28 @@ class CeilingGuard:
             if k[-1] >= m:  # reached zero: the new frequency takes over
                 self._freq_hz, self._target_v, self._pending = pend.freq_hz, pend.amplitude_v, None
                 self._multi = pend.multi
+                if quantum == 1.0:
+                    self.last_switch_samples = int(m - k[0] + 1)
+        return (amp_v, phase, after) if with_switch else (amp_v, phase)
+
+    def _advance_direct(self, k: np.ndarray, with_switch: bool):
+        """A sine's frequency switched at the first sample at or past the next peak of the old sine
+        (phase π/2 modulo π: slope zero), phase-continuous; the amplitude ramps toward the new
+        value at the speaker-protection rate from the first sample on."""
+        pend = self._pending
+        a0, f0, phi0 = self._amp_v, self._freq_hz, self._phase_rad
+        dphi0 = self._dphi(f0)
+        to_peak = (0.5 * math.pi - phi0) % math.pi
+        m = max(1, math.ceil(to_peak / dphi0 - SNAP))
+        amp_v = _toward(a0, pend.amplitude_v, k * self._step_v, SNAP * self._step_v)
+        after = k > m
+        phase = np.where(after, phi0 + m * dphi0 + (k - m) * self._dphi(pend.freq_hz), phi0 + k * dphi0)
+        if k.size:
+            self._amp_v = float(amp_v[-1])
+            self._phase_rad = float(phase[-1] % TWO_PI)
+            if k[-1] >= m:
+                self._freq_hz, self._target_v, self._pending = pend.freq_hz, pend.amplitude_v, None
+                self.last_switch_samples = int(m - k[0] + 1)
         return (amp_v, phase, after) if with_switch else (amp_v, phase)
 
     def _final_clip(self, values: np.ndarray) -> np.ndarray:

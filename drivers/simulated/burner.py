@@ -251,8 +251,10 @@ class SimulatedBurner:
         status = self.guard.status()
         cps = np.full(self._block_n, status.freq_hz / self._fs)
         if status.freq_hz != f_before:
-            zeros = np.flatnonzero(drive_v == 0.0)  # the guard switches frequency at an exact zero
-            cut = int(zeros[0]) + 1 if zeros.size else 0
+            cut = self.guard.last_switch_samples     # samples at the old frequency (at a zero or a peak)
+            if cut is None:
+                zeros = np.flatnonzero(drive_v == 0.0)  # the guard switches frequency at an exact zero
+                cut = int(zeros[0]) + 1 if zeros.size else 0
             cps[:cut] = f_before / self._fs
         return drive_v, cps, status
 
