@@ -86,6 +86,7 @@ class PressureSensor(_Strict):
     channel: str = Field(min_length=1)
     position: Position
     sensitivity: Sensitivity
+    serial: str = Field(default="", max_length=100)   # the sensor's serial number: a calibration names it
     weight: number(1e-6, 1e6) = 1.0
     position_uncertainty: quantity("length", 0.0, 0.1, unit="mm") = 0.0
     # standard uncertainties of the sensor's calibration (GUM type B, stated by the user): the
@@ -176,6 +177,25 @@ class Light(_Strict):
         return 4.0 * self.dark_offset_uncertainty + 10.0 * dead_rms_v
 
 
+class HotWire(_Strict):
+    """[hot_wire]: an optional hot-wire in the sensor duct for a cross-check of the acoustic velocity.
+
+    King's law E² = A + B·Uⁿ (``kings_a`` in V², ``kings_b`` in V² (m/s)^-n, ``kings_n``), as
+    ``flamebode commission hot-wire --table`` fits and stores them (A, B, n of the record's newest
+    ``hot-wire`` check). ``gain_uncertainty`` (relative) and ``phase_uncertainty`` are the standard
+    uncertainties of the wire's velocity fluctuation from its calibration and its time response
+    (GUM type B, stated by the user). The wire must sit in the sensor duct, where the plane-wave
+    fit holds, never in or downstream of the flame."""
+
+    channel: str = Field(min_length=1)
+    position: Position
+    kings_a: number(0.0, 1e4, lo_open=True)
+    kings_b: number(0.0, 1e4, lo_open=True)
+    kings_n: number(0.05, 2.0)
+    gain_uncertainty: number(0.0, 0.5) = 0.0
+    phase_uncertainty: quantity("angle", 0.0, math.pi / 4, unit="deg") = 0.0
+
+
 class Drive(_Strict):
     channel: str = Field(min_length=1)
     ceiling: quantity("voltage", 0.0, MAX_CEILING_V, lo_open=True, unit="V") = Field(
@@ -244,6 +264,7 @@ class Rig(_Strict):
     acquisition: Acquisition = Acquisition()
     hardware: dict[str, dict[str, Any]] = Field(default_factory=dict)
     pressure_calibration: str | None = Field(default=None, min_length=1)  # docs/calibration-file.md
+    hot_wire: HotWire | None = None                                    # optional velocity cross-check
     source_path: str = ""
 
     @model_validator(mode="after")
@@ -266,6 +287,8 @@ class Rig(_Strict):
         names = [s.channel for s in self.pressure_sensors] + [self.light.channel, self.drive.channel]
         if self.drive.reference_channel:
             names.append(self.drive.reference_channel)
+        if self.hot_wire is not None:
+            names.append(self.hot_wire.channel)
         dupes = sorted({n for n in names if names.count(n) > 1})
         if dupes:
             raise ValueError(f"duplicate channel name(s): {', '.join(dupes)}")
@@ -275,14 +298,23 @@ class Rig(_Strict):
                     f"pressure_sensors[{i}].position ('{s.channel}') at {s.position * 1e3:.1f} mm lies outside the "
                     f"duct (duct.upstream_end {self.duct.upstream_end * 1e3:.1f} mm to duct.reference_plane "
                     f"{self.duct.reference_plane * 1e3:.1f} mm)")
+        hw = self.hot_wire
+        if hw is not None and not self.duct.upstream_end <= hw.position < self.duct.reference_plane:
+            raise ValueError(
+                f"hot_wire.position ('{hw.channel}') at {hw.position * 1e3:.1f} mm lies outside the sensor duct "
+                f"(duct.upstream_end {self.duct.upstream_end * 1e3:.1f} mm to, not at, duct.reference_plane "
+                f"{self.duct.reference_plane * 1e3:.1f} mm): a hot-wire never goes into the flame")
         return self
 
     @property
     def input_channels(self) -> tuple[str, ...]:
-        """Names of every recorded channel: pressures, light, then the drive reference if wired."""
+        """Names of every recorded channel: pressures, light, the drive reference if wired, then the
+        hot-wire if the rig has one."""
         chans = [s.channel for s in self.pressure_sensors] + [self.light.channel]
         if self.drive.reference_channel:
             chans.append(self.drive.reference_channel)
+        if self.hot_wire is not None:
+            chans.append(self.hot_wire.channel)
         return tuple(chans)
 
     def sensor(self, channel: str) -> PressureSensor:

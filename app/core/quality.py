@@ -3,7 +3,8 @@
 Figures (computed by ``app.core.response``): SNR per channel, multi-microphone residual
 and pair spread, harmonic distortion of velocity and light, drift between the first and
 second half of the record, each of pair spread and drift also over its own standard error
-(``*_z``), the velocity's propagated uncertainty and the plane-wave fit's grade. Flags are
+(``*_z``), the velocity's propagated uncertainty and the plane-wave fit's grade, and on a rig
+with a hot-wire its cross-check (``hotwire_*``, ``app.core.hotwire``). Flags are
 short stable names a reviewer can filter on; a figure beyond its threshold but within its
 own noise (or, for cond(H), with an accurate velocity) raises none.
 
@@ -107,6 +108,9 @@ QUALITY_RULES = (
     ("drift_light", "drift-light", "drift_max", "max"),
     ("cond", "ill-conditioned", "cond_max", "max"),
     ("relative_ci95", "too-uncertain", "relative_ci95_max", "max"),
+    # the hot-wire cross-check (app.core.hotwire), only on a rig with a [hot_wire] table
+    ("hotwire_diff_z", "hotwire-disagrees", "hotwire_diff_z_max", "max"),
+    ("hotwire_coherence", "hotwire-low-coherence", "hotwire_coherence_min", "min"),
 )
 
 # Figures compared with their own standard error too: the flag is raised only when the figure
@@ -124,7 +128,9 @@ MATERIALITY = {"ill-conditioned": ("velocity_rel_uncertainty", 0.01)}
 # relative_ci95 = max(gain half-width / gain, phase half-width in rad): 0.3 is ±30 % in gain or
 # ±17° in phase at 95 %, beyond which a point does not constrain a network model (judgement;
 # first-order propagation already fails near there, see app.core.uncertainty).
-DEFAULT_LIMITS = {"relative_ci95_max": 0.3}
+# The hot-wire's limits: its difference from the multi-microphone velocity over its standard
+# error (3: P = e^{-9} by chance) and a coherence γ² of 0.8 between the two (judgement).
+DEFAULT_LIMITS = {"relative_ci95_max": 0.3, "hotwire_diff_z_max": 3.0, "hotwire_coherence_min": 0.8}
 
 FLAG_TEXT = {
     "low-snr-pressure": "a pressure channel has a low signal-to-noise ratio at the forcing frequency",
@@ -140,6 +146,10 @@ FLAG_TEXT = {
     "ill-conditioned": "the multi-microphone fit is badly conditioned at this frequency (sensor spacing) and "
                        "the velocity's propagated error is more than 1 %",
     "too-uncertain": "the 95 % interval is too wide for the point to be used (low signal-to-noise ratio)",
+    "hotwire-disagrees": "the hot-wire velocity differs from the multi-microphone velocity at its position beyond "
+                         "their uncertainty (a convective disturbance locked to the forcing, or a calibration error)",
+    "hotwire-low-coherence": "the hot-wire and the multi-microphone velocity are poorly coherent: the wire sees a "
+                             "convective disturbance that is not sound",
 }
 
 

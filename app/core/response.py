@@ -27,7 +27,7 @@ import numpy as np
 
 from ..errors import RecordError
 from ..rig import Rig
-from . import gas, quality
+from . import gas, hotwire, quality
 from .harmonic import HarmonicFit, fit_harmonics
 from .multimic import Medium, WaveFit, decompose, velocity_at_reference
 from .point import FtfPoint, VelocityEstimate
@@ -329,11 +329,42 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     text = quality.conditioning_warning(freq_hz, vel.cond, vel_rel_u, vel.any_pair_in_band)
     if text:
         warnings.append(text)
+    if rig.hot_wire is not None:
+        hw_figures, hw_warnings = _hot_wire_check(arr, channels, sample_rate_hz, freq_hz, rig, prep, vel.wave_fit)
+        figures.update(hw_figures)
+        warnings.extend(hw_warnings)
     return FtfPoint(freq_hz=float(freq_hz), velocity=vel, light_ratio=light_ratio, ftf=complex(ftf),
                     gain=float(gain), phase_rad=float(np.angle(ftf)),
                     gain_ci95=interval.gain_ci95, phase_ci95_rad=interval.phase_ci95_rad,
                     quality=figures, warnings=tuple(warnings), covariance=pair, interval=interval,
                     budget=budget)
+
+
+def _hot_wire_check(arr: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float, rig: Rig,
+                    prep: _Prepared, wf: WaveFit) -> tuple[dict[str, float], tuple[str, ...]]:
+    """The hot-wire cross-check's figures and warnings (``app.core.hotwire``): the wire's velocity
+    against the plane-wave fit's at the wire's position, in the sensor duct (no area ratio)."""
+    hw = rig.hot_wire
+    assert hw is not None
+    names = list(channels)
+    if hw.channel not in names:
+        return {}, (f"the rig names a hot-wire on '{hw.channel}' but the record has no such channel: no cross-check",)
+    x = hw.position
+    scale = np.array([s.correction(freq_hz) for s in rig.pressure_sensors]) / prep.sensitivities
+    row_pa = wf._g(x) @ wf.estimator
+    row_v = row_pa * scale                                   # û(x) per sensor phasor in volts
+    # the sensors' stated calibration errors move û(x) by r_i p_i ε_i (as at the reference plane,
+    # _systematic_directions); with the noise they make the multi-microphone side's variance there
+    u_cal = np.array([s.calibration_uncertainty(freq_hz) for s in rig.pressure_sensors])
+    var_mmm = wf.velocity_variance_at(x) + float(np.sum(np.abs(row_pa * wf.pressures_pa) ** 2
+                                                        * np.sum(u_cal**2, axis=1)))
+    try:
+        check = hotwire.cross_check(arr[names.index(hw.channel)], wf.velocity_at(x), var_mmm,
+                                    arr[prep.pressure_rows], row_v, sample_rate_hz, freq_hz,
+                                    hw.kings_a, hw.kings_b, hw.kings_n, hw.gain_uncertainty, hw.phase_uncertainty)
+    except (ValueError, RecordError) as exc:
+        return {}, (f"hot-wire cross-check not made: {exc}",)
+    return check.figures(), check.warnings(freq_hz)
 
 
 def point_summary(point: FtfPoint) -> Mapping[str, object]:

@@ -1,0 +1,154 @@
+"""Hot-wire cross-check of the multi-microphone velocity at one FTF point.
+
+A hot-wire in the sensor duct measures the axial velocity at its position directly. Its bridge
+voltage is converted to velocity sample by sample through King's law, U = ((E² − A)/B)^(1/n)
+(King 1914; free exponent n of Collis & Williams 1959), and the velocity record gets the same
+harmonic fit as every other channel (``app.core.harmonic``). That phasor is compared with the
+plane-wave fit's velocity AT THE WIRE'S POSITION (``WaveFit.velocity_at``), both in the sensor
+duct's cross-section, convention x(t) = Re{x̂ e^{+iωt}}:
+
+* ``ratio`` û_hw / û_mmm(x_hw) (its modulus and phase) and the difference d = û_hw − û_mmm with
+  its standard error: E|δd|² = E|δû_hw|² (the wire's noise) + E|δû_mmm|² (the sensors' noise,
+  independent of the wire's) + |û_hw|² (u_g² + u_φ²) (the wire's stated calibration and time
+  response, GUM type B); z = |d| / √E|δd|², so P(z > 3) = e^{-9} for a complex Gaussian d.
+* the coherence γ² = |Σ a_k b̄_k|² / (Σ|a_k|² Σ|b_k|²) of the two phasors over the record's
+  segments (Bendat & Piersol, Random Data, ch. 9, with the segment phasors as the Fourier
+  coefficients at the forcing line). Sound seen by both gives γ² near 1; a convective
+  disturbance (vorticity, turbulence, entropy spots carried with the flow) is seen by the wire
+  but not by the wall pressures, which the plane-wave fit keeps to acoustic waves (common
+  practice), so γ² falls, and a disturbance locked to the forcing shows as a difference instead.
+
+The samples where the voltage falls below the zero-flow voltage (E² < A, a flow reversal at the
+wire, which a single wire cannot tell from forward flow) are counted (``below_zero_flow``) and
+read as zero velocity.
+
+Imports: numpy, ``app.core.harmonic`` (the same fit as the other channels) and ``app.errors``.
+Never Qt, drivers, the engine or storage.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import RecordError
+from .harmonic import fit_harmonics
+
+N_SEGMENTS = 16            # segments for the coherence (a γ² estimate from K segments is biased by ~1/K)
+COHERENCE_MIN = 0.8        # below it the wire sees much that the sound field does not (judgement)
+DIFFERENCE_Z_MAX = 3.0     # beyond it the two velocities disagree beyond their uncertainty
+
+
+@dataclass(frozen=True)
+class HotWireCheck:
+    """The hot-wire's velocity at its position against the plane-wave fit's there (m/s, peak)."""
+
+    velocity_hotwire: complex
+    velocity_mmm: complex
+    var_hotwire: float          # E|δû_hw|² from the wire's noise and stated calibration, (m/s)²
+    var_mmm: float              # E|δû_mmm|² at the wire's position, (m/s)²
+    coherence: float            # γ² over the record's segments
+    n_segments: int
+    mean_velocity_m_s: float    # the wire's mean velocity
+    below_zero_flow: float      # fraction of samples below the zero-flow voltage
+
+    @property
+    def ratio(self) -> complex:
+        return self.velocity_hotwire / self.velocity_mmm if self.velocity_mmm != 0 else complex(np.nan, np.nan)
+
+    @property
+    def difference_z(self) -> float:
+        var = self.var_hotwire + self.var_mmm
+        d = abs(self.velocity_hotwire - self.velocity_mmm)
+        return float(d / np.sqrt(var)) if var > 0 else (0.0 if d == 0 else float("inf"))
+
+    @property
+    def ratio_ci95(self) -> float:
+        """95 % half-width of |ratio| (first order, normal coverage; relative to |û_mmm|)."""
+        if self.velocity_mmm == 0:
+            return float("inf")
+        return float(1.959963984540054 * np.sqrt((self.var_hotwire + self.var_mmm) / 2.0) / abs(self.velocity_mmm))
+
+    def figures(self) -> dict[str, float]:
+        r = self.ratio
+        return {"hotwire_ratio": float(abs(r)), "hotwire_ratio_ci95": self.ratio_ci95,
+                "hotwire_phase_diff_rad": float(np.angle(r)), "hotwire_diff_z": self.difference_z,
+                "hotwire_coherence": float(self.coherence), "hotwire_mean_velocity_m_s": self.mean_velocity_m_s,
+                "hotwire_below_zero_flow": float(self.below_zero_flow)}
+
+    def warnings(self, freq_hz: float) -> tuple[str, ...]:
+        out = []
+        if self.difference_z > DIFFERENCE_Z_MAX:
+            r = self.ratio
+            out.append(f"at {freq_hz:g} Hz the hot-wire velocity differs from the multi-microphone one at its position "
+                       f"beyond their uncertainty (ratio {abs(r):.3g}, phase {np.degrees(np.angle(r)):+.3g}°, "
+                       f"z = {self.difference_z:.3g}): a convective disturbance locked to the forcing, a wrong wire "
+                       f"calibration or position, or a sensor error")
+        if self.coherence < COHERENCE_MIN:
+            out.append(f"at {freq_hz:g} Hz the hot-wire and the multi-microphone velocity are coherent only to "
+                       f"γ² = {self.coherence:.2f}: the wire sees a disturbance that is not sound (convective, "
+                       f"turbulence) which the multi-microphone method filters out")
+        if self.below_zero_flow > 0.0:
+            out.append(f"at {freq_hz:g} Hz {100 * self.below_zero_flow:.2g} % of the hot-wire samples are below its "
+                       f"zero-flow voltage (flow reversal at the wire, which it reads as forward flow)")
+        return tuple(out)
+
+
+def velocity_from_voltage(voltage_v: np.ndarray, a_v2: float, b: float, n: float) -> tuple[np.ndarray, float]:
+    """U = ((E² − A)/B)^(1/n) sample by sample, and the fraction of samples with E² < A (read as 0)."""
+    q = (np.square(np.asarray(voltage_v, dtype=float)) - a_v2) / b
+    below = float(np.mean(q < 0)) if q.size else 0.0
+    return np.power(np.clip(q, 0.0, None), 1.0 / n), below
+
+
+def segment_phasors(x: np.ndarray, sample_rate_hz: float, freq_hz: float, n_segments: int = N_SEGMENTS
+                    ) -> np.ndarray:
+    """Complex amplitude at ``freq_hz`` of each channel in each of ``n_segments`` equal segments
+    (least squares on offset, cos, sin per segment; phase referred to the record's first sample,
+    so a steady sinusoid gives the same phasor in every segment). Shape (n_ch, n_segments)."""
+    data = np.atleast_2d(np.asarray(x, dtype=float))
+    length = data.shape[1] // n_segments
+    if length < 8:
+        raise RecordError(f"record of {data.shape[1]} samples is too short for {n_segments} segments")
+    w = 2 * np.pi * freq_hz / sample_rate_hz
+    t = np.arange(length)
+    basis = np.column_stack([np.ones(length), np.cos(w * t), np.sin(w * t)])
+    proj = np.linalg.pinv(basis)                                     # (3, L)
+    seg = data[:, :n_segments * length].reshape(data.shape[0], n_segments, length)
+    beta = seg @ proj.T                                              # (n_ch, K, 3)
+    local = beta[..., 1] - 1j * beta[..., 2]                         # x = Re{a e^{iωt'}} in the segment
+    return local * np.exp(-1j * w * length * np.arange(n_segments))[None, :]
+
+
+def coherence(a: np.ndarray, b: np.ndarray) -> float:
+    """γ² of two phasor sequences over their segments."""
+    num = abs(np.sum(a * np.conj(b))) ** 2
+    den = float(np.sum(np.abs(a) ** 2) * np.sum(np.abs(b) ** 2))
+    return float(num / den) if den > 0 else 0.0
+
+
+def cross_check(voltage_v: np.ndarray, velocity_mmm: complex, var_mmm: float, pressure_v: np.ndarray,
+                velocity_row: np.ndarray, sample_rate_hz: float, freq_hz: float, a_v2: float, b: float, n: float,
+                gain_uncertainty: float = 0.0, phase_uncertainty_rad: float = 0.0,
+                n_segments: int = N_SEGMENTS) -> HotWireCheck:
+    """The cross-check of one record.
+
+    ``voltage_v``: the wire's bridge voltage samples; ``velocity_mmm`` and ``var_mmm``: the
+    plane-wave fit's û at the wire's position and E|δû|² there; ``pressure_v`` (n_sensors, n):
+    the fit's sensors' samples in volts and ``velocity_row`` the fit's linear map from their
+    phasors (volts, calibration and sensitivity included) to û at the wire, so that the same
+    estimate applies to each segment for the coherence. A, B, n: King's law.
+    """
+    u, below = velocity_from_voltage(voltage_v, a_v2, b, n)
+    fit = fit_harmonics(u, sample_rate_hz, freq_hz, n_harmonics=1)
+    u_hw = complex(fit.amplitude[0])
+    var_hw = float(fit.var_amplitude[0]) + abs(u_hw) ** 2 * (gain_uncertainty**2 + phase_uncertainty_rad**2)
+    p = np.atleast_2d(np.asarray(pressure_v, dtype=float))
+    k = segment_phasors(np.vstack([u[None, :], p]), sample_rate_hz, freq_hz, n_segments)
+    seg_hw, seg_mmm = k[0], np.asarray(velocity_row, dtype=complex) @ k[1:]
+    return HotWireCheck(u_hw, complex(velocity_mmm), var_hw, float(var_mmm), coherence(seg_hw, seg_mmm), n_segments,
+                        float(fit.offset[0]), below)
+
+
+__all__ = ["HotWireCheck", "coherence", "cross_check", "segment_phasors", "velocity_from_voltage"]
