@@ -21,7 +21,9 @@ rig with the simulated burner in fast mode:
     first-window hit rate (within tolerance), median and mean windows per point, the worst
     TRUE window amplitude / target (drivers.simulated.truth; the pre-scan's multi-sine counts
     as the sum of its lines' true amplitudes) and the overhead (pre-scan included); and the
-    pre-scan with ``settle = "auto"`` (the bench plan's 0.5 s where the decay cannot be told).
+    pre-scan with ``settle = "auto"`` (the bench plan's 0.5 s where the decay cannot be told),
+    and that with the guard's direct retune (``CeilingGuard(retune="direct")``: no ramp through
+    zero between frequencies).
 
 Run: python tests/bench/bench_controller.py   (table (d) and the last line; --all: (a)-(d);
 --soft-start: table (c) only)
@@ -43,6 +45,7 @@ from app.engine.events import EventBus, TransferMeasured, TuningStep  # noqa: E4
 from app.engine.sweep import SweepEngine  # noqa: E402
 from app.plan import load_plan, plan_from_dict  # noqa: E402
 from app.rig import load_rig, read_toml  # noqa: E402
+from drivers.guard import CeilingGuard  # noqa: E402
 from drivers.simulated import truth  # noqa: E402
 from drivers.simulated.burner import SimulatedBurner  # noqa: E402
 from soft_start import forcing_of_sweep  # noqa: E402
@@ -79,9 +82,12 @@ def prescan_plan(record: str = "10 s", prescan: bool = True, settle_auto: bool =
     return plan_from_dict(data, str(ROOT / "configs" / "bench-plan.toml"))
 
 
-def measured_sweep(plan, rig, scenario, prior=()):
-    """One sweep with the truth watching every tuning window and every pre-scan level."""
+def measured_sweep(plan, rig, scenario, prior=(), retune="through-zero"):
+    """One sweep with the truth watching every tuning window and every pre-scan level; ``retune``
+    the simulated burner's guard mode (its constructor has no option yet: the guard is swapped)."""
     sim = SimulatedBurner(rig, scenario=scenario, seed=SEED)
+    if retune != "through-zero":
+        sim.guard = CeilingGuard(rig.drive.ceiling, sim.sample_rate_hz, rig.drive.ramp_time, retune=retune)
     bus = EventBus()
     worst, first, transfer = [0.0], {}, []
     points = {p.index: p for p in plan.points()}
@@ -127,6 +133,8 @@ def prescan_table(rig) -> float:
         rows = (("predictive, no pre-scan", cold),
                 ("predictive + pre-scan", measured_sweep(prescan_plan(), rig, path)),
                 ("predictive + pre-scan, settle auto", measured_sweep(prescan_plan(settle_auto=True), rig, path)),
+                ("pre-scan + auto settle + direct", measured_sweep(prescan_plan(settle_auto=True), rig, path,
+                                                                       retune="direct")),
                 ("predictive + earlier run's table", measured_sweep(prescan_plan(prescan=False), rig, path,
                                                                   prior=table)))
         for label, r in rows:
