@@ -269,6 +269,11 @@ def check_against(cal: CalibrationFile, rig: "Rig") -> None:
     if unknown:
         problems.append(f"sensors: {', '.join(unknown)} not among the rig's pressure sensors "
                         f"({', '.join(rig_names)})")
+    for s in rig.pressure_sensors:            # a sensor exchanged since: its factors are another sensor's
+        if s.channel in file_names and s.serial and cal.sensor(s.channel).serial and \
+                s.serial != cal.sensor(s.channel).serial:
+            problems.append(f"sensor.{s.channel}: serial {cal.sensor(s.channel).serial!r} was calibrated, the rig "
+                            f"now has {s.serial!r} on this channel: the sensor was exchanged; calibrate again")
     if cal.rig_identity != rig_identity(rig):
         why = []
         if cal.rig_name != rig.name:
@@ -289,15 +294,33 @@ def check_against(cal: CalibrationFile, rig: "Rig") -> None:
         raise CalibrationFileError(cal.path, problems)
 
 
+RUN_SNAPSHOT = "calibration.toml"     # a run folder's copy of the calibration it was measured with
+RUN_INDEX = "index.sqlite"            # what makes a folder a run folder (app.storage.index.INDEX_NAME)
+
+
+def resolve_name(name: str, rig_path: str | Path | None) -> Path:
+    """``name`` as a rig file at ``rig_path`` names it: relative to the rig file's folder.
+
+    A rig file that is a run folder's snapshot (``rig.toml`` beside the run's index) reads the
+    run's own copy of the calibration, made when the run was created, wherever the original
+    went and whatever became of it since."""
+    if rig_path:
+        folder = Path(rig_path).resolve().parent
+        if (folder / RUN_SNAPSHOT).is_file() and (folder / RUN_INDEX).is_file() and Path(rig_path).name == "rig.toml":
+            return folder / RUN_SNAPSHOT
+    p = Path(name).expanduser()
+    if not p.is_absolute() and rig_path and Path(rig_path).is_file():
+        p = Path(rig_path).resolve().parent / p
+    return p
+
+
 def resolve(rig: "Rig") -> Path | None:
-    """The calibration file a rig names, relative to the rig file's folder."""
+    """The calibration file a rig names, relative to the rig file's folder (a run's snapshot of
+    a rig: the run's copy, see :func:`resolve_name`)."""
     name = rig.pressure_calibration
     if not name:
         return None
-    p = Path(name).expanduser()
-    if not p.is_absolute() and rig.source_path and Path(rig.source_path).is_file():
-        p = Path(rig.source_path).resolve().parent / p
-    return p
+    return resolve_name(name, rig.source_path)
 
 
 def attach(rig: "Rig") -> "Rig":

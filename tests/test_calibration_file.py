@@ -150,3 +150,28 @@ def test_a_rig_with_a_bad_file_gives_a_plain_message_in_the_cli(tmp_path, demo_r
     assert proc.returncode == 2
     assert "Traceback" not in proc.stderr and str(cal_path) in proc.stderr and "cut short" in proc.stderr
     assert issubclass(CalibrationFileError, FlamebodeError)
+
+
+def test_a_sensor_exchanged_since_its_calibration_is_refused_by_serial(tmp_path, demo_rig_path):
+    # common practice: a calibration belongs to the physical sensor; the serial number tells
+    def serials(mark: str):
+        def edit(text: str) -> str:
+            out, n = [], 0
+            for line in text.splitlines(keepends=True):
+                out.append(line)
+                if line.strip() == "[[pressure_sensors]]":
+                    n += 1
+                    out.append(f'serial = "PX-{mark if n == 2 else "A"}{n}"\n')
+            return "".join(out)
+        return edit
+
+    first = _rig_naming(tmp_path, demo_rig_path, edit=serials("A"))
+    text = first.read_text().replace('pressure_calibration = "cal.toml"\n', "")
+    plain = tmp_path / "plain.toml"
+    plain.write_text(text)
+    _write(load_rig(plain), tmp_path / "cal.toml")            # calibrated with sensors PX-A1..PX-A4
+    assert load_rig(first).pressure_sensors[1].calibration     # same sensors: applied
+    _rig_naming(tmp_path, demo_rig_path, edit=serials("B"))     # p2 now carries PX-B2
+    with pytest.raises(CalibrationFileError) as exc:
+        load_rig(tmp_path / "rig.toml")
+    assert "sensor.p2: serial 'PX-A2' was calibrated" in str(exc.value) and "'PX-B2'" in str(exc.value)

@@ -44,6 +44,7 @@ except ImportError:       # pragma: no cover
 
 RECORDS_DIR = "records"
 SNAPSHOT_RIG = "rig.toml"
+SNAPSHOT_CALIBRATION = "calibration.toml"   # the calibration file the rig names (app.calibration_file.RUN_SNAPSHOT)
 SNAPSHOT_PLAN = "plan.toml"
 SNAPSHOT_SCENARIO = "scenario"      # + the source file's suffix
 _STOP = object()
@@ -181,6 +182,9 @@ class RunWriter:
             if scenario_path is not None:
                 src = Path(scenario_path)
                 snapshots["scenario"] = (src, f"{SNAPSHOT_SCENARIO}{src.suffix or '.txt'}")
+            calibration = named_calibration(Path(rig_path))
+            if calibration is not None:      # the run keeps the calibration it was measured with
+                snapshots["calibration"] = (calibration, SNAPSHOT_CALIBRATION)
             self._lock_fd = hold_writer_lock(self.run_dir)
             info: dict[str, Any] = {"tool_version": __version__}
             contents: dict[str, bytes] = {}
@@ -430,6 +434,23 @@ class RunWriter:
                 f"to {where}: {what}. Points stored before are intact; the sweep stops. "
                 f"Free at least {need_mb:.0f} MB on the disk holding {self.run_dir} ({free}) or fix the "
                 f"cause, then continue with `flamebode resume {self.run_dir}`.")
+
+
+def named_calibration(rig_path: Path) -> Path | None:
+    """The calibration file a rig file names (``pressure_calibration``), if it names one that
+    exists; read from the file's text (the rig is loaded elsewhere, with its checks)."""
+    import tomllib
+
+    from ..calibration_file import resolve_name
+
+    try:
+        name = tomllib.loads(rig_path.read_text(encoding="utf-8")).get("pressure_calibration")
+    except (OSError, tomllib.TOMLDecodeError, UnicodeDecodeError):
+        return None
+    if not isinstance(name, str) or not name:
+        return None
+    p = resolve_name(name, rig_path)
+    return p if p.is_file() else None
 
 
 def writer_for_existing_run(run_dir: str | Path, bus: EventBus) -> RunWriter:

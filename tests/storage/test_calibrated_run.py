@@ -37,3 +37,32 @@ def test_records_keep_their_channel_map_with_a_relative_calibration_file(tmp_pat
     roles = list(attrs["channel_roles"])
     assert roles.count("pressure") == 4 and "light" in roles and "drive_reference" in roles
     assert len(list(attrs["channel_sensitivity_v_per_unit"])) == len(roles)
+
+
+def test_the_run_keeps_the_calibration_it_was_measured_with(tmp_path: Path) -> None:
+    # the run folder holds a copy of the calibration file; its snapshot of the rig reads that copy,
+    # so a run can be reprocessed after the lab's calibration file was replaced or removed
+    import shutil
+
+    demo = ROOT / "configs" / "demo-rig.toml"
+    rig_dir = tmp_path / "rig"
+    rig_dir.mkdir()
+    cal = _write(load_rig(demo), rig_dir / "cal.toml")
+    rig = _rig_naming(rig_dir, demo)
+    plan = tmp_path / "plan.toml"
+    plan.write_text(short_plan_text("calibrated", 200, 300, 100, 0.3))
+    out = subprocess.run([sys.executable, "-m", "app.cli", "sweep", str(plan), "--rig", str(rig), "--out",
+                          str(tmp_path / "run"), "--fast", "--seed", "2"], cwd=tmp_path, capture_output=True,
+                         text=True, timeout=170)
+    assert out.returncode == 0, out.stderr[-2000:]
+    copy = tmp_path / "run" / "calibration.toml"
+    assert copy.read_bytes() == cal.read_bytes()
+    shutil.move(str(rig_dir), str(tmp_path / "gone"))        # the lab's files moved away
+    snap = load_rig(tmp_path / "run" / "rig.toml")
+    assert snap.pressure_sensors[1].calibration, "the snapshot rig reads the run's copy"
+    run = open_run(tmp_path / "run", verify=True)
+    assert not [p for p in run.problems if "calibration" in p], run.problems
+    out = subprocess.run([sys.executable, "-m", "app.cli", "reprocess-run", str(tmp_path / "run"), "--rig",
+                          str(tmp_path / "run" / "rig.toml")], cwd=tmp_path, capture_output=True, text=True,
+                         timeout=170)
+    assert out.returncode == 0 and "Traceback" not in out.stderr, out.stdout[-1500:] + out.stderr[-1500:]
