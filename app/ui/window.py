@@ -44,6 +44,7 @@ from .session import SweepRequest, SweepSession
 from .views.controls import ControlStrip
 from .views.fault_banner import FaultBanner
 from .views.halt_banner import HaltBanner
+from .views.calibration import CalibrationView
 from .views.points import PointListView
 from .views.prescan import PrescanView
 from .views.response import ResponseView
@@ -115,6 +116,7 @@ class MainWindow(ReviewActions, QMainWindow):
         self.tabs.addTab(self.setup, "Set-up")
         self.tabs.addTab(self.sweep_tab, "Sweep")
         self.tabs.addTab(self.review, "Review")
+        self.sensors = CalibrationView.as_tab(self.tabs, lambda: self.setup.rig_editor.path)   # read when shown
         self._build_controls()
         central = QWidget()
         lay = QVBoxLayout(central)

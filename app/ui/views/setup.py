@@ -12,6 +12,7 @@ Imports: PySide6, the standard library and the rig/plan loaders only.
 
 from __future__ import annotations
 
+import html
 import tomllib
 from pathlib import Path
 from typing import Any, Callable
@@ -230,6 +231,10 @@ class SetupView(QWidget):
         self.checklist_hint = QLabel()
         self.checklist_hint.setWordWrap(True)
         check_lay.addWidget(self.checklist_hint)
+        self.commissioning = QLabel()        # what the rig's commissioning record lacks or has let age
+        self.commissioning.setWordWrap(True)
+        check_lay.addWidget(self.commissioning)
+        self.rig_editor.checked.connect(lambda _p: self.refresh_commissioning())
         safety = QGroupBox("Before forcing the flame")
         safety.setLayout(check_lay)
 
@@ -290,6 +295,30 @@ class SetupView(QWidget):
         self.checklist_hint.setText(
             "Simulated burner: the checklist is shown for practice and is not required." if sim else
             "<b>Real hardware: tick every item before Start is allowed.</b>")
+        self.refresh_commissioning()
+
+    def refresh_commissioning(self) -> list[str]:
+        """Say, below the checklist, what the rig's commissioning record (app.commissioning_record)
+        lacks or has let age (30 days); a reminder, never a reason to refuse Start."""
+        from app.commissioning_record import age_notes, read_record, record_path_for
+        from app.errors import FlamebodeError
+
+        path = self.rig_editor.path
+        if path is None:
+            self.commissioning.setText("")
+            return []
+        try:
+            record = read_record(record_path_for(path))
+            notes = age_notes(record, 30.0)
+        except FlamebodeError as exc:
+            notes = [f"the commissioning record cannot be read: {exc}"]
+            record = None
+        name = record.path.name if record is not None else record_path_for(path).name
+        text = ("Commissioning (" + name + "): " + "; ".join(notes) + " — see docs/commissioning.md"
+                if notes else f"Commissioning ({name}): dark offset, light-chain and calibration checks are recent.")
+        text = html.escape(text)
+        self.commissioning.setText(f"<b>{text}</b>" if notes and not self.is_simulated() else text)
+        return notes
 
     def checklist_done(self) -> bool:
         return all(b.isChecked() for b in self.checks.values())
