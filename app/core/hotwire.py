@@ -7,10 +7,12 @@ harmonic fit as every other channel (``app.core.harmonic``). That phasor is comp
 plane-wave fit's velocity AT THE WIRE'S POSITION (``WaveFit.velocity_at``), both in the sensor
 duct's cross-section, convention x(t) = Re{x̂ e^{+iωt}}:
 
-* ``ratio`` û_hw / û_mmm(x_hw) (its modulus and phase) and the difference d = û_hw − û_mmm with
-  its standard error: E|δd|² = E|δû_hw|² (the wire's noise) + E|δû_mmm|² (the sensors' noise,
-  independent of the wire's) + |û_hw|² (u_g² + u_φ²) (the wire's stated calibration and time
-  response, GUM type B); z = |d| / √E|δd|², so P(z > 3) = e^{-9} for a complex Gaussian d.
+* ``ratio`` û_hw / û_mmm(x_hw) (its modulus and phase, each with a 95 % half-width) and the
+  difference d = û_hw − û_mmm with its standard error: E|δd|² = E|δû_hw|² (the wire's noise) +
+  E|δû_mmm|² (the sensors' noise, independent of the wire's) + Σ|δ_k|² over the stated
+  systematic inputs (the wire's calibration gain and phase, each sensor's calibration, GUM type
+  B); z = |d| / √E|δd|², so P(z > 3) = e^{-9} for a complex Gaussian d. The ratio's gain and
+  phase get each direction's real and imaginary part (JCGM 100:2008 §5.1.2).
 * the coherence γ² = |Σ a_k b̄_k|² / (Σ|a_k|² Σ|b_k|²) of the two phasors over the record's
   segments (Bendat & Piersol, Random Data, ch. 9, with the segment phasors as the Fourier
   coefficients at the forcing line). Sound seen by both gives γ² near 1; a convective
@@ -46,12 +48,31 @@ class HotWireCheck:
 
     velocity_hotwire: complex
     velocity_mmm: complex
-    var_hotwire: float          # E|δû_hw|² from the wire's noise and stated calibration, (m/s)²
-    var_mmm: float              # E|δû_mmm|² at the wire's position, (m/s)²
+    var_hotwire: float          # E|δû_hw|² from the wire's noise, (m/s)²
+    var_mmm: float              # E|δû_mmm|² at the wire's position from the sensors' noise, (m/s)²
     coherence: float            # γ² over the record's segments
     n_segments: int
     mean_velocity_m_s: float    # the wire's mean velocity
     below_zero_flow: float      # fraction of samples below the zero-flow voltage
+    # systematic shifts of û_hw and û_mmm for one standard uncertainty of each stated input (m/s,
+    # complex): the wire's calibration gain and phase, the sensors' calibrations
+    directions_hotwire: tuple[complex, ...] = ()
+    directions_mmm: tuple[complex, ...] = ()
+
+    @property
+    def _var_difference(self) -> float:
+        return (self.var_hotwire + self.var_mmm + sum(abs(d) ** 2 for d in self.directions_hotwire)
+                + sum(abs(d) ** 2 for d in self.directions_mmm))
+
+    def _ratio_variances(self) -> tuple[float, float]:
+        """(relative gain, phase) variances of the ratio: the circular noise halves into each, every
+        systematic direction δ_k goes in as Re(δ_k/û)² and Im(δ_k/û)² (JCGM 100:2008 §5.1.2)."""
+        u_h, u_m = self.velocity_hotwire, self.velocity_mmm
+        if u_h == 0 or u_m == 0:
+            return float("inf"), float("inf")
+        noise = 0.5 * (self.var_hotwire / abs(u_h) ** 2 + self.var_mmm / abs(u_m) ** 2)
+        rel = [d / u_h for d in self.directions_hotwire] + [d / u_m for d in self.directions_mmm]
+        return noise + sum(r.real**2 for r in rel), noise + sum(r.imag**2 for r in rel)
 
     @property
     def ratio(self) -> complex:
@@ -59,21 +80,24 @@ class HotWireCheck:
 
     @property
     def difference_z(self) -> float:
-        var = self.var_hotwire + self.var_mmm
+        """|û_hw − û_mmm| over the standard error of the difference (noise and stated inputs)."""
+        var = self._var_difference
         d = abs(self.velocity_hotwire - self.velocity_mmm)
         return float(d / np.sqrt(var)) if var > 0 else (0.0 if d == 0 else float("inf"))
 
     @property
     def ratio_ci95(self) -> float:
-        """95 % half-width of |ratio| (first order, normal coverage; relative to |û_mmm|)."""
-        if self.velocity_mmm == 0:
-            return float("inf")
-        return float(1.959963984540054 * np.sqrt((self.var_hotwire + self.var_mmm) / 2.0) / abs(self.velocity_mmm))
+        """95 % half-width of |ratio| (first order, normal coverage factor)."""
+        return float(1.959963984540054 * abs(self.ratio) * np.sqrt(self._ratio_variances()[0]))
+
+    @property
+    def phase_ci95_rad(self) -> float:
+        return float(1.959963984540054 * np.sqrt(self._ratio_variances()[1]))
 
     def figures(self) -> dict[str, float]:
         r = self.ratio
         return {"hotwire_ratio": float(abs(r)), "hotwire_ratio_ci95": self.ratio_ci95,
-                "hotwire_phase_diff_rad": float(np.angle(r)), "hotwire_diff_z": self.difference_z,
+                "hotwire_phase_diff_rad": float(np.angle(r)), "hotwire_phase_ci95_rad": self.phase_ci95_rad, "hotwire_diff_z": self.difference_z,
                 "hotwire_coherence": float(self.coherence), "hotwire_mean_velocity_m_s": self.mean_velocity_m_s,
                 "hotwire_below_zero_flow": float(self.below_zero_flow)}
 
@@ -131,24 +155,28 @@ def coherence(a: np.ndarray, b: np.ndarray) -> float:
 def cross_check(voltage_v: np.ndarray, velocity_mmm: complex, var_mmm: float, pressure_v: np.ndarray,
                 velocity_row: np.ndarray, sample_rate_hz: float, freq_hz: float, a_v2: float, b: float, n: float,
                 gain_uncertainty: float = 0.0, phase_uncertainty_rad: float = 0.0,
-                n_segments: int = N_SEGMENTS) -> HotWireCheck:
+                directions_mmm: tuple[complex, ...] = (), n_segments: int = N_SEGMENTS) -> HotWireCheck:
     """The cross-check of one record.
 
     ``voltage_v``: the wire's bridge voltage samples; ``velocity_mmm`` and ``var_mmm``: the
     plane-wave fit's û at the wire's position and E|δû|² there; ``pressure_v`` (n_sensors, n):
     the fit's sensors' samples in volts and ``velocity_row`` the fit's linear map from their
     phasors (volts, calibration and sensitivity included) to û at the wire, so that the same
-    estimate applies to each segment for the coherence. A, B, n: King's law.
+    estimate applies to each segment for the coherence. A, B, n: King's law; ``gain_uncertainty``
+    (relative) and ``phase_uncertainty_rad``: the wire's stated standard uncertainties;
+    ``directions_mmm``: the shifts of û_mmm for one standard uncertainty of each sensor's stated
+    calibration (m/s).
     """
     u, below = velocity_from_voltage(voltage_v, a_v2, b, n)
     fit = fit_harmonics(u, sample_rate_hz, freq_hz, n_harmonics=1)
     u_hw = complex(fit.amplitude[0])
-    var_hw = float(fit.var_amplitude[0]) + abs(u_hw) ** 2 * (gain_uncertainty**2 + phase_uncertainty_rad**2)
+    var_hw = float(fit.var_amplitude[0])
+    dirs_hw = tuple(d for d in (u_hw * gain_uncertainty, 1j * u_hw * phase_uncertainty_rad) if d != 0)
     p = np.atleast_2d(np.asarray(pressure_v, dtype=float))
     k = segment_phasors(np.vstack([u[None, :], p]), sample_rate_hz, freq_hz, n_segments)
     seg_hw, seg_mmm = k[0], np.asarray(velocity_row, dtype=complex) @ k[1:]
     return HotWireCheck(u_hw, complex(velocity_mmm), var_hw, float(var_mmm), coherence(seg_hw, seg_mmm), n_segments,
-                        float(fit.offset[0]), below)
+                        float(fit.offset[0]), below, dirs_hw, tuple(complex(d) for d in directions_mmm))
 
 
 __all__ = ["HotWireCheck", "coherence", "cross_check", "segment_phasors", "velocity_from_voltage"]

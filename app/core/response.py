@@ -353,15 +353,19 @@ def _hot_wire_check(arr: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     scale = np.array([s.correction(freq_hz) for s in rig.pressure_sensors]) / prep.sensitivities
     row_pa = wf._g(x) @ wf.estimator
     row_v = row_pa * scale                                   # û(x) per sensor phasor in volts
-    # the sensors' stated calibration errors move û(x) by r_i p_i ε_i (as at the reference plane,
-    # _systematic_directions); with the noise they make the multi-microphone side's variance there
-    u_cal = np.array([s.calibration_uncertainty(freq_hz) for s in rig.pressure_sensors])
-    var_mmm = wf.velocity_variance_at(x) + float(np.sum(np.abs(row_pa * wf.pressures_pa) ** 2
-                                                        * np.sum(u_cal**2, axis=1)))
+    # the sensors' stated calibration errors move û(x) by r_i p_i ε_g or i r_i p_i ε_φ (as at the
+    # reference plane, _systematic_directions)
+    per_sensor = row_pa * wf.pressures_pa
+    dirs = []
+    for i, sensor in enumerate(rig.pressure_sensors):
+        u_g, u_p = sensor.calibration_uncertainty(freq_hz)
+        dirs += [complex(per_sensor[i] * u_g)] if u_g > 0 else []
+        dirs += [complex(1j * per_sensor[i] * u_p)] if u_p > 0 else []
     try:
-        check = hotwire.cross_check(arr[names.index(hw.channel)], wf.velocity_at(x), var_mmm,
+        check = hotwire.cross_check(arr[names.index(hw.channel)], wf.velocity_at(x), wf.velocity_variance_at(x),
                                     arr[prep.pressure_rows], row_v, sample_rate_hz, freq_hz,
-                                    hw.kings_a, hw.kings_b, hw.kings_n, hw.gain_uncertainty, hw.phase_uncertainty)
+                                    hw.kings_a, hw.kings_b, hw.kings_n, hw.gain_uncertainty, hw.phase_uncertainty,
+                                    directions_mmm=tuple(dirs))
     except (ValueError, RecordError) as exc:
         return {}, (f"hot-wire cross-check not made: {exc}",)
     return check.figures(), check.warnings(freq_hz)

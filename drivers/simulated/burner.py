@@ -100,8 +100,13 @@ class SimulatedBurner:
 
     def __init__(self, rig: Rig, scenario: Scenario | str | Path | None = None,
                  real_time: bool = False, seed: int | None = None, holder: bool = False,
-                 holder_plane: float | None = None, noise_seed: int | None = None) -> None:
-        """``holder``: calibration-holder mode (``holder``): every sensor at the axial plane
+                 holder_plane: float | None = None, noise_seed: int | None = None,
+                 thermal_power: float | None = None, lamp_position: str | None = None) -> None:
+        """``thermal_power`` (W): the flame burns at this power (the light chain answers it with the
+        scenario's ``[light] nonlinearity``; the acoustics keep the rig's flows); default the scenario's
+        ``[light] nominal_power``. ``lamp_position``: with ``holder`` (no flame), a small lamp at this
+        position label lights the chain with the scenario's ``[light] spatial_response`` there.
+        ``holder``: calibration-holder mode (``holder``): every sensor at the axial plane
         ``holder_plane`` (m; default the most upstream sensor's), no flame. ``seed`` (default the
         scenario's) fixes the rig itself (sensor errors, drift phases) and, unless ``noise_seed``
         is given, the noise; a sweep repeated with another ``noise_seed`` meets the same rig with
@@ -135,6 +140,13 @@ class SimulatedBurner:
         if self.holder_plane_m is not None:   # no flame in the holder: the burner's stability is moot
             self.warnings = ()
             mount(self.model, self.holder_plane_m)
+        self.thermal_power_w = float(self.scenario.light.nominal_power if thermal_power is None else thermal_power)
+        if not self.thermal_power_w > 0:
+            raise DriverError(f"simulated burner: thermal_power {thermal_power!r} W must be positive")
+        self.lamp_position = lamp_position
+        self._hw_row = self._channels.index(rig.hot_wire.channel) if rig.hot_wire is not None else None
+        self._hw_noise = (ColouredNoise(1, self._fs, self.scenario.hot_wire.convective_corner, 0.0,
+                                        np.random.default_rng([self.noise_seed, 7])) if rig.hot_wire is not None else None)
         self._index = 0
         self._prev_drive_v = 0.0
         self._started = False
@@ -381,12 +393,35 @@ class SimulatedBurner:
         data[n_p] += self._light_volts(forced.heat_release_ratio, flame_mask, state, sound[n_p])
         if rig.drive.reference_channel:
             data[n_p + 1] += drive_v
+        if self._hw_row is not None:
+            data[self._hw_row] += self._hot_wire_volts(forced, lit, state)
         if self._faults.dropout_channel is not None:
             dead = active_mask(self._faults.dropout, i0, n)
             if dead is not None:
                 row = self._channels.index(self._faults.dropout_channel)
                 data[row, dead] = sc.faults.sensor_dropout.level
         return adc(data, m.input_range_v, sc.adc.bits)
+
+    def _light_chain_factor(self) -> float:
+        """Mean light at the burner's thermal power relative to that at the nominal power: the chain's
+        L ∝ P (1 − β P/P_nom), scaled so that P_nom gives the scenario's mean_signal."""
+        beta, ratio = self.scenario.light.nonlinearity, self.thermal_power_w / self.scenario.light.nominal_power
+        return ratio * (1.0 - beta * ratio) / (1.0 - beta)
+
+    def _hot_wire_volts(self, forced, lit: bool, state) -> np.ndarray:
+        """The anemometer's bridge voltage E = √(A + B Uⁿ) with the scenario's true King's law, U the
+        mean duct velocity + the acoustic velocity at the wire (and the convected wave) + the
+        convective disturbance; a flow reversal reads as forward flow (|U|), as a single wire does."""
+        hw, spec, n = self.rig.hot_wire, self.scenario.hot_wire, self._block_n
+        a = hw.kings_a if spec.kings_a is None else spec.kings_a
+        b = hw.kings_b if spec.kings_b is None else spec.kings_b
+        k = hw.kings_n if spec.kings_n is None else spec.kings_n
+        u = np.full(n, self.model.probe_mean_velocity_m_s(state, lit))
+        if forced.probe_velocity_m_s is not None:
+            u += forced.probe_velocity_m_s.real
+        u += spec.convective_rms * self._hw_noise.block(n)[0]
+        volts = np.sqrt(a + b * np.power(np.abs(u), k))
+        return volts + spec.noise_rms * self._rng.standard_normal(n)
 
     def _light_volts(self, heat_release_ratio: np.ndarray, flame_mask: np.ndarray, state,
                      sound_q: np.ndarray | float = 0.0) -> np.ndarray:
@@ -395,8 +430,10 @@ class SimulatedBurner:
         sc, n = self.scenario, self._block_n
         optical = np.sqrt(1.0 - sc.noise.flame_noise_radiated)   # the rest of the flame noise is radiated
         flicker = sc.noise.light_flame_noise * optical * self._l_noise.block(n)[0] + sound_q
-        mean_v = sc.light.mean_signal * state.flow_factor
+        mean_v = sc.light.mean_signal * state.flow_factor * self._light_chain_factor()
         signal_v = np.where(flame_mask, mean_v * (1.0 + heat_release_ratio + flicker), 0.0)
+        if self.holder_plane_m is not None and self.lamp_position is not None:
+            signal_v = signal_v + sc.light.lamp_signal * sc.light.spatial_response.get(self.lamp_position, 1.0)
         sat = active_mask(self._faults.light_saturation, self._index, n)
         if sat is not None:
             signal_v = np.where(sat, signal_v * sc.faults.light_saturation.gain_factor, signal_v)

@@ -25,7 +25,7 @@ import numpy as np
 from app.core.gas import mean_flow, mixture_state
 from app.rig import Rig
 
-from .acoustics import BurnerGeometry, BurnerNetwork, FlowState, Medium
+from .acoustics import BurnerGeometry, BurnerNetwork, FlowState, Medium, apply, chain, duct_matrix
 from .flame import FlameModel, GaussianTerm
 from .loudspeaker import Loudspeaker
 from .scenario import Scenario
@@ -48,6 +48,7 @@ class PointResponse:
     flame_response: complex  # F actually acting (linear × saturation), 0 without flame
     flame_linear: complex
     velocity_reference_m_s: float
+    probe_velocity_per_v: complex | None = None  # û at the hot-wire per volt (sound + convected wave), m/s/V
 
 
 @dataclass(frozen=True)
@@ -57,11 +58,17 @@ class Forced:
     pressure_pa: np.ndarray  # (n_sensors, n) complex analytic pressure
     heat_release_ratio: np.ndarray  # (n,) Q'/Q̄, real, after the flame's clip
     amplitude_ratio: np.ndarray  # (n,) |û_ref|/ū_ref envelope (peak)
+    # (n,) analytic velocity fluctuation at the hot-wire (m/s), the forcing's fundamental only; None:
+    # no hot-wire, or a drive the probe is not modelled for (multi-sine)
+    probe_velocity_m_s: np.ndarray | None = None
 
     def where(self, mask: np.ndarray, other: "Forced") -> "Forced":
+        probe = None
+        if self.probe_velocity_m_s is not None and other.probe_velocity_m_s is not None:
+            probe = np.where(mask, self.probe_velocity_m_s, other.probe_velocity_m_s)
         return Forced(np.where(mask, self.pressure_pa, other.pressure_pa),
                       np.where(mask, self.heat_release_ratio, other.heat_release_ratio),
-                      np.where(mask, self.amplitude_ratio, other.amplitude_ratio))
+                      np.where(mask, self.amplitude_ratio, other.amplitude_ratio), probe)
 
 
 @dataclass(frozen=True)
@@ -147,6 +154,7 @@ class BurnerModel:
             chamber_length_m=sc.chamber.length, chamber_radius_m=sc.chamber.diameter / 2.0,
             end_reflection=sc.chamber.end_reflection, burner_loss_coefficient=sc.burner.loss_coefficient)
         self.sensor_positions_m = np.array([s.position for s in rig.pressure_sensors])
+        self.probe_position_m = rig.hot_wire.position if rig.hot_wire is not None else None
         gains, phases = true_sensor_errors(scenario, rig, seed)
         self.true_sensitivity_v_pa = gains * np.array([s.sensitivity for s in rig.pressure_sensors])
         self.sensor_phase_rad = phases
@@ -244,7 +252,31 @@ class BurnerModel:
             factor = 0.5 * (lo + hi)
         s0 = net.source_state(f_lin * factor, source)
         u = complex(net.reference_velocity(s0))
-        return PointResponse(net.sensor_pressures(s0), u, f_lin * factor, f_lin, u_bar)
+        return PointResponse(net.sensor_pressures(s0), u, f_lin * factor, f_lin, u_bar, self._probe_velocity(net, s0))
+
+    def probe_mean_velocity_m_s(self, state: DriftState, flame: bool) -> float:
+        """The true mean velocity at the hot-wire (the sensor duct's)."""
+        flow = self.flow_state(state, flame)
+        return flow.mach_duct * flow.cold.speed_of_sound_m_s
+
+    def _probe_velocity(self, net: BurnerNetwork, s0: np.ndarray) -> complex | None:
+        """û at the hot-wire from the network's own state (never the multi-microphone code), plus the
+        scenario's convected wave: born at the duct's upstream end with ``convected_ratio`` of the
+        acoustic velocity there, carried at the mean duct velocity, û_c(x) = r û(x₀) e^{-iω(x − x₀)/ū}."""
+        x = self.probe_position_m
+        if x is None:
+            return None
+        g, flow = self.geometry, net.flow
+        to_wire = chain(net._plenum, duct_matrix(net.freq_hz, x - g.duct_start_m, flow.cold, flow.mach_duct,
+                                                 g.duct_radius_m))
+        u = complex(apply(to_wire, s0)[..., 1])
+        ratio = self.scenario.hot_wire.convected_ratio
+        if ratio > 0:
+            u_in = complex(apply(net._plenum, s0)[..., 1])
+            u_duct = flow.mach_duct * flow.cold.speed_of_sound_m_s
+            omega = TWO_PI * float(np.real(net.freq_hz))
+            u += ratio * u_in * complex(np.exp(-1j * omega * (x - g.duct_start_m) / u_duct))
+        return u
 
     def pressure_per_volume_velocity(self, freq_hz: float, state: DriftState, flame: bool) -> np.ndarray:
         """Sensor pressures per unit source volume velocity with the linear flame (for harmonics)."""
@@ -289,19 +321,22 @@ class BurnerModel:
         pressure = np.zeros((n_s, n), dtype=complex)
         heat = np.zeros(n)
         velocity = np.zeros(n, dtype=complex)
+        probe = np.zeros(n, dtype=complex) if self.probe_position_m is not None else None
         for f in np.unique(freq_hz):
             idx = np.flatnonzero(freq_hz == f)
             if f <= 0.0:
                 continue
-            p, q, u = self._forced_at(z[idx], float(f), state, flame)
+            p, q, u, w = self._forced_at(z[idx], float(f), state, flame)
             pressure[:, idx], heat[idx], velocity[idx] = p, q, u
+            if probe is not None and w is not None:
+                probe[idx] = w
         if oscillation is not None and flame:
             pressure += oscillation.pressure_pa
             heat += oscillation.heat_release_linear
             velocity += oscillation.velocity_ratio
         if flame and self.flame.saturation is not None:
             np.clip(heat, -self.flame.saturation, self.flame.saturation, out=heat)
-        return Forced(pressure, heat, np.abs(velocity))
+        return Forced(pressure, heat, np.abs(velocity), probe)
 
     def _forced_at(self, z: np.ndarray, freq_hz: float, state: DriftState, flame: bool):
         env = np.abs(z)
@@ -311,16 +346,22 @@ class BurnerModel:
         h_p = np.array([r.pressure_per_v for r in resp]).T  # (n_s, levels)
         h_u = np.array([r.velocity_per_v for r in resp])
         u_bar = resp[0].velocity_reference_m_s
+        h_w = None if resp[0].probe_velocity_per_v is None else np.array([r.probe_velocity_per_v for r in resp])
+        w = None
         if levels.size == 1:
             pressure = h_p[:, :1] * z[None, :]
             u = h_u[0] * z
+            if h_w is not None:
+                w = h_w[0] * z
         else:
             interp = lambda h: np.interp(env, levels, h.real) + 1j * np.interp(env, levels, h.imag)  # noqa: E731
             pressure = np.stack([interp(row) for row in h_p]) * z[None, :]
             u = interp(h_u) * z
+            if h_w is not None:
+                w = interp(h_w) * z
         pressure += self._harmonics(z, env, freq_hz, state, flame)
         q = np.real(resp[0].flame_linear * u) / u_bar  # before the clip (see forced)
-        return pressure, q, u / u_bar
+        return pressure, q, u / u_bar, w
 
     def _harmonics(self, z, env, freq_hz: float, state: DriftState, flame: bool) -> np.ndarray:
         """Pressures of the loudspeaker's 2nd and 3rd harmonics (linear flame at k f)."""

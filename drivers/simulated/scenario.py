@@ -151,9 +151,34 @@ class SensorSpec(_Strict):
 
 
 class LightSpec(_Strict):
-    mean_signal: Level = 2.5  # above the dark offset, with the flame on
+    mean_signal: Level = 2.5  # above the dark offset, with the flame on (at nominal_power)
     dark_offset: Level | None = None  # None: the rig's value
     rail: PosVoltage = 10.5  # detector amplifier output limit
+    # the light chain's true small non-linearity β: mean light ∝ P (1 − β P/P_nom) at thermal power P
+    # (a burner opened with thermal_power = P; otherwise P = P_nom and the light is mean_signal)
+    nonlinearity: number(-0.5, 0.5) = 0.0
+    nominal_power: quantity("power", 0.0, 1e7, lo_open=True, unit="kW") = 10e3
+    # the lamp mode (commission lamp): the lamp's light above the dark offset at a response of 1, and
+    # the chain's true relative response by position label (unlisted positions: 1)
+    lamp_signal: PosVoltage = 1.0
+    spatial_response: dict[str, number(0.0, 10.0)] = Field(default_factory=dict, max_length=200)
+
+
+class HotWireSpec(_Strict):
+    """The hot-wire's truth (only on a rig with a [hot_wire] table): its King's law and what it sees
+    besides the sound (docs/scenario-file.md)."""
+
+    kings_a: number(0.0, 1e4, lo_open=True) | None = None   # true A, V² (None: the rig's)
+    kings_b: number(0.0, 1e4, lo_open=True) | None = None   # true B (None: the rig's)
+    kings_n: number(0.05, 2.0) | None = None                # true n (None: the rig's)
+    # a convective disturbance incoherent with the forcing (turbulence carried with the flow), rms m/s,
+    # low-passed at convective_corner
+    convective_rms: number(0.0, 100.0) = 0.0
+    convective_corner: Frequency = 1000.0
+    # a convected wave locked to the forcing: born at the duct's upstream end with this fraction of the
+    # acoustic velocity there, carried at the mean duct velocity (the wall pressures do not see it)
+    convected_ratio: number(0.0, 10.0) = 0.0
+    noise_rms: quantity("voltage", 0.0, 1.0, unit="V") = 100e-6   # the anemometer's electronic noise
 
 
 class AdcSpec(_Strict):
@@ -220,6 +245,7 @@ class Scenario(_Strict):
     sensors: SensorSpec = SensorSpec()
     flow_meters: FlowMeterSpec = FlowMeterSpec()
     light: LightSpec = LightSpec()
+    hot_wire: HotWireSpec = HotWireSpec()
     adc: AdcSpec = AdcSpec()
     drift: DriftSpec = DriftSpec()
     faults: Faults = Faults()
