@@ -86,15 +86,17 @@ def _duration(text: str) -> float:
     return value
 
 
-def _record_light(args: argparse.Namespace, rig: Any, flame: bool) -> np.ndarray:
-    """The light channel's samples (volts) over ``--duration`` with the drive at zero."""
+def _record_light(args: argparse.Namespace, rig: Any, flame: bool, **simulated: Any) -> np.ndarray:
+    """The light channel's samples (volts) over ``--duration`` with the drive at zero; ``simulated``:
+    options for the simulated burner only (``thermal_power`` in W, ``lamp_position``)."""
     from drivers.registry import close_backend, open_backend
 
     duration = _duration(args.duration)
     if args.backend == "simulated":
-        # the simulated rig: flame lit or not (its holder mode has no flame)
+        # the simulated rig: flame lit or not (its holder mode has no flame), burning at the stated
+        # power, or with the lamp at the stated position
         device = open_backend("simulated", rig, scenario=args.scenario, real_time=not args.fast, seed=args.seed,
-                              holder=not flame)
+                              holder=not flame, **simulated)
     else:
         device = open_backend(args.backend, rig)
     from .running import StopSignals
@@ -173,7 +175,7 @@ def _light_step(args: argparse.Namespace, rig: Any, record: Any) -> int:
     power = _power(args.power)
     print("caution: a lit flame; keep to the rig's operating envelope and the laboratory's rules. The drive stays "
           "at zero.", file=sys.stderr)
-    d = dark_offset(_record_light(args, rig, flame=True))      # mean and its uncertainty, the same estimate
+    d = dark_offset(_record_light(args, rig, flame=True, thermal_power=power))   # mean and its uncertainty
     print(f"light at {power / 1e3:g} kW: {d.mean_v * 1e3:.5g} mV ± {d.u_mean_v * 1e3:.2g} mV")
     _append(record, rig, args, "light-step", {"power_w": power, "mean_v": d.mean_v, "u_mean_v": d.u_mean_v})
     return 0
@@ -186,7 +188,7 @@ def _lamp(args: argparse.Namespace, rig: Any, record: Any) -> int:
         raise CommissionError("lamp needs --position, a label for where the lamp is (e.g. --position \"r=0 z=10 mm\")")
     print("caution: flame off; the lamp in the flame region only with the burner cold and the fuel shut.",
           file=sys.stderr)
-    d = dark_offset(_record_light(args, rig, flame=False))
+    d = dark_offset(_record_light(args, rig, flame=False, lamp_position=args.position))
     print(f"lamp at {args.position}: {d.mean_v * 1e3:.5g} mV ± {d.u_mean_v * 1e3:.2g} mV")
     _append(record, rig, args, "light-uniformity",
             {"stage": "position", "position": args.position, "mean_v": d.mean_v, "u_mean_v": d.u_mean_v})

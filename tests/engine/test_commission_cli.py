@@ -1,7 +1,9 @@
 """`flamebode commission ...` run as a user would (real processes) on the simulated burner: the dark
 offset measured with the drive at zero recovers the simulator's true offset within its stated
 uncertainty and lands, dated, in the rig file (which still loads, comments kept) and in the
-commissioning record; a linearity check needs its steps; King's law from a CSV table; a broken
+commissioning record; a linearity check needs its steps, passes a linear light chain and recovers
+the simulated chain's known non-linearity within its uncertainty; lamp positions see the scenario's
+spatial response; King's law from a CSV table; a broken
 record or table is named, never a traceback.
 """
 
@@ -48,24 +50,89 @@ def test_dark_offset_recovers_the_simulated_offset_and_is_written_where_the_rig_
 
 
 @pytest.mark.timeout(300)
-def test_linearity_needs_three_steps_and_reports_a_constant_light_as_not_proportional(rig: Path):
+def test_linearity_needs_three_steps_and_a_proportional_light_passes(rig: Path, tmp_path: Path):
+    scenario = _scenario(tmp_path, rig, "")       # the demo's linear light chain, without slow flow drift
     assert run_cli("commission", "dark", str(rig), "--fast", "--seed", "1", "--duration", "1 s").returncode == 0
     out = run_cli("commission", "linearity", str(rig))
     assert out.returncode == 2 and "0 light step(s) since the newest dark offset" in out.stderr, out.stderr
     out = run_cli("commission", "light-step", str(rig), "--fast", "--duration", "1 s")
     assert out.returncode == 2 and "needs --power" in out.stderr
-    # the simulated burner burns at one power whatever is typed: the light cannot follow the entered
-    # steps, and the check must say so rather than pass
+    # the simulated burner burns at the power typed; the demo's light chain is linear
     for kw in (3, 4, 5):
         out = run_cli("commission", "light-step", str(rig), "--power", f"{kw} kW", "--fast", "--seed", str(kw),
-                      "--duration", "1 s")
+                      "--duration", "1 s", "--scenario", str(scenario))
+        assert out.returncode == 0, out.stderr[-2000:]
+    out = run_cli("commission", "linearity", str(rig))
+    assert out.returncode == 0 and "not proportional" not in out.stdout, out.stdout
+    record = read_record(record_path_for(rig))
+    lin = record.latest("light-linearity").result
+    assert lin["n_steps"] == 3 and lin["p_value"] > 0.01
+    steps = [c.result["mean_v"] for c in record.checks if c.kind == "light-step"]
+    assert steps[2] > 1.5 * steps[0]                                     # 5 kW against 3 kW: the light follows
+    assert [n for n in age_notes(record, 30.0) if "calibration" in n]        # still to do
+    assert not [n for n in age_notes(record, 30.0) if "dark" in n or "linearity" in n]
+
+
+def _scenario(tmp_path: Path, rig: Path, light: str) -> Path:
+    """The demo scenario for ``rig`` with extra [light] keys and no slow flow drift (a drift of the
+    flow between the steps would read as a non-linearity)."""
+    text = (ROOT / "configs" / "demo-scenario.toml").read_text()
+    text = text.replace('rig = "demo-rig.toml"', f"rig = {str(rig)!r}", 1).replace("[light]\n", "[light]\n" + light, 1)
+    text = text.replace("flow_swing = 0.003", "flow_swing = 0.0", 1)
+    path = tmp_path / "scenario.toml"
+    path.write_text(text)
+    return path
+
+
+@pytest.mark.timeout(300)
+def test_linearity_recovers_the_simulated_light_chain_s_non_linearity(rig: Path, tmp_path: Path):
+    # the scenario's light chain: L = k P (1 − β P/P_nom), β = 0.08 at P_nom = 10 kW (a mildly
+    # saturating photomultiplier, our own numbers)
+    beta, p_nom = 0.08, 10e3
+    scenario = _scenario(tmp_path, rig, f'nonlinearity = {beta}\nnominal_power = "10 kW"\n')
+    sim = ("--fast", "--scenario", str(scenario), "--duration", "1 s")
+    assert run_cli("commission", "dark", str(rig), *sim, "--seed", "1").returncode == 0
+    powers = (2, 4, 6, 8, 10)
+    for kw in powers:
+        out = run_cli("commission", "light-step", str(rig), "--power", f"{kw} kW", *sim, "--seed", str(10 + kw))
         assert out.returncode == 0, out.stderr[-2000:]
     out = run_cli("commission", "linearity", str(rig))
     assert out.returncode == 0 and "not proportional" in out.stdout, out.stdout
     record = read_record(record_path_for(rig))
-    assert record.latest("light-linearity").result["n_steps"] == 3
-    assert [n for n in age_notes(record, 30.0) if "calibration" in n]        # still to do
-    assert not [n for n in age_notes(record, 30.0) if "dark" in n or "linearity" in n]
+    dark = record.latest("dark-offset").result
+    steps = [c.result for c in record.checks if c.kind == "light-step"]
+    P = np.array([s["power_w"] for s in steps])
+    y = (np.array([s["mean_v"] for s in steps]) - dark["mean_v"]) / P          # = k (1 − β P/P_nom)
+    u = np.hypot([s["u_mean_v"] for s in steps], dark["u_mean_v"]) / P
+    # weighted straight line y = c0 + c1 P; β = −c1 P_nom / c0, its uncertainty by first-order propagation
+    X = np.column_stack([np.ones_like(P), P]) / u[:, None]
+    cov = np.linalg.inv(X.T @ X)
+    c0, c1 = cov @ X.T @ (y / u)
+    grad = np.array([c1 * p_nom / c0**2, -p_nom / c0])
+    u_beta = float(np.sqrt(grad @ cov @ grad))
+    beta_hat = -c1 * p_nom / c0
+    assert abs(beta_hat - beta) <= 4 * u_beta + 0.005, (beta_hat, u_beta)     # + the flicker's slow part
+    assert u_beta < 0.02                                   # and the check resolves a non-linearity of this size
+    # the linearity check's largest deviation is the size the law implies (a few per cent)
+    assert 0.01 < record.latest("light-linearity").result["max_deviation_rel"] < 0.1
+
+
+@pytest.mark.timeout(300)
+def test_lamp_positions_see_the_simulated_spatial_response(rig: Path, tmp_path: Path):
+    scenario = _scenario(tmp_path, rig, 'lamp_signal = "1.5 V"\nspatial_response = { centre = 1.0, edge = 0.9 }\n')
+    sim = ("--fast", "--scenario", str(scenario), "--duration", "1 s")
+    assert run_cli("commission", "dark", str(rig), *sim, "--seed", "1").returncode == 0
+    for pos in ("centre", "edge"):
+        out = run_cli("commission", "lamp", str(rig), "--position", pos, *sim, "--seed", "2")
+        assert out.returncode == 0, out.stderr[-2000:]
+    out = run_cli("commission", "uniformity", str(rig))
+    assert out.returncode == 0 and "furthest from the mean" in out.stdout, out.stdout
+    record = read_record(record_path_for(rig))
+    dark = record.latest("dark-offset").result["mean_v"]
+    lamps = {c.result["position"]: c.result["mean_v"] - dark for c in record.checks
+             if c.kind == "light-uniformity" and c.result.get("stage") == "position"}
+    assert lamps["edge"] / lamps["centre"] == pytest.approx(0.9, abs=0.002)   # the scenario's response
+    assert lamps["centre"] == pytest.approx(1.5, rel=0.01)
 
 
 def test_hot_wire_table_and_bad_inputs(rig: Path, tmp_path: Path):
