@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import math
 from pathlib import Path
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator, model_validator
 
@@ -189,11 +189,24 @@ class HotWire(_Strict):
 
     channel: str = Field(min_length=1)
     position: Position
-    kings_a: number(0.0, 1e4, lo_open=True)
-    kings_b: number(0.0, 1e4, lo_open=True)
-    kings_n: number(0.05, 2.0)
+    kings_a: number(0.0, 1e4, lo_open=True) | None = None
+    kings_b: number(0.0, 1e4, lo_open=True) | None = None
+    kings_n: number(0.05, 2.0) | None = None
+    # "commissioning-record": A, B, n from the newest hot-wire check of the rig's commissioning record
+    kings_law_from: Literal["commissioning-record"] | None = None
+    kings_law_date: str = ""        # filled from the record: the date of the check A, B, n came from
     gain_uncertainty: number(0.0, 0.5) = 0.0
     phase_uncertainty: quantity("angle", 0.0, math.pi / 4, unit="deg") = 0.0
+
+    @model_validator(mode="after")
+    def _one_law(self) -> "HotWire":
+        given = [v is not None for v in (self.kings_a, self.kings_b, self.kings_n)]
+        if self.kings_law_from is None and not all(given):
+            raise ValueError("give King's law as 'kings_a', 'kings_b' and 'kings_n', or "
+                             "kings_law_from = \"commissioning-record\"")
+        if self.kings_law_from is not None and any(given) and not all(given):
+            raise ValueError("give all of 'kings_a', 'kings_b', 'kings_n' or none of them with 'kings_law_from'")
+        return self
 
 
 class Drive(_Strict):
@@ -326,12 +339,39 @@ class Rig(_Strict):
 
 def rig_from_dict(data: dict[str, Any], path: str = "<rig>", units_required: bool = False) -> Rig:
     """Validate a rig given as a dict: SI numbers, or with ``units_required`` (the text of a file) units."""
-    return _with_calibration_file(model_from_dict(Rig, data, str(path), RIG_DOC, units_required=units_required))
+    rig = model_from_dict(Rig, data, str(path), RIG_DOC, units_required=units_required)
+    return _with_hot_wire_record(_with_calibration_file(rig), str(path))
 
 
 def load_rig(path: str | Path, units_required: bool = True) -> Rig:
     """Load and validate a rig file (``units_required=False`` reads an old file's bare numbers as SI)."""
-    return _with_calibration_file(load_model(Rig, path, RIG_DOC, units_required=units_required))
+    rig = load_model(Rig, path, RIG_DOC, units_required=units_required)
+    return _with_hot_wire_record(_with_calibration_file(rig), str(path))
+
+
+def _with_hot_wire_record(rig: Rig, path: str) -> Rig:
+    """The rig with the hot-wire's King's law from its commissioning record, when it asks for it
+    (``kings_law_from``, values given in the file win); a record without a hot-wire check is refused."""
+    hw = rig.hot_wire
+    if hw is None or hw.kings_law_from is None or hw.kings_a is not None:
+        return rig
+    from .commissioning_record import read_record, record_path_for  # local: that module is not a description
+    from .errors import ConfigError
+
+    record = read_record(record_path_for(rig.source_path or path), rig.name)
+    check = record.latest("hot-wire")
+    if check is None:
+        raise ConfigError(path, [f"hot_wire.kings_law_from: the commissioning record {record.path} holds no "
+                                 "hot-wire check; run 'flamebode commission hot-wire RIG --table FILE.csv' or give "
+                                 "kings_a, kings_b and kings_n"])
+    try:
+        law = {"kings_a": float(check.result["a_v2"]), "kings_b": float(check.result["b"]),
+               "kings_n": float(check.result["n"]), "kings_law_date": check.date}
+        wire = HotWire.model_validate({**hw.model_dump(), **law})
+    except (KeyError, TypeError, ValueError) as exc:
+        raise ConfigError(path, [f"hot_wire.kings_law_from: the hot-wire check of {check.date} in {record.path} "
+                                 f"has no usable A, B, n ({exc})"]) from None
+    return rig.model_copy(update={"hot_wire": wire})
 
 
 def _with_calibration_file(rig: Rig) -> Rig:

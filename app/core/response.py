@@ -349,6 +349,9 @@ def _hot_wire_check(arr: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     names = list(channels)
     if hw.channel not in names:
         return {}, (f"the rig names a hot-wire on '{hw.channel}' but the record has no such channel: no cross-check",)
+    if hw.kings_a is None or hw.kings_b is None or hw.kings_n is None:
+        return {}, ("the hot-wire's King's law is not known (a rig not loaded through app.rig.load_rig): no "
+                    "cross-check",)
     x = hw.position
     scale = np.array([s.correction(freq_hz) for s in rig.pressure_sensors]) / prep.sensitivities
     row_pa = wf._g(x) @ wf.estimator

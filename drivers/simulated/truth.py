@@ -97,3 +97,19 @@ def true_relative_factors(source: Source, reference: str) -> dict[str, complex]:
     r = model.sensor_factor / nominal
     r_ref = r[names.index(reference)]
     return {name: complex(r_ref / ri) for name, ri in zip(names, r)}
+
+
+def true_hot_wire_velocity_per_volt(source: Source, freq_hz: float, drive_v: float = 0.05) -> complex:
+    """What the simulated hot-wire sees per peak drive volt at its position (m/s/V): the network's
+    acoustic velocity there plus the scenario's convected wave (the convective noise aside)."""
+    model, state = _model(source)
+    u = model.response(freq_hz, drive_v, state, True).probe_velocity_per_v
+    if u is None:
+        raise ValueError("the rig has no [hot_wire]")
+    return complex(u)
+
+
+def true_light_factor(burner: SimulatedBurner) -> float:
+    """The mean light at the burner's thermal power over the light at the scenario's nominal power
+    (the light chain's true non-linearity included)."""
+    return float(burner._light_chain_factor())

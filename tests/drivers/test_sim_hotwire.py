@@ -17,7 +17,7 @@ import pytest
 
 from app.core.response import evaluate_point
 from app.rig import load_rig, rig_from_dict
-from drivers.simulated import SimulatedBurner
+from drivers.simulated import SimulatedBurner, truth
 from drivers.simulated.scenario import load_scenario
 
 DRIVE_V = 0.3   # peak volts: the pressures stay well inside the ADC range at every test frequency
@@ -69,8 +69,7 @@ def test_without_convective_disturbance_the_wire_agrees_with_the_multi_microphon
     assert not any("hot-wire" in w for w in pt.warnings)
     # and the wire itself reads the simulator's true velocity at its position per drive volt (the
     # drive reference channel fixes the time origin; truth from the model: tests only)
-    st = sim.model.drift_state(sim.time_s)
-    true_per_v = sim.model.response(freq_hz, DRIVE_V, st, True).probe_velocity_per_v
+    true_per_v = truth.true_hot_wire_velocity_per_volt(sim, freq_hz, DRIVE_V)
     wire_u = q["hotwire_ratio"] * np.exp(1j * q["hotwire_phase_diff_rad"]) * pt.velocity.wave_fit.velocity_at(-0.40)
     assert abs(wire_u / pt.velocity.drive_phasor / true_per_v - 1.0) < 0.01
 
