@@ -41,6 +41,18 @@ N_SEGMENTS = 16            # segments for the coherence (a γ² estimate from K 
 COHERENCE_MIN = 0.8        # below it the wire sees much that the sound field does not (judgement)
 DIFFERENCE_Z_MAX = 3.0     # beyond it the two velocities disagree beyond their uncertainty
 
+# The cross-check's quality figures: key → (label, unit) for tables, review and export.
+FIGURE_LABELS = {
+    "hotwire_ratio": ("hot-wire / multi-microphone velocity", ""),
+    "hotwire_ratio_ci95": ("its 95 % half-width", ""),
+    "hotwire_phase_diff_rad": ("hot-wire phase minus multi-microphone phase", "rad"),
+    "hotwire_phase_ci95_rad": ("its 95 % half-width", "rad"),
+    "hotwire_diff_z": ("hot-wire difference over its standard error", ""),
+    "hotwire_coherence": ("hot-wire coherence with the multi-microphone velocity (γ²)", ""),
+    "hotwire_mean_velocity_m_s": ("hot-wire mean velocity", "m/s"),
+    "hotwire_below_zero_flow": ("hot-wire samples below its zero-flow voltage", ""),
+}
+
 
 @dataclass(frozen=True)
 class HotWireCheck:
@@ -179,4 +191,4 @@ def cross_check(voltage_v: np.ndarray, velocity_mmm: complex, var_mmm: float, pr
                         float(fit.offset[0]), below, dirs_hw, tuple(complex(d) for d in directions_mmm))
 
 
-__all__ = ["HotWireCheck", "coherence", "cross_check", "segment_phasors", "velocity_from_voltage"]
+__all__ = ["FIGURE_LABELS", "HotWireCheck", "coherence", "cross_check", "segment_phasors", "velocity_from_voltage"]

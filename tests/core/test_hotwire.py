@@ -85,3 +85,11 @@ def test_a_wrong_wire_calibration_shows_as_a_difference_beyond_its_uncertainty()
     c = cross_check(e, u_hat, 1e-8, p_v, row, FS, F, A, B * 1.1, N, gain_uncertainty=0.01)   # B 10 % off
     assert c.difference_z > 3.0 and abs(abs(c.ratio) - 1.0) > 0.05
     assert any("differs" in w for w in c.warnings(F))
+
+
+def test_every_figure_has_a_label():
+    from app.core.hotwire import FIGURE_LABELS
+
+    rng = np.random.default_rng(1)
+    e, p_v, row, u_hat = _record(0.0, rng)
+    assert set(cross_check(e, u_hat, 1e-8, p_v, row, FS, F, A, B, N).figures()) == set(FIGURE_LABELS)
