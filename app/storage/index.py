@@ -38,12 +38,12 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterable
 
+from app.core.flagging import NEVER_ACCEPTED, acceptable, attempt_flagged  # the one rule (also the engine's)
 from app.errors import FlamebodeError
 
 INDEX_NAME = "index.sqlite"
 RECORDS_DIR = "records"
 SCHEMA_VERSION = 1
-NEVER_ACCEPTED = frozenset({"interrupted"})   # attempt flags that keep an attempt out of every result
 
 SCHEMA = """
 CREATE TABLE IF NOT EXISTS run_info (
@@ -205,11 +205,12 @@ def attempt_label(point_index: int, seq: Any) -> str:
 
 
 def is_flagged(attempt: dict[str, Any]) -> bool:
-    """An attempt with attempt flags or analysis warnings (under ``analysis`` or ``warnings``)."""
+    """An attempt with attempt flags or analysis warnings (under ``analysis`` or ``warnings``):
+    app.core.flagging's rule, on a stored attempt's row."""
     warnings = attempt.get("warnings")
     if warnings is None:
         warnings = (attempt.get("analysis") or {}).get("warnings", ())
-    return bool(tuple(attempt.get("flags") or ()) or tuple(warnings or ()))
+    return attempt_flagged(attempt.get("flags") or (), warnings or ())
 
 
 def rule_choice(attempts_of_point: list[dict[str, Any]]) -> dict[str, Any] | None:
@@ -218,7 +219,7 @@ def rule_choice(attempts_of_point: list[dict[str, Any]]) -> dict[str, Any] | Non
     Among attempts not rejected and never-accepted flags aside: the newest with no flags,
     else the newest. A person's accepted attempt is not overridden (the caller checks)."""
     candidates = [a for a in attempts_of_point if a.get("decision") != "rejected"
-                  and not NEVER_ACCEPTED & set(a.get("flags") or ())]
+                  and acceptable(a.get("flags") or ())]
     candidates.sort(key=lambda a: a.get("seq") or 0)
     good = [a for a in candidates if not is_flagged(a)]
     return (good or candidates)[-1] if candidates else None
