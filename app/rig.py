@@ -195,6 +195,7 @@ class HotWire(_Strict):
     # "commissioning-record": A, B, n from the newest hot-wire check of the rig's commissioning record
     kings_law_from: Literal["commissioning-record"] | None = None
     kings_law_date: str = ""        # filled from the record: the date of the check A, B, n came from
+    position_uncertainty: quantity("length", 0.0, 0.1, unit="mm") = 0.0
     gain_uncertainty: number(0.0, 0.5) = 0.0
     phase_uncertainty: quantity("angle", 0.0, math.pi / 4, unit="deg") = 0.0
 

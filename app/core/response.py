@@ -343,7 +343,9 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
 def _hot_wire_check(arr: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float, rig: Rig,
                     prep: _Prepared, wf: WaveFit) -> tuple[dict[str, float], tuple[str, ...]]:
     """The hot-wire cross-check's figures and warnings (``app.core.hotwire``): the wire's velocity
-    against the plane-wave fit's at the wire's position, in the sensor duct (no area ratio)."""
+    against the plane-wave fit's at the wire's position, in the sensor duct (no area ratio). The
+    multi-microphone side's systematic directions: each sensor's stated calibration and the wire's
+    stated position (near a velocity node û(x) changes fast along the duct)."""
     hw = rig.hot_wire
     assert hw is not None
     names = list(channels)
@@ -364,6 +366,8 @@ def _hot_wire_check(arr: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
         u_g, u_p = sensor.calibration_uncertainty(freq_hz)
         dirs += [complex(per_sensor[i] * u_g)] if u_g > 0 else []
         dirs += [complex(1j * per_sensor[i] * u_p)] if u_p > 0 else []
+    if hw.position_uncertainty > 0:      # the wire's stated position error moves û_mmm(x) along the duct
+        dirs.append(wf.velocity_at(x + hw.position_uncertainty) - wf.velocity_at(x))
     try:
         check = hotwire.cross_check(arr[names.index(hw.channel)], wf.velocity_at(x), wf.velocity_variance_at(x),
                                     arr[prep.pressure_rows], row_v, sample_rate_hz, freq_hz,

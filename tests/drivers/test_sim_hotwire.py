@@ -21,7 +21,8 @@ from drivers.simulated import SimulatedBurner, truth
 from drivers.simulated.scenario import load_scenario
 
 DRIVE_V = 0.3   # peak volts: the pressures stay well inside the ADC range at every test frequency
-WIRE = dict(channel="hw", position=-0.40, kings_a=1.4, kings_b=0.9, kings_n=0.45, gain_uncertainty=0.01)
+WIRE = dict(channel="hw", position=-0.40, kings_a=1.4, kings_b=0.9, kings_n=0.45, gain_uncertainty=0.01,
+            position_uncertainty=0.5e-3)
 
 
 @pytest.fixture(scope="module")
