@@ -98,3 +98,23 @@ def test_a_convected_wave_makes_the_difference_grow(rig):
     pt = _point(rig, 300.0, convected_ratio=0.3)[1]
     assert any("differs from the multi-microphone" in w for w in pt.warnings)
     assert pt.quality["hotwire_coherence"] > 0.95          # locked to the forcing: coherent, yet different
+
+
+def test_a_wire_whose_stated_law_is_wrong_disagrees(rig):
+    # the scenario's true B 8 % above the rig file's: the wire reads the fluctuation wrongly
+    q = _point(rig, 300.0, exact_sensors=True, kings_b=WIRE["kings_b"] * 1.08)[1].quality
+    assert q["hotwire_diff_z"] > 3.0 and abs(q["hotwire_ratio"] - 1.0) > 0.03
+    assert q["hotwire_coherence"] > 0.95
+
+
+def test_a_record_without_the_wire_s_channel_says_so(rig):
+    plain = load_rig("configs/demo-rig.toml")
+    sim = SimulatedBurner(plain, seed=3)
+    sim.start()
+    sim.set_drive(300.0, DRIVE_V)
+    while sim.drive_status().ramping:
+        sim.read_block()
+    data = np.concatenate([sim.read_block().data for _ in range(10)], axis=1)
+    pt = evaluate_point(data, sim.channels, sim.sample_rate_hz, 300.0, rig)
+    assert not any(k.startswith("hotwire") for k in pt.quality)
+    assert any("no such channel" in w for w in pt.warnings)
