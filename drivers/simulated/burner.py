@@ -30,6 +30,11 @@ How to get the blocks of a 2 s record at one frequency and drive voltage::
 
 Calibration-holder mode (``SimulatedBurner(rig, holder=True)``, see ``holder``): every
 pressure sensor at one plane, no flame, for the relative calibration of the sensors.
+With ``lamp_position="LABEL"`` a small lamp lights the chain there (the scenario's
+``[light] spatial_response``); ``thermal_power=P`` (W) burns the flame at P, and the light chain
+answers with the scenario's ``[light] nonlinearity``. A rig with a ``[hot_wire]`` gets the wire's
+bridge voltage: the network's acoustic velocity at its position, the mean duct velocity, the
+scenario's convective disturbance and convected wave, through the true King's law.
 
 The true answer for the same point: ``truth.true_ftf(sim, 400.0, a)`` with the peak
 amplitude ratio a = |û_ref|/ū_ref, ``truth.true_velocity_per_volt(sim, 400.0, 0.5)``.
