@@ -236,6 +236,8 @@ def pick_delay(rho: np.ndarray, previous: int | None, period_samples: float) -> 
 class AudioServerLost(DriverError):
     """The duplex stream died under the back-end (audio server restarted or killed, device unplugged)."""
 
+    fault_name = "audio-server-lost"      # the engine's fault kind for it
+
 
 def envelope_changes(x: np.ndarray, period_samples: float, ratio: float = 1.25) -> bool:
     """Whether the rms of ``x`` differs by more than ``ratio`` between its parts (a ramp in it).

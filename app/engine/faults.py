@@ -54,6 +54,9 @@ FAULTS: dict[str, FaultKind] = {f.name: f for f in (
     FaultKind("backend-timeout", True, _ABORT,
               "check the instrument's connection and power; the back-end did not deliver data in time"),
     FaultKind("driver-error", True, _ABORT, "see the message; check the instrument"),
+    FaultKind("audio-server-lost", True, _ABORT,
+              "the sound card's stream died (audio server restarted or killed, device unplugged): restart it, "
+              "then resume the run"),
     FaultKind("tuning-not-converged", False, "recorded at the closest voltage found; point flagged",
               "raise tuning.max_steps or tuning.tolerance, or lengthen the tuning window"),
     FaultKind("target-unreachable", False, "see the plan's tuning.when_unreachable; point flagged",
@@ -168,18 +171,20 @@ class SignalChecks:
 
     # ---------------------------------------------------------------- per block
     def check_block(self, data: np.ndarray, channels: tuple[str, ...], where: str,
-                    commanded_v: float | None = None, ceiling_v: float | None = None) -> list[Finding]:
+                    commanded_v: float | None = None, ceiling_v: float | None = None,
+                    gap: bool = False) -> list[Finding]:
         """Cheap checks on every block: light above its safe maximum, the flame watch (mean light
         against its value at the start), and the output monitor (the measured drive reference
         against the ceiling and the commanded amplitude ``commanded_v``, the largest envelope
-        of the last few blocks)."""
+        of the last few blocks). A block in which the back-end counted a gap (``gap``: overflow or
+        underflow, zero-filled) is not taken for a flame-out: the next whole block is."""
         out: list[Finding] = []
         light = data[channels.index(self.light_channel)]
         peak = float(light.max()) if light.size else 0.0
         if peak >= self.rig.light.safe_max:
             out.append(Finding("light-over-range", f"light channel '{self.light_channel}' reached {peak:.3g} V, "
                                f"at or above its safe maximum {self.rig.light.safe_max:g} V ({where})"))
-        if self.baseline_light_v is not None and light.size:
+        if self.baseline_light_v is not None and light.size and not gap:
             ratio = (float(light.mean()) - self.rig.light.dark_offset) / self.baseline_light_v
             if ratio < self.limits.flame_out_fraction:
                 out.append(Finding("flame-out", f"mean light on '{self.light_channel}' fell to {ratio:.0%} of its "

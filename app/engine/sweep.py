@@ -51,7 +51,7 @@ from . import states as S
 from .controller import AmplitudeController, ControllerSettings, Decision, PointTuner
 from .events import (BlockAcquired, DriveChanged, EventBus, FaultRaised, PointSettled, SweepFinished,
                      SweepStarted, TransferMeasured, TuningStep, Notice)
-from .faults import Finding, SignalChecks, ended_action, fault_event
+from .faults import FAULTS, Finding, SignalChecks, ended_action, fault_event
 
 
 def integer_period_samples(freq_hz: float, sample_rate_hz: float, min_duration_s: float,
@@ -301,9 +301,11 @@ class SweepEngine:
         except BackendTimeout as exc:
             reason = self._ending_reason() or self._fatal(
                 fault_event("backend-timeout", f"{exc} ({self._label()})", self._point_index))
-        except DriverError as exc:
+        except DriverError as exc:     # a back-end may name its own fault kind (e.g. audio-server-lost)
+            name = getattr(exc, "fault_name", "driver-error")
             reason = self._ending_reason() or self._fatal(
-                fault_event("driver-error", f"{exc} ({self._label()})", self._point_index))
+                fault_event(name if name in FAULTS else "driver-error", f"{exc} ({self._label()})",
+                            self._point_index))
         except BaseException as exc:   # a bug or an interpreter exit: outputs to zero at once, then re-raise
             self._cmd.halt = True
             self._why = self._why or f"internal error: {exc!r}"
@@ -783,7 +785,8 @@ class SweepEngine:
                                        point_index=self._point_index))
         self._recent_drive_v.append(float(self.drive.drive_status().amplitude_v))
         findings = self.checks.check_block(data, self._channels, f"{stage}, {self._label()}",
-                                           commanded_v=max(self._recent_drive_v), ceiling_v=self.ceiling_v)
+                                           commanded_v=max(self._recent_drive_v), ceiling_v=self.ceiling_v,
+                                           gap=int(block.overflows) > 0)
         if findings and (check_commands or any(f.name.startswith("output-") for f in findings)):
             self._react(findings)        # the output monitor acts even while ramping down
         return data

@@ -88,3 +88,19 @@ def test_flame_out_during_a_record_ends_the_sweep_within_a_block_and_keeps_the_e
     assert drives[last_on].wall_time_s <= fatal[0].wall_time_s
     assert sim.drive_status().amplitude_v == 0.0
     assert "drive brought to zero" in fatal[0].action
+
+
+def test_a_counted_gap_is_not_taken_for_a_flame_out_but_the_next_dark_block_is(rig) -> None:
+    # a sound card's overflow is zero-filled: the light reads 0 V for that block; the flame watch
+    # must wait for a whole block (common practice: a counted drop-out is "re-measure", not a fault)
+    import numpy as np
+
+    from app.engine.faults import SignalChecks
+
+    checks = SignalChecks(rig, short_plan())
+    checks.baseline_light_v = 1.0
+    channels = tuple(s.channel for s in rig.pressure_sensors) + (rig.light.channel,)
+    zeros = np.zeros((len(channels), 256))
+    zeros[:-1] = 0.01 * np.random.default_rng(1).standard_normal((len(channels) - 1, 256))
+    assert not [f for f in checks.check_block(zeros, channels, "test", gap=True) if f.name == "flame-out"]
+    assert [f for f in checks.check_block(zeros, channels, "test", gap=False) if f.name == "flame-out"]
