@@ -97,7 +97,7 @@ def test_a_counted_gap_is_not_taken_for_a_flame_out_but_the_next_dark_block_is(r
 
     from app.engine.faults import SignalChecks
 
-    checks = SignalChecks(rig, short_plan())
+    checks = SignalChecks(rig, short_plan([200.0], [0.05]))
     checks.baseline_light_v = 1.0
     channels = tuple(s.channel for s in rig.pressure_sensors) + (rig.light.channel,)
     zeros = np.zeros((len(channels), 256))
