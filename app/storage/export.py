@@ -36,7 +36,17 @@ CSV_COLUMNS = ("point", "attempt", "used", "freq_hz", "amplitude_ratio_target", 
                "phase_wrapped_rad", "flags", "status", "chosen_by", "n_attempts", "attempt_id", "analysis_id",
                "rig_sha256")
 
+# the hot-wire cross-check's figures (app.core.hotwire), as columns when a run has them
+HOTWIRE_COLUMNS = ("hotwire_ratio", "hotwire_ratio_ci95", "hotwire_phase_diff_rad", "hotwire_phase_ci95_rad",
+                   "hotwire_diff_z", "hotwire_coherence")
+
 UNITS = {
+    "hotwire_ratio": "hot-wire velocity / multi-microphone velocity at the wire (1)",
+    "hotwire_ratio_ci95": "95 % half-width of hotwire_ratio (1)",
+    "hotwire_phase_diff_rad": "hot-wire phase minus multi-microphone phase at the wire, rad",
+    "hotwire_phase_ci95_rad": "95 % half-width of hotwire_phase_diff_rad, rad",
+    "hotwire_diff_z": "hot-wire difference over its standard error (1)",
+    "hotwire_coherence": "coherence of the two velocities over the record's segments (1)",
     "point": "point number in the plan, from 1",
     "attempt": "attempt number of the point, from 1 (the attempt used)",
     "used": "point/attempt used, e.g. 7/2",
@@ -84,6 +94,8 @@ def point_rows(run: Run) -> list[dict[str, Any]]:
             "attempt_id": a["attempt_id"] if a else "",
             "n_attempts": len(run.attempts_of(i)), "analysis_id": an.get("analysis_id"),
             "rig_sha256": an.get("rig_sha256", ""),
+            **{k: finite_number((an.get("quality") or {}).get(k)) for k in HOTWIRE_COLUMNS
+               if k in (an.get("quality") or {})},
         })
     _add_phase_as_read(rows)
     return rows
@@ -162,11 +174,13 @@ def _cell(v: Any) -> Any:
 
 
 def write_csv(rows: list[dict[str, Any]], path: Path) -> Path:
+    """The rows as CSV: CSV_COLUMNS, then the hot-wire columns when any point has them."""
+    columns = CSV_COLUMNS + tuple(k for k in HOTWIRE_COLUMNS if any(k in r for r in rows))
     with open(path, "w", newline="", encoding="utf-8") as fh:
-        w = csv.DictWriter(fh, fieldnames=CSV_COLUMNS)
+        w = csv.DictWriter(fh, fieldnames=columns)
         w.writeheader()
         for r in rows:
-            w.writerow({k: _cell(r[k]) for k in CSV_COLUMNS})
+            w.writerow({k: _cell(r.get(k)) for k in columns})
     return path
 
 
@@ -182,7 +196,7 @@ def write_summary(run: Run, rows: list[dict[str, Any]], path: Path) -> Path:
         "acceptance_rule": "the newest attempt with no flags, unless a person accepted or rejected one; "
                            "where every attempt of a point is flagged, the newest",
         "units": UNITS, "run_info": info, "problems": list(run.problems), **counts(rows),
-        "points": [{k: clean(r[k]) for k in CSV_COLUMNS} for r in rows],
+        "points": [{k: clean(r[k]) for k in CSV_COLUMNS + HOTWIRE_COLUMNS if k in r} for r in rows],
     }
     path.write_text(json.dumps(summary, indent=2), encoding="utf-8")
     return path

@@ -21,6 +21,7 @@ from typing import Any, Callable
 import numpy as np
 
 from app.engine.events import BlockAcquired, FaultRaised, PointSettled, StateChanged, TuningStep
+from app.core import hotwire as _hotwire
 from app.core import quality as _quality
 from app.core.phase import unwrapped_phase_rad
 from app.services.runs import NEVER_ACCEPTED
@@ -423,6 +424,7 @@ FIGURE_LABELS = {
     "distortion_velocity": ("velocity harmonics", ""), "distortion_light": ("light harmonics", ""),
     "drift_velocity": ("forcing drift (record halves)", ""), "drift_light": ("light drift (record halves)", ""),
     "cond": ("fit condition number", ""), "relative_ci95": ("relative 95 % half-width", ""),
+    **_hotwire.FIGURE_LABELS,
 }
 
 

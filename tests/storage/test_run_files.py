@@ -251,3 +251,28 @@ def test_file_size_limit_in_subprocess_gives_named_fault(tmp_path: Path, plan_fi
     run = open_run(run_dir)
     assert run.problems == [] and sorted(run.accepted()) == [0]
     assert run.read_record(run.accepted()[0]["attempt_id"]).freq_hz == 100.0
+
+
+def test_hot_wire_figures_are_exported_as_columns_when_a_run_has_them(tmp_path: Path, plan_file: Path):
+    # a run whose points carry the hot-wire cross-check (app.core.hotwire) gets its columns, with
+    # units, after the usual ones; a run without a wire keeps exactly CSV_COLUMNS (above)
+    import dataclasses
+    import json
+
+    from app.storage.export import HOTWIRE_COLUMNS
+
+    plan = plan_of([100.0, 250.0])
+    events = []
+    for p in plan.points:
+        ev = settled(p.index, p.freq_hz, p.target_ratio)
+        q = {**ev.result.quality, "hotwire_ratio": 1.02 + 0.01 * p.index, "hotwire_ratio_ci95": 0.03,
+             "hotwire_phase_diff_rad": -0.01, "hotwire_phase_ci95_rad": 0.02, "hotwire_diff_z": 0.7,
+             "hotwire_coherence": 0.98}
+        events.append(dataclasses.replace(ev, result=dataclasses.replace(ev.result, quality=q)))
+    write_run(tmp_path / "run", plan_file, plan, events)
+    export_run(tmp_path / "run", tmp_path / "out", plots=False)
+    df = pd.read_csv(tmp_path / "out" / "points.csv", keep_default_na=False)
+    assert tuple(df.columns) == CSV_COLUMNS + HOTWIRE_COLUMNS
+    assert list(df["hotwire_ratio"]) == pytest.approx([1.02, 1.03]) and list(df["hotwire_coherence"]) == [0.98] * 2
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert summary["points"][1]["hotwire_diff_z"] == 0.7 and "hotwire_ratio" in summary["units"]
