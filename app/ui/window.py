@@ -22,7 +22,6 @@ simulator's truth (rehearsal overlay only). Never ``app.storage`` or ``app.comma
 
 from __future__ import annotations
 
-import html
 import math
 import time
 from pathlib import Path
@@ -46,7 +45,7 @@ from .views.fault_banner import FaultBanner
 from .views.halt_banner import HaltBanner
 from .views.calibration import CalibrationView
 from .views.points import PointListView
-from .views.prescan import PrescanView
+from .views.prescan import PrescanView, show_engine_news
 from .views.response import ResponseView
 from .views.review import ReviewView
 from .views.setup import SetupView
@@ -181,6 +180,7 @@ class MainWindow(ReviewActions, QMainWindow):
         left.addWidget(self.prescan)
         left.setStretchFactor(0, 3)
         left.setStretchFactor(1, 2)
+        left.setStretchFactor(2, 2)
         right = QSplitter(Qt.Orientation.Vertical)
         right.setObjectName("sweep-right")
         right.addWidget(self.response)
@@ -425,12 +425,8 @@ class MainWindow(ReviewActions, QMainWindow):
         elif isinstance(ev, FaultRaised):
             self.banner.show_fault(ev)
             self.points.on_fault(ev)
-        elif isinstance(ev, TransferMeasured):
-            self.prescan.show_transfer(ev)
-            self.prescan.show()
-        elif isinstance(ev, Notice):
-            self.notice.setText(f"<b>{html.escape(ev.name)}</b>: {html.escape(ev.message)}")
-            self.notice.show()
+        elif isinstance(ev, (TransferMeasured, Notice)):
+            show_engine_news(ev, self.prescan, self.notice, getattr(self.session, "plan", None))
         elif isinstance(ev, SweepStarted):
             self.notice.hide()
             self._on_started(ev)

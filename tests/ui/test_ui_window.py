@@ -39,6 +39,7 @@ def test_fast_sweep_through_the_window(qtbot, make_window, tiny_plan) -> None:
     _click(qtbot, win, win.start_action)
     qtbot.waitUntil(lambda: _finished(win) and win.review.run is not None, timeout=LONG_MS)
     assert win.status.finish_reason == "complete"
+    assert not win.prescan.isVisible() and not win.notice.isVisible()   # no pre-scan asked: no empty plot
     live = [r.status for r in win.points.rows]
     assert set(live) <= {"kept", "flagged"} and len(live) == 3
     curves = win.points.curves()

@@ -61,3 +61,21 @@ class PrescanView(QWidget):
             f"Pre-scan: {len(f)} lines {f.min():g}-{f.max():g} Hz, {ev.levels} level(s), {ev.duration_s:.1f} s, "
             f"peak drive {ev.peak_drive_v:.3g} V, sum of the lines |u'|/ū {ev.total_ratio:.3g}; median "
             f"uncertainty {median * 100:.1f} %" + (f"; {lost} line(s) lost in the noise" if lost else ""))
+
+
+def show_engine_news(ev: object, view: PrescanView, notice: QLabel, plan: object = None) -> None:
+    """The pre-scan's transfer into ``view`` (shown only for a pre-scan made) and the engine's
+    notices into ``notice``; a pre-scan the plan asked for but the sweep skipped says why there."""
+    import html
+
+    if isinstance(ev, TransferMeasured):
+        view.show_transfer(ev)
+        view.setVisible(not ev.skipped)
+        asked = bool(getattr(getattr(plan, "prescan", None), "enabled", False))
+        if not (ev.skipped and asked):
+            return
+        text = f"<b>pre-scan skipped</b>: {html.escape(ev.skipped)}"
+    else:
+        text = f"<b>{html.escape(getattr(ev, 'name', ''))}</b>: {html.escape(getattr(ev, 'message', ''))}"
+    notice.setText(text)
+    notice.show()
