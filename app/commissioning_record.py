@@ -166,5 +166,6 @@ def age_notes(record: Record, max_age_days: float, now: _dt.datetime | None = No
             continue
         age = (now - c.when()).total_seconds() / 86400.0
         if age > max_age_days:
-            notes.append(f"the {words.get(kind, kind)} is {age:.0f} days old (older than {max_age_days:g} days)")
+            shown = f"{age:.0f} days" if age >= 2 else f"{age * 24:.1f} hours"
+            notes.append(f"the {words.get(kind, kind)} is {shown} old (older than {max_age_days:g} days)")
     return notes

@@ -391,13 +391,16 @@ class Plan(_Strict):
             extra.append(f"pre-scan: a multi-sine at every plan frequency before the first point, the sum of its "
                          f"lines at most {self.prescan.total_level:g} x the smallest target, its peak under the "
                          f"ceiling (about {self.prescan.worst_case_s():.0f} s at most)")
-        if self.survey.enabled:
+        if self.survey.enabled and len(set(self.amplitude.values)) > 1:
+            extra.append("multi-sine survey: NOT made for this plan: it has several forcing amplitudes (an FDF) and a "
+                         "multi-sine measures the linear FTF only; every point is measured with a sine")
+        elif self.survey.enabled:
             extra.append(f"multi-sine survey: lines forced together, the sum of their targets at most "
                          f"{self.survey.total_max:g}; the LINEAR FTF only (a non-linear flame couples the lines)")
         if self.refinement.enabled:
             extra.append(f"refinement: up to {self.refinement.budget} inserted points (flagged 'refined') where gain "
                          f"changes by more than {self.refinement.gain_change:.0%} or phase by more than "
-                         f"{self.refinement.phase_change:g} rad between neighbours; worst case "
+                         f"{math.degrees(self.refinement.phase_change):.3g} deg between neighbours; worst case "
                          f"{self.refinement_worst_case_s(0.3) / 60:.1f} min more")
         return [
             f"drive never above {ceiling} peak; unreachable target: {unreachable}",

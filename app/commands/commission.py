@@ -139,7 +139,7 @@ def _dark(args: argparse.Namespace, rig: Any, record: Any) -> int:
     print("caution: the flame must be off and the photomultiplier's high voltage set as for a run; the drive "
           "stays at zero. The laboratory's own rules come first.", file=sys.stderr)
     d = dark_offset(_record_light(args, rig, flame=False))
-    print(f"dark offset {d.mean_v * 1e3:.4g} mV ± {d.u_mean_v * 1e3:.2g} mV (standard uncertainty), noise "
+    print(f"dark offset {d.mean_v * 1e3:.6g} mV ± {d.u_mean_v * 1e3:.3g} mV (standard uncertainty), noise "
           f"{d.noise_rms_v * 1e3:.3g} mV rms over {d.n_samples} samples")
     was = rig.light.dark_offset
     if abs(d.mean_v - was) > 4 * math.hypot(d.u_mean_v, rig.light.dark_offset_uncertainty):
@@ -149,8 +149,7 @@ def _dark(args: argparse.Namespace, rig: Any, record: Any) -> int:
                   {"mean_v": d.mean_v, "u_mean_v": d.u_mean_v, "noise_rms_v": d.noise_rms_v,
                    "n_samples": d.n_samples})
     if args.update_rig:
-        # the offset's uncertainty in the rig: never below the noise a single record's mean sees
-        written = update_rig_dark_offset(Path(args.rig), d.mean_v, max(d.u_mean_v, 1e-6), new.checks[-1].date)
+        written = update_rig_dark_offset(Path(args.rig), d.mean_v, d.u_mean_v, new.checks[-1].date)
         print(f"rig file updated: {written} ([light] dark_offset and dark_offset_uncertainty)")
     return 0
 

@@ -36,7 +36,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--poles", type=int, default=6, help="rational: number of poles (default 6)")
     p.add_argument("--terms", type=int, default=3, help="delays: at most this many Gaussian terms, 1-4 (default 3)")
     p.add_argument("--fixed", action="store_true", help="delays: exactly --terms terms, no choice by AIC")
-    p.add_argument("--unit-gain", action="store_true", help="impose F(0) = 1 (perfectly premixed flame)")
+    p.add_argument("--unit-gain", action="store_true", help="delays: impose F(0) = 1 (perfectly premixed flame)")
     p.add_argument("--good-only", action="store_true", help="leave flagged points out")
     p.add_argument("--save", metavar="FILE", help="write the points and the fitted models to FILE (.mat or .h5; "
                                                   "one run only)")
@@ -56,6 +56,9 @@ def run(args: argparse.Namespace) -> int:
 
     if not 1 <= args.terms <= MAX_TERMS:
         raise FitError(f"--terms {args.terms}: must be 1 to {MAX_TERMS}")
+    if args.unit_gain and args.model != "delays":
+        raise FitError(f"--unit-gain applies to --model delays only; {args.model} fits its gain n (compare n with 1 "
+                       "by its interval)")
     if args.save and len(args.run_dirs) > 1:
         raise FitError(f"--save writes one run's points; {len(args.run_dirs)} runs given (save each run on its own)")
     if args.save:

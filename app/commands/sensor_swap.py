@@ -27,7 +27,7 @@ def swapped_rig(rig: Any, a: str, b: str) -> Any:
     pos = {s.channel: s.position for s in rig.pressure_sensors}
     sensors = [s.model_copy(update={"position": pos[b] if s.channel == a else pos[a] if s.channel == b
                                     else s.position}) for s in rig.pressure_sensors]
-    return rig.model_copy(update={"pressure_sensors": sensors})
+    return rig.model_copy(update={"pressure_sensors": tuple(sensors)})
 
 
 def _open(args: argparse.Namespace, rig: Any) -> Any:

@@ -69,15 +69,23 @@ def amplitude_independence(points: list[tuple[float, float, complex, float, floa
     return out
 
 
+CHI2_1DOF_95 = 3.841458820694124     # χ²(1) at 95 % (scipy.stats.chi2.ppf(0.95, 1))
+
+
 @dataclass(frozen=True)
 class SaturationFit:
-    limit: float                 # a_s, peak Q'/Q̄ the flame reaches
+    limit: float                 # a_s, peak Q'/Q̄ the flame reaches (a lower bound when ``unsaturated``)
     stderr: float
     chi2: float
     n_points: int
+    unsaturated: bool = False    # no point is clipped at the fitted limit: only a lower bound is known
 
     def describe(self) -> str:
         dof = max(self.n_points - 1, 1)
+        if self.unsaturated:
+            return (f"saturation: none seen; the heat release follows the forcing up to |Q'|/Q_mean = "
+                    f"{self.limit:.3g} (the limit, if any, is above that), reduced chi2 {self.chi2 / dof:.3g} over "
+                    f"{self.n_points} points")
         return (f"saturation of the heat release at |Q'|/Q_mean = {self.limit:.3g} ± {Z95 * self.stderr:.2g} (95 %), "
                 f"reduced chi2 {self.chi2 / dof:.3g} over {self.n_points} points")
 
@@ -111,6 +119,12 @@ def fit_saturation(points: list[tuple[float, float, complex, float, float, float
 
     start = float(np.median(g * a))          # the clipped heat-release amplitude is near a_s
     sol = least_squares(residual, [start], bounds=([1e-9], [np.inf]))
+    chi2 = float(np.sum(sol.fun ** 2))
+    chi2_linear = float(np.sum(residual(np.array([1e9 * float(np.max(g_lin * a))])) ** 2))   # no clip at all
+    if np.all(sol.x[0] >= g_lin * a) or chi2_linear - chi2 < CHI2_1DOF_95:
+        # every point below the fitted limit (γ ≥ 1, N = 1), or a clip that fits no better than none
+        # (likelihood-ratio test, 1 degree of freedom, 5 %): the data bound a_s from below only, by
+        # the largest heat-release amplitude the linear flame reached
+        return SaturationFit(float(np.max(g_lin * a)), math.nan, chi2_linear, int(a.size), unsaturated=True)
     cov = np.linalg.pinv(sol.jac.T @ sol.jac)
-    return SaturationFit(float(sol.x[0]), float(math.sqrt(max(cov[0, 0], 0.0))), float(np.sum(sol.fun ** 2)),
-                         int(a.size))
+    return SaturationFit(float(sol.x[0]), float(math.sqrt(max(cov[0, 0], 0.0))), chi2, int(a.size))

@@ -157,6 +157,8 @@ class Survey:
                 e._publish_finding(Finding("evaluation-failed", f"survey line at {p.freq_hz:g} Hz could not be "
                                            f"evaluated"))
                 continue
+            # judged on the evaluated record, as a sine point is (the tuning estimate may differ)
+            off_target = off_target or abs(float(result.velocity.amplitude_ratio) / p.peak_ratio - 1.0) > tol
             e._point_flags = [MULTISINE_FLAG] + (["amplitude-off-target"] if off_target else [])
             e.controller.learn(p.freq_hz, p.peak_ratio, float(a), float(result.velocity.amplitude_ratio))
             e._store(p, float(a), record, result, started, recorded)

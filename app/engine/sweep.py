@@ -389,13 +389,23 @@ class SweepEngine:
         return t.settle_s(freq_hz) if measured is None else measured
 
     def _refine(self) -> None:
-        """Adaptive refinement (``refine``): rounds of inserted points, up to the plan's budget."""
+        """Adaptive refinement (``refine``): rounds of inserted points, up to the plan's budget; how
+        many were inserted is said in a notice (also when none was)."""
+        settings = self.plan.refinement
+        left = settings.budget
+        try:
+            self._refine_rounds(settings, left)
+        finally:
+            n = len(self._refined)
+            self.bus.publish(Notice("refinement", f"{n} of at most {settings.budget} points inserted"
+                                    + ("" if n else " (no neighbours differ beyond the plan's thresholds and their "
+                                                     "uncertainty)")))
+
+    def _refine_rounds(self, settings: Any, left: int) -> None:
         from app.plan import PlanPoint
 
         from . import refine
 
-        settings = self.plan.refinement
-        left = settings.budget
         while left > 0 and not self._cmd.stop:
             new: list[Any] = []
             for amplitude in sorted({p.amplitude_ratio for p in self._all_points}):

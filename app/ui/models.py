@@ -22,6 +22,7 @@ import numpy as np
 
 from app.engine.events import BlockAcquired, FaultRaised, PointSettled, StateChanged, TuningStep
 from app.core import hotwire as _hotwire
+from app.core.flagging import attempt_flagged
 from app.core import quality as _quality
 from app.core.phase import unwrapped_phase_rad
 from app.services.runs import NEVER_ACCEPTED
@@ -276,13 +277,13 @@ class PointTable(Observable):
             # a record cut short (halt, abort, fatal fault) is stored as evidence and never
             # accepted: it must not show as a result; an earlier accepted attempt stays shown
             if r.status != FAILED:     # a fatal fault at this point is shown as such
-                r.status = (FLAGGED if r.flags else KEPT) if r.decision == "accepted" else REJECTED
+                r.status = (FLAGGED if attempt_flagged(r.flags) else KEPT) if r.decision == "accepted" else REJECTED
             r.faults.append("interrupted")
             self.notify()
             return
         # the attempt's flags and the result's own warnings, as the stored run and the sweep's output count them
         r.flags = tuple(dict.fromkeys((*ev.flags, *map(str, getattr(res, "warnings", ()) or ()))))
-        r.status = FLAGGED if r.flags else KEPT
+        r.status = FLAGGED if attempt_flagged(r.flags) else KEPT     # marks (multisine, refined) flag nothing
         r.gain, r.phase_rad = float(getattr(res, "gain", math.nan)), float(getattr(res, "phase_rad", math.nan))
         r.gain_ci95 = float(getattr(res, "gain_ci95", math.nan))
         r.phase_ci95_rad = float(getattr(res, "phase_ci95_rad", math.nan))
@@ -309,7 +310,7 @@ class PointTable(Observable):
         """A point left 'measuring' when the sweep ended was interrupted."""
         for r in self.rows:
             if r.status == MEASURING:
-                r.status = PLANNED if r.attempts == 0 else (FLAGGED if r.flags else KEPT)
+                r.status = PLANNED if r.attempts == 0 else (FLAGGED if attempt_flagged(r.flags) else KEPT)
         self.notify()
 
     def load_run(self, run: Any) -> None:
@@ -348,7 +349,7 @@ class PointTable(Observable):
             curves[amp] = {"freq_hz": a[:, 0], "gain": a[:, 1], "gain_ci95": np.nan_to_num(a[:, 2]),
                            "phase_rad": unwrapped_phase_rad(a[:, 0], a[:, 3]), "phase_ci95_rad": np.nan_to_num(a[:, 4]),
                            "index": a[:, 5].astype(int),
-                           "flagged": np.array([r.status == FLAGGED or bool(r.flags) for r in rows], dtype=bool)}
+                           "flagged": np.array([r.status == FLAGGED or attempt_flagged(r.flags) for r in rows], dtype=bool)}
         return curves
 
     def shown_phase_rad(self) -> dict[int, float]:

@@ -61,3 +61,19 @@ def test_a_saturating_flame_is_detected_and_its_limit_recovered():
         fitres = fit_saturation(_fdf_points(rng, freqs, [0.03, 0.1, 0.35], limit=0.3))
         cover += abs(fitres.limit - 0.3) <= 1.96 * fitres.stderr
     assert 0.92 <= cover / trials <= 0.98, cover / trials
+
+
+def test_a_linear_flame_gives_a_lower_bound_not_a_limit_with_a_zero_interval():
+    # below saturation N = 1 (the describing function of a clip that is never reached), so the data
+    # bound a_s only from below: no "± 0" limit is stated (derived from the saturation model above)
+    from app.core.fdf import fit_saturation
+
+    rng = np.random.default_rng(9)
+    freqs = np.linspace(50, 1000, 20)
+    res = fit_saturation(_fdf_points(rng, freqs, [0.02, 0.05], limit=None))
+    assert res.unsaturated and not np.isfinite(res.stderr)
+    assert "none seen" in res.describe() and "± 0 " not in res.describe()
+    # the likelihood-ratio test behind it claims a saturation on a linear flame about 1 time in 20
+    claimed = sum(not fit_saturation(_fdf_points(rng, freqs, [0.02, 0.05], limit=None)).unsaturated
+                  for _ in range(200))
+    assert claimed <= 20, claimed

@@ -66,6 +66,8 @@ def test_too_few_points_are_refused_with_the_reason(tmp_path: Path) -> None:
     assert out.returncode == 1 and "Traceback" not in out.stderr
     assert "not fitted" in out.stdout and "needs at least 3 points" in out.stdout, out.stdout
     assert "not a run folder" in _cli("fit", str(tmp_path)).stderr
+    out = _cli("fit", str(run), "--model", "conical", "--unit-gain")
+    assert out.returncode == 2 and "--unit-gain applies to --model delays only" in out.stderr, out.stderr
 
 
 @pytest.mark.slow

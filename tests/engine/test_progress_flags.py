@@ -21,7 +21,14 @@ from app.storage.index import is_flagged, rule_choice
 from run_watch import run_cli, short_plan_text
 
 CASES = [((), ()), (("refined",), ()), ((), ("cond high",)), (("interrupted", "flame-out"), ()),
-         (("tuning-not-converged",), ("distortion",))]
+         (("tuning-not-converged",), ("distortion",)), (("multisine",), ()), (("multisine", "amplitude-off-target"), ())]
+
+
+def test_marks_of_how_a_point_was_made_flag_nothing() -> None:
+    # a point inserted by refinement or measured in a survey is not a fault (app.core.flagging.MARKS);
+    # a real flag beside the mark still flags it
+    assert not attempt_flagged(("refined",)) and not attempt_flagged(("multisine",))
+    assert attempt_flagged(("multisine", "amplitude-off-target"))
 
 
 @pytest.mark.parametrize("flags,warnings", CASES)

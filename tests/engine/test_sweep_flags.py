@@ -91,3 +91,11 @@ def test_refine_and_auto_settle_reach_the_run(tmp_path) -> None:
     assert info["settle_rule"].startswith("settle auto")
     assert info["settle_used"].startswith("settle auto")
     assert "note settle-auto" in done.stdout
+    assert "note refinement: " in done.stdout and "of at most 10 points inserted" in done.stdout
+
+
+def test_the_dry_run_says_an_fdf_plan_gets_no_survey(tmp_path) -> None:
+    plan = _plan(tmp_path).read_text().replace("values = [0.05]", "values = [0.03, 0.06]")
+    (tmp_path / "fdf.toml").write_text(plan)
+    out = run_cli("sweep", str(tmp_path / "fdf.toml"), "--dry-run", "--survey")
+    assert out.returncode == 0 and "multi-sine survey: NOT made for this plan" in out.stdout, out.stdout

@@ -45,3 +45,4 @@ def test_the_sensors_tab_draws_the_calibration_and_names_drifted_sensors(qtbot, 
     win.tabs.setCurrentIndex(0)
     win.tabs.setCurrentWidget(win.sensors)
     assert "names no calibration file" in win.sensors.caption.text() and win.sensors.sensors == ()
+    assert win.sensors.layout_widget.isHidden()           # no empty plots with a 0-1 Hz axis

@@ -1,5 +1,5 @@
 """The sensors' relative calibration as the rig uses it: each pressure sensor's factor (gain and
-phase against frequency, with ±1 standard uncertainty) from the calibration file the rig names,
+phase against frequency, with 95 % intervals) from the calibration file the rig names,
 and the sensors the commissioning record says drifted since the previous calibration.
 
 ``show_rig(path)`` reads the rig file, its calibration file and the commissioning record (all
@@ -19,6 +19,8 @@ import pyqtgraph as pg
 from PySide6.QtWidgets import QLabel, QPushButton, QTabWidget, QVBoxLayout, QWidget
 
 from .style import CHANNEL_COLOURS, new_plot, pen
+
+Z95 = 1.959963984540054      # 95 % bars, as every other view (normal coverage factor)
 
 
 class CalibrationView(QWidget):
@@ -68,6 +70,7 @@ class CalibrationView(QWidget):
         self.gain_plot.clear()
         self.phase_plot.clear()
         self.legend.clear()
+        self.layout_widget.hide()              # shown again only with factors to draw
         self.sensors, self.drifted = (), ()
         try:
             rig = load_rig(self.path)
@@ -83,14 +86,15 @@ class CalibrationView(QWidget):
         f = np.asarray(cal.frequency_hz, dtype=float)
         for j, s in enumerate(cal.sensors):
             colour = CHANNEL_COLOURS[j % len(CHANNEL_COLOURS)]
-            g, ug = np.asarray(s.gain), np.asarray(s.u_gain) * np.asarray(s.gain)
-            ph, up = np.asarray(s.phase_deg), np.asarray(s.u_phase_deg)
+            g, ug = np.asarray(s.gain), Z95 * np.asarray(s.u_gain) * np.asarray(s.gain)   # 95 % bars, as elsewhere
+            ph, up = np.asarray(s.phase_deg), Z95 * np.asarray(s.u_phase_deg)
             curve = self.gain_plot.plot(f, g, pen=pen(colour), symbol="o", symbolSize=5, symbolBrush=colour)
             self.legend.addItem(curve, s.name)
             self.gain_plot.addItem(pg.ErrorBarItem(x=f, y=g, top=ug, bottom=ug, pen=pen(colour), beam=0.0))
             self.phase_plot.plot(f, ph, pen=pen(colour), symbol="o", symbolSize=5, symbolBrush=colour)
             self.phase_plot.addItem(pg.ErrorBarItem(x=f, y=ph, top=up, bottom=up, pen=pen(colour), beam=0.0))
         self.sensors = tuple(s.name for s in cal.sensors)
+        self.layout_widget.show()
         drift_text = ""
         try:
             last = read_record(record_path_for(self.path)).latest("pressure-calibration")
@@ -103,4 +107,4 @@ class CalibrationView(QWidget):
                           if self.drifted else " No sensor drifted since the previous calibration.")
         self.caption.setText(f"{html.escape(str(cal_path))}: {html.escape(cal.method)} against "
                              f"{html.escape(cal.reference)}, {html.escape(cal.created)}, {f.size} frequencies "
-                             f"{f[0]:g}-{f[-1]:g} Hz (bars: ±1 standard uncertainty).{drift_text}")
+                             f"{f[0]:g}-{f[-1]:g} Hz (bars: 95 % intervals).{drift_text}")
