@@ -100,12 +100,40 @@ def read_record(path: str | Path, rig_name: str = "") -> Record:
         try:
             check = Check(str(c["kind"]), str(c["date"]), str(c.get("backend", "")), str(c.get("rig_identity", "")),
                           dict(c.get("result", {})), str(c.get("note", "")))
-            check.when()
-        except (KeyError, ValueError) as exc:
+            when = check.when()
+        except (KeyError, ValueError, TypeError) as exc:
             raise CommissioningRecordError(f"{where}: missing or malformed {exc} (a date reads "
                                            "2026-12-04T10:00:00Z)") from None
+        if when > _dt.datetime.now(_dt.timezone.utc) + _dt.timedelta(days=1):
+            raise CommissioningRecordError(f"{where}: dated {check.date}, in the future (is the computer's clock "
+                                           "right?)")
+        _check_result(check, where)
         checks.append(check)
     return Record(p, str(data.get("rig_name", rig_name)), tuple(checks))
+
+
+# the numbers each kind of check must hold (finite), so that a record is refused when read, not later
+REQUIRED = {"dark-offset": ("mean_v", "u_mean_v"), "light-step": ("power_w", "mean_v", "u_mean_v"),
+            "hot-wire": ("a_v2", "b", "n")}
+
+
+def _check_result(check: Check, where: str) -> None:
+    need = REQUIRED.get(check.kind, ())
+    if check.kind == "light-uniformity" and check.result.get("stage") == "position":
+        need = ("mean_v", "u_mean_v")
+    for key in need:
+        if key not in check.result:
+            raise CommissioningRecordError(f"{where}: result.{key} missing (a {check.kind} check holds "
+                                           f"{', '.join(need)})")
+    for key, v in check.result.items():
+        values = v if isinstance(v, list) else [v]
+        for x in values:
+            if isinstance(x, bool) or isinstance(x, str):
+                if key in need:
+                    raise CommissioningRecordError(f"{where}: result.{key} = {x!r} is not a number")
+                continue
+            if not isinstance(x, (int, float)) or not math.isfinite(float(x)):
+                raise CommissioningRecordError(f"{where}: result.{key} = {x!r} is not a finite number")
 
 
 def _value(v: Any) -> str:

@@ -201,7 +201,7 @@ class Prescan(_Strict):
     enabled: bool = False
     window: quantity("time", 0.05, 60.0, unit="s") = 1.0
     levels: number(1, 6, integer=True) = 3
-    total_level: number(0.0, 10.0, lo_open=True) = 1.25
+    total_level: number(0.0, 1.5, lo_open=True) = 1.25   # never above the soft-start promise of 1.5 x target
     precision: number(0.0, 1.0, lo_open=True) = 0.02
     repeat_after: quantity("time", 1.0, 86400.0, unit="s") = 600.0
     table_fresh: quantity("time", 0.0, 30 * 86400.0, unit="s") = 3600.0

@@ -38,7 +38,7 @@ SI_UNIT = {"length": "m", "temperature": "K", "temperature_difference": "K", "pr
 # Kinds whose bare number a person may mean in another unit (K or degC, m3/s or L/min, s or ms,
 # m or mm, V/Pa or mV/Pa, rad or deg): in a file they need a unit. Volts, hertz and pascals
 # are what people write bare.
-UNIT_REQUIRED = frozenset({"temperature", "volume_flow", "time", "length", "sensitivity", "angle"})
+UNIT_REQUIRED = frozenset({"temperature", "volume_flow", "time", "length", "sensitivity", "angle", "power"})
 
 # kind -> (what to call it in a message, two examples of what to write)
 _EXAMPLES: dict[str, tuple[str, str, str]] = {

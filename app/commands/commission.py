@@ -309,7 +309,6 @@ def update_rig_dark_offset(rig_path: Path, mean_v: float, u_v: float, date: str)
     """Set ``dark_offset`` and ``dark_offset_uncertainty`` in the rig file's ``[light]`` table,
     keeping every other line and comment; the file is rewritten whole and must load afterwards."""
     from ..outputs import write_whole
-    from ..rig import load_rig
 
     lines = rig_path.read_text(encoding="utf-8").splitlines(keepends=True)
     start = next((i for i, line in enumerate(lines) if _LIGHT.match(line)), None)
@@ -337,10 +336,13 @@ def update_rig_dark_offset(rig_path: Path, mean_v: float, u_v: float, date: str)
     def write(tmp: Path) -> None:
         tmp.write_text(text, encoding="utf-8")
 
-    tmp_check = rig_path.with_name(f".{rig_path.name}.check.toml")
-    try:
-        tmp_check.write_text(text, encoding="utf-8")
-        load_rig(tmp_check)                     # never leave a rig file that does not load
-    finally:
-        tmp_check.unlink(missing_ok=True)
+    import tomllib
+
+    from ..rig import rig_from_dict
+
+    try:                                        # never leave a rig file that does not load: check the new text
+        rig_from_dict(tomllib.loads(text), str(rig_path), units_required=True)   # as the rig file itself
+    except tomllib.TOMLDecodeError as exc:
+        raise CommissionError(f"{rig_path}: the dark offset could not be written in place ({exc}); the rig file "
+                              "is left as it was: set [light] dark_offset by hand") from None
     return write_whole(rig_path, write)

@@ -18,6 +18,7 @@ fitting itself is ``app.core.fits``. Must not import Qt.
 from __future__ import annotations
 
 import argparse
+from pathlib import Path
 import sys
 from collections import defaultdict
 
@@ -70,6 +71,12 @@ def run(args: argparse.Namespace) -> int:
     for run_ in runs:
         for problem in run_.problems:        # what review would say of this run, said here too
             print(f"flamebode fit: problem: {problem}", file=sys.stderr)
+    seen: dict[tuple[str, str], str] = {}
+    for d, run_ in zip(args.run_dirs, runs):   # one run (or a copy of it) twice would count its points twice
+        key = (str(run_.info.get("created_wall_s", "")), str(run_.info.get("identity", "")))
+        if str(Path(d).resolve()) in seen.values() or (key[0] and key in seen):
+            raise FitError(f"{d}: the same run as {seen.get(key, d)} (created at the same moment): each run once")
+        seen[key] = str(Path(d).resolve())
     require_same_operating_point(runs)
     points = [p for run_ in runs for p in run_points(run_)]
     skipped = sum(1 for p in points if p.flagged) if args.good_only else 0

@@ -16,7 +16,8 @@ Contents, in SI units and named so:
   covariance's off-diagonal terms change sign), as codes written with e^{-iωt} expect;
 * ``run``: the run folder, the plan's name, the rig file's text (the operating point: flows,
   temperatures, geometry) and the back-end;
-* ``models`` (optional): each fitted model's name, parameters, their covariance, reduced χ²,
+* ``models`` (optional): each fitted model's name, parameters, their covariance (widened by the
+  reduced χ² where the fit widened its printed intervals: ``covariance_widened_by``), reduced χ²,
   AIC, and the model evaluated on a dense frequency grid (same convention); a rational model
   also its state-space matrices A, B, C, D and delay ``tau_s`` (in flamebode's e^{+iωt}
   convention: a real system does not change with the convention, only the sign of ω does).
@@ -125,7 +126,11 @@ def write_interchange(run_dir: str | Path, path: str | Path, convention: str = "
         values = m.evaluate(grid)
         fitted.append({"model": m.model, "amplitude_ratio": float(amp),
                        "names": list(m.names), "values": np.asarray(m.values, dtype=float),
-                       "covariance": np.asarray(m.covariance, dtype=float), "reduced_chi2": float(m.reduced_chi2),
+                       # the covariance the printed intervals use: widened by the reduced χ² where the fit was
+                       "covariance": np.asarray(m.covariance, dtype=float) * (float(m.reduced_chi2) if getattr(
+                           m, "widened", False) else 1.0),
+                       "covariance_widened_by": float(m.reduced_chi2) if getattr(m, "widened", False) else 1.0,
+                       "reduced_chi2": float(m.reduced_chi2),
                        "aic": float(m.aic), "grid_hz": grid,
                        "grid_ftf": np.conj(values) if convention == "minus" else values})
         if hasattr(m, "state_space"):          # the rational model: (A, B, C, D) and the delay
@@ -171,6 +176,7 @@ def _write_h5(path: Path, pts, info, fitted, convention: str) -> None:
             mg.attrs["reduced_chi2"] = m["reduced_chi2"]
             mg.attrs["aic"] = m["aic"]
             mg.attrs["amplitude_ratio"] = m["amplitude_ratio"]
+            mg.attrs["covariance_widened_by"] = m["covariance_widened_by"]
             for key in ("values", "covariance", "grid_hz", "grid_ftf", "A", "B", "C", "D"):
                 if key in m:
                     mg.create_dataset(key, data=m[key])

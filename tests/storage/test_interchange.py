@@ -105,3 +105,18 @@ def test_export_refuses_an_unknown_convention_before_writing(run_dir: Path, tmp_
     with pytest.raises(FlamebodeError, match="time convention"):
         export_run(run_dir, tmp_path / "z", plots=False, convention="backwards")
     assert not (tmp_path / "z").exists()
+
+
+def test_the_saved_covariance_gives_the_printed_intervals(run_dir: Path, tmp_path: Path):
+    # the fit prints n ± 1.96 sigma from its (possibly widened) covariance; the file must carry the
+    # same covariance, so a network-model user reading it gets the same intervals
+    import re
+
+    out = _cli("fit", str(run_dir), "--model", "n-tau", "--save", str(tmp_path / "m.h5"))
+    assert out.returncode == 0, out.stderr
+    half = float(re.search(r"\bn = [-0-9.e]+ ± ([0-9.e]+)", out.stdout).group(1))
+    with h5py.File(tmp_path / "m.h5") as f:
+        cov = f["models/1/covariance"][...]
+        widened = f["models/1"].attrs["covariance_widened_by"]
+    assert 1.96 * np.sqrt(cov[0, 0]) == pytest.approx(half, rel=0.05)      # printed with 2 digits
+    assert widened >= 1.0
