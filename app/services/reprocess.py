@@ -41,7 +41,9 @@ def reprocess(req: ReprocessRequest, on_opened: Callable[[tuple[str, ...]], None
     as it happens (a long run shows progress); the result holds them all as well."""
     rig = load_rig(req.rig_path)
     r = open_run(req.run_dir)
-    problems = tuple(r.problems)
+    # a changed snapshot (e.g. the run's calibration copy edited) is said, as review says it
+    problems = tuple(r.problems) + tuple(f"snapshot changed since the run was created: {c.describe()}"
+                                         for c in index.snapshot_changes(r.run_dir))
     if on_opened is not None:
         on_opened(problems)
     if not r.index_readable:

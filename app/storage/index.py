@@ -523,7 +523,7 @@ def _accepted_snapshots(conn: sqlite3.Connection) -> dict[str, tuple[str, bytes 
     """name -> (sha256, content or None) the run accepts: the newest accepted change, else creation."""
     info = get_info(conn)
     out: dict[str, tuple[str, bytes | None]] = {}
-    for key in ("rig", "plan", "scenario"):
+    for key in ("rig", "plan", "scenario", "calibration"):
         name, digest = info.get(f"{key}_snapshot"), info.get(f"{key}_sha256")
         if name and digest:
             out[name] = (digest, None)

@@ -66,3 +66,12 @@ def test_the_run_keeps_the_calibration_it_was_measured_with(tmp_path: Path) -> N
                           str(tmp_path / "run" / "rig.toml")], cwd=tmp_path, capture_output=True, text=True,
                          timeout=170)
     assert out.returncode == 0 and "Traceback" not in out.stderr, out.stdout[-1500:] + out.stderr[-1500:]
+    # an edited copy is not used silently: review and reprocess-run say the snapshot changed
+    copy.write_text(copy.read_text().replace("coherence", "coherence", 1) + "\n# edited\n")
+    run = open_run(tmp_path / "run", verify=True)
+    from app.storage.index import snapshot_changes
+
+    assert [c.name for c in snapshot_changes(tmp_path / "run")] == ["calibration.toml"]
+    out = subprocess.run([sys.executable, "-m", "app.cli", "review", str(tmp_path / "run")], cwd=tmp_path,
+                         capture_output=True, text=True, timeout=170)
+    assert "snapshot changed since the run was created: calibration.toml" in out.stdout, out.stdout[-1500:]
