@@ -24,6 +24,7 @@ from pathlib import Path
 from typing import Any
 
 import audio_server
+import pytest
 from drivers.emulator.files import read_status
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -187,3 +188,17 @@ def resume_until_done(run_dir: Path, first, emu: "Emulator", tries: int = 3) -> 
         resumed.append(faults[-1].strip())
         out = run_cli("resume", str(run_dir), timeout_s=150)
     return out, resumed
+
+
+@pytest.fixture
+def server():
+    """A private audio server for one test (skipped with the reason where none can start)."""
+    srv = PrivateServer()
+    why = srv.start()
+    if why:
+        srv.close()
+        pytest.skip(f"no audio server: {why}")
+    try:
+        yield srv
+    finally:
+        srv.close()

@@ -27,7 +27,8 @@ import time
 
 import pytest
 
-from emulator_rig import RIG, Emulator, PrivateServer, no_audio_reason, plan_text, resume_until_done, run_points, within
+from emulator_rig import server  # noqa: F401  (the audio-server fixture, used by name)
+from emulator_rig import (RIG, Emulator, no_audio_reason, plan_text, resume_until_done, run_points, within)
 from run_watch import run_cli
 
 _REASON = no_audio_reason()
@@ -50,19 +51,6 @@ def _in_process_inside(plan, run_dir) -> int:
         h = truth.true_ftf(sim, p["freq_hz"], 0.05)
         inside += within(p, {"ftf_re": h.real, "ftf_im": h.imag})
     return inside
-
-
-@pytest.fixture
-def server():
-    srv = PrivateServer()
-    why = srv.start()
-    if why:
-        srv.close()
-        pytest.skip(f"no audio server: {why}")
-    try:
-        yield srv
-    finally:
-        srv.close()
 
 
 def test_full_ftf_sweep_through_the_audio_server_recovers_the_emulators_ftf(server, tmp_path, monkeypatch):

@@ -19,7 +19,8 @@ import time
 
 import pytest
 
-from emulator_rig import RIG, ROOT, Emulator, PrivateServer, no_audio_reason, plan_text, resume_until_done, run_points
+from emulator_rig import server  # noqa: F401  (the audio-server fixture, used by name)
+from emulator_rig import (RIG, ROOT, Emulator, no_audio_reason, plan_text, resume_until_done, run_points)
 from run_watch import committed_attempts, run_cli
 
 _REASON = no_audio_reason()
@@ -27,19 +28,6 @@ pytestmark = [pytest.mark.audio, pytest.mark.slow,
               pytest.mark.skipif(bool(_REASON), reason=_REASON or "audio server available")]
 
 FREQS_HZ = [150.0, 250.0, 350.0, 450.0, 550.0, 850.0]
-
-
-@pytest.fixture
-def server():
-    srv = PrivateServer()
-    why = srv.start()
-    if why:
-        srv.close()
-        pytest.skip(f"no audio server: {why}")
-    try:
-        yield srv
-    finally:
-        srv.close()
 
 
 def test_audio_server_restarted_mid_sweep_is_a_named_fault_with_the_drive_at_zero_and_the_run_resumes(

@@ -19,11 +19,12 @@ from test_calibration_file import _rig_naming, _write
 ROOT = Path(__file__).resolve().parents[2]
 
 
-def test_records_keep_their_channel_map_with_a_relative_calibration_file(tmp_path: Path) -> None:
+def _calibrated_sweep(tmp_path: Path) -> tuple[Path, Path]:
+    """A sweep of the demo rig naming a calibration file by a relative path: (the file, its folder)."""
     demo = ROOT / "configs" / "demo-rig.toml"
     rig_dir = tmp_path / "rig"
     rig_dir.mkdir()
-    _write(load_rig(demo), rig_dir / "cal.toml")
+    cal = _write(load_rig(demo), rig_dir / "cal.toml")
     rig = _rig_naming(rig_dir, demo)                 # pressure_calibration = "cal.toml", relative
     plan = tmp_path / "plan.toml"
     plan.write_text(short_plan_text("calibrated", 200, 300, 100, 0.3))
@@ -31,6 +32,11 @@ def test_records_keep_their_channel_map_with_a_relative_calibration_file(tmp_pat
                           str(tmp_path / "run"), "--fast", "--seed", "2"], cwd=tmp_path, capture_output=True,
                          text=True, timeout=170)
     assert out.returncode == 0, out.stderr[-2000:]
+    return cal, rig_dir
+
+
+def test_records_keep_their_channel_map_with_a_relative_calibration_file(tmp_path: Path) -> None:
+    _calibrated_sweep(tmp_path)
     run = open_run(tmp_path / "run", verify=False)
     [a, *_] = run.attempts
     attrs = run.read_record(a["attempt_id"]).attrs
@@ -44,17 +50,7 @@ def test_the_run_keeps_the_calibration_it_was_measured_with(tmp_path: Path) -> N
     # so a run can be reprocessed after the lab's calibration file was replaced or removed
     import shutil
 
-    demo = ROOT / "configs" / "demo-rig.toml"
-    rig_dir = tmp_path / "rig"
-    rig_dir.mkdir()
-    cal = _write(load_rig(demo), rig_dir / "cal.toml")
-    rig = _rig_naming(rig_dir, demo)
-    plan = tmp_path / "plan.toml"
-    plan.write_text(short_plan_text("calibrated", 200, 300, 100, 0.3))
-    out = subprocess.run([sys.executable, "-m", "app.cli", "sweep", str(plan), "--rig", str(rig), "--out",
-                          str(tmp_path / "run"), "--fast", "--seed", "2"], cwd=tmp_path, capture_output=True,
-                         text=True, timeout=170)
-    assert out.returncode == 0, out.stderr[-2000:]
+    cal, rig_dir = _calibrated_sweep(tmp_path)
     copy = tmp_path / "run" / "calibration.toml"
     assert copy.read_bytes() == cal.read_bytes()
     shutil.move(str(rig_dir), str(tmp_path / "gone"))        # the lab's files moved away

@@ -14,23 +14,17 @@ import math
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtWidgets import QLabel, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QLabel, QWidget
 
 from app.engine.events import TransferMeasured
 
-from .style import new_plot, pen
+from .style import captioned_plots, new_plot, pen
 
 
 class PrescanView(QWidget):
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
-        self.caption = QLabel("Pre-scan: none yet")
-        self.caption.setWordWrap(True)
-        self.layout_widget = pg.GraphicsLayoutWidget()
-        lay = QVBoxLayout(self)
-        lay.setContentsMargins(0, 0, 0, 0)
-        lay.addWidget(self.caption)
-        lay.addWidget(self.layout_widget)
+        self.caption, self.layout_widget = captioned_plots(self, "Pre-scan: none yet")
         self.plot = new_plot(self.layout_widget, "Drive-to-velocity transfer (pre-scan)", "|u'|/ū per V peak",
                              "frequency (Hz)", row=0, col=0)
         self.plot.setLogMode(y=True)

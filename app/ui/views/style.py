@@ -95,3 +95,17 @@ class Coalesced:
     def __call__(self) -> None:
         if not self.timer.isActive():
             self.timer.start()
+
+
+def captioned_plots(widget: object, caption: str) -> tuple[object, object]:
+    """A word-wrapped caption above a plot layout, filling ``widget``: (QLabel, GraphicsLayoutWidget)."""
+    from PySide6.QtWidgets import QLabel, QVBoxLayout
+
+    label = QLabel(caption)
+    label.setWordWrap(True)
+    plots = pg.GraphicsLayoutWidget()
+    lay = QVBoxLayout(widget)
+    lay.setContentsMargins(0, 0, 0, 0)
+    lay.addWidget(label)
+    lay.addWidget(plots)
+    return label, plots

@@ -14,23 +14,17 @@ import math
 import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt
-from PySide6.QtWidgets import QLabel, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QWidget
 
 from ..models import TuningHistory, format_volts
-from .style import Coalesced, new_plot, pen
+from .style import Coalesced, captioned_plots, new_plot, pen
 
 
 class TuningView(QWidget):
     def __init__(self, model: TuningHistory, parent: QWidget | None = None) -> None:
         super().__init__(parent)
         self.model = model
-        self.caption = QLabel("Tuning: waiting for the first point")
-        self.caption.setWordWrap(True)
-        self.layout_widget = pg.GraphicsLayoutWidget()
-        lay = QVBoxLayout(self)
-        lay.setContentsMargins(0, 0, 0, 0)
-        lay.addWidget(self.caption)
-        lay.addWidget(self.layout_widget)
+        self.caption, self.layout_widget = captioned_plots(self, "Tuning: waiting for the first point")
         self.amp_plot = new_plot(self.layout_widget, "Amplitude reached", "|u'|/ū", "tuning step", row=0, col=0)
         self.drive_plot = new_plot(self.layout_widget, "Drive voltage (log)", "V peak", "tuning step", row=0, col=1)
         self.drive_plot.setLogMode(y=True)
