@@ -163,7 +163,8 @@ def plan_text(name: str, freqs_hz: list[float], record_s: float = 1.0) -> str:
             f'settle = "0.2 s"\ntuning_window = "0.2 s"\ntuning_discard = "0.05 s"\n')
 
 
-LOAD_FAULTS = ("flame-out", "drive-not-answering", "output-above-command", "backend-timeout", "sensor-dead")
+LOAD_FAULTS = ("flame-out", "drive-not-answering", "output-above-command", "backend-timeout", "sensor-dead",
+               "audio-server-lost")   # a stream that died under load (PortAudio: "stopped by itself")
 
 
 def resume_until_done(run_dir: Path, first, emu: "Emulator", tries: int = 3) -> tuple[Any, list[str]]:

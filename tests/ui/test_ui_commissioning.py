@@ -14,8 +14,10 @@ def test_the_setup_tab_names_missing_commissioning_checks_and_follows_the_record
     notes = win.setup.refresh_commissioning()
     assert any("no dark offset" in n for n in notes)
     assert "no dark offset" in win.setup.commissioning.text()
-    for kind in ("dark-offset", "light-linearity", "pressure-calibration"):
-        append_check(record_path_for(rig_path), "", Check(kind, now_utc(), "simulated", "", {"x": 1.0}))
+    results = {"dark-offset": {"mean_v": 0.021, "u_mean_v": 1e-6}, "light-linearity": {"slope_v_per_w": 1e-4},
+               "pressure-calibration": {"file": "cal.toml"}}
+    for kind, result in results.items():
+        append_check(record_path_for(rig_path), "", Check(kind, now_utc(), "simulated", "", result))
     assert win.setup.refresh_commissioning() == []
     assert "recent" in win.setup.commissioning.text()
     assert win.start_action.isEnabled()            # a reminder only: the simulated sweep may start
