@@ -38,16 +38,9 @@ def start(rate_hz: int = 48000) -> str:
     env = {**os.environ, "PULSE_RUNTIME_PATH": runtime, "PULSE_SERVER": f"unix:{runtime}/native",
            "PULSE_STATE_PATH": os.path.join(runtime, "state")}
     os.makedirs(env["PULSE_STATE_PATH"], exist_ok=True)
-    cmd = ["pulseaudio", "--daemonize=yes", "-n", "--exit-idle-time=-1", f"--log-target=file:{runtime}/pulse.log",
-           f"--load=module-native-protocol-unix socket={runtime}/native auth-anonymous=1",
-           f"--load=module-null-sink sink_name={SINK} rate={rate_hz} channels=2 norewinds=1"]
-    try:
-        subprocess.run(cmd, env=env, capture_output=True, timeout=20, check=True)
-    except (OSError, subprocess.SubprocessError) as exc:
-        return f"pulseaudio did not start ({exc})"
-    deadline = time.monotonic() + 5.0
-    while not _pactl("info", env=env) and time.monotonic() < deadline:
-        time.sleep(0.1)
+    why = _launch(runtime, env, [f"--load=module-null-sink sink_name={SINK} rate={rate_hz} channels=2 norewinds=1"])
+    if why:
+        return why
     if not (_pactl("set-default-sink", SINK, env=env) and _pactl("set-default-source", f"{SINK}.monitor", env=env)):
         stop_env(env)
         return "pulseaudio started but its null sink could not be made the default"
@@ -116,7 +109,12 @@ def start_private(runtime: str, sinks: dict[str, int]) -> str:
     """Start (or restart) a server in ``runtime`` with the emulator sinks ``{name: channels}``
     loaded at start-up; returns '' when it answers, or why not."""
     env = private_server_env(runtime)
-    loads = [f"--load=module-null-sink {' '.join(null_sink_args(n, c))}" for n, c in sinks.items()]
+    return _launch(runtime, env, [f"--load=module-null-sink {' '.join(null_sink_args(n, c))}"
+                                  for n, c in sinks.items()])
+
+
+def _launch(runtime: str, env: dict[str, str], loads: list[str]) -> str:
+    """Start a daemon with its socket in ``runtime`` and the module ``loads``; '' once it answers."""
     cmd = ["pulseaudio", "--daemonize=yes", "-n", "--exit-idle-time=-1", f"--log-target=file:{runtime}/pulse.log",
            f"--load=module-native-protocol-unix socket={runtime}/native auth-anonymous=1", *loads]
     try:
