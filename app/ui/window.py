@@ -44,6 +44,7 @@ from .views.controls import ControlStrip
 from .views.fault_banner import FaultBanner
 from .views.halt_banner import HaltBanner
 from .views.calibration import CalibrationView
+from .views.commissioning import CommissioningPanel, PanelContext
 from .views.points import PointListView
 from .views.prescan import PrescanView, show_engine_news
 from .views.response import ResponseView
@@ -116,6 +117,7 @@ class MainWindow(ReviewActions, QMainWindow):
         self.tabs.addTab(self.sweep_tab, "Sweep")
         self.tabs.addTab(self.review, "Review")
         self.sensors = CalibrationView.as_tab(self.tabs, lambda: self.setup.rig_editor.path)   # read when shown
+        self._build_commissioning()
         self._build_controls()
         central = QWidget()
         lay = QVBoxLayout(central)
@@ -201,6 +203,32 @@ class MainWindow(ReviewActions, QMainWindow):
         lay.addWidget(split, 1)
         self.response.point_clicked.connect(lambda i: self.point_list.select_points([i]))
         self.point_list.selection_changed.connect(self.response.select)
+
+    def _build_commissioning(self) -> None:
+        """The Commissioning tab: the checks of ``flamebode commission`` on the worker thread."""
+        self.commissioning = CommissioningPanel.as_tab(self.tabs, self.tasks.submit, self._commissioning_context)
+        self.commissioning.busy_changed.connect(lambda _busy: self._update_controls())
+        self.commissioning.recorded.connect(self.setup.refresh_commissioning)
+        self.commissioning.rig_written.connect(self._rig_rewritten)
+
+    def _commissioning_context(self) -> PanelContext:
+        from app.errors import FlamebodeError
+        from app.plan import load_plan
+
+        s = self.setup
+        scenario = Path(s.scenario.text()) if s.scenario.text().strip() else None
+        if scenario is None and s.is_simulated() and s.plan_editor.path is not None:
+            try:                            # the simulated rig the sweep would meet (a read, never a write)
+                scenario = load_plan(s.plan_editor.path).resolve("scenario")
+            except (FlamebodeError, OSError):
+                scenario = None
+        return PanelContext(s.rig_editor.path, s.rig_editor.dirty, s.backend_name(), scenario, s.fast.isChecked())
+
+    def _rig_rewritten(self, path: str) -> None:
+        """The dark offset went into the rig file: the editor shows the file as it now is."""
+        editor = self.setup.rig_editor
+        if editor.path is not None and Path(editor.path).resolve() == Path(path).resolve() and not editor.dirty:
+            editor.load(Path(path))
 
     def _action(self, text: str, keys: list[str], slot: Any, tip: str,
                 context: Qt.ShortcutContext = Qt.ShortcutContext.ApplicationShortcut) -> QAction:
@@ -532,7 +560,8 @@ class MainWindow(ReviewActions, QMainWindow):
         sim = self.setup.is_simulated()
         self.controls.show_backend(sim, self.setup.backend_name())
         self.caution.setVisible(not sim)
-        can_start = not running and (sim or self.setup.checklist_done())
+        can_start = not running and not self.commissioning.busy and (sim or self.setup.checklist_done())
+        self.commissioning.set_sweep_running(running)
         self.start_action.setEnabled(can_start)
         for act in (self.pause_action, self.stop_action, self.abort_action):
             act.setEnabled(running)
@@ -544,7 +573,8 @@ class MainWindow(ReviewActions, QMainWindow):
         self.statusBar().showMessage(text, 15000)
 
     def _task_failed(self, result: TaskResult) -> None:
-        if result.error is not None and result.name not in ("start", "close"):
+        if result.error is not None and result.name not in ("start", "close") \
+                and not result.name.startswith("commission"):     # the commissioning panel says its own
             self._say(f"{result.name} failed: {result.error}")
             self.review.message.setText(f"{result.name} failed: {result.error}")
 
@@ -581,6 +611,7 @@ class MainWindow(ReviewActions, QMainWindow):
                 session.close()
 
             self.tasks.submit("close", halt_and_close)
+        self.commissioning.stop_recording(why)     # a recording in progress ends at its next block
         self.tasks.shutdown()
 
     def closeEvent(self, event: QCloseEvent) -> None:
