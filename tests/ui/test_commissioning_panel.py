@@ -254,3 +254,33 @@ def test_the_window_and_the_command_line_store_the_same_dark_offset_for_the_same
     assert (from_cli.kind, from_cli.backend, from_cli.rig_identity) == (from_window.kind, from_window.backend,
                                                                         from_window.rig_identity)
     assert out.stdout.splitlines()[0] == panel.last_outcome.lines[0]     # the same words, too
+
+
+def test_the_window_and_the_command_line_call_the_same_service_functions(qtbot, panel_window, rig_copy, tmp_path,
+                                                                        monkeypatch):
+    from app.cli import main
+    from app.services import commissioning as svc
+
+    calls: dict[str, list[str]] = {}
+    for name in ("measure_dark", "fit_hot_wire", "status"):
+        real = getattr(svc, name)
+
+        def spy(*args, _real=real, _name=name, **kwargs):
+            calls.setdefault(_name, []).append("called")
+            return _real(*args, **kwargs)
+
+        monkeypatch.setattr(svc, name, spy)
+    U = np.linspace(0.5, 10.0, 8)
+    table = tmp_path / "wire.csv"
+    table.write_text("voltage_v,velocity_m_s\n" + "".join(f"{np.sqrt(1.6 + 0.9 * u ** 0.47):.6f},{u:.4f}\n"
+                                                           for u in U))
+    cli_record = str(tmp_path / "cli.commissioning.toml")
+    for args in (["dark", "--fast", "--duration", "0.5 s"], ["hot-wire", "--table", str(table)], ["status"]):
+        assert main(["commission", args[0], str(rig_copy), "--commissioning-record", cli_record, *args[1:]]) == 0
+    assert {k: len(v) for k, v in calls.items()} == {"measure_dark": 1, "fit_hot_wire": 1, "status": 1}
+    win, panel = panel_window, panel_window.commissioning
+    _run(qtbot, win, panel.dark_button.click)
+    panel.table.setText(str(table))
+    _run(qtbot, win, panel.hot_wire_button.click)
+    assert len(calls["measure_dark"]) == 2 and len(calls["fit_hot_wire"]) == 2 and len(calls["status"]) >= 2
+    assert read_record(cli_record).latest("hot-wire").result["a_v2"] == _newest(rig_copy).result["a_v2"]

@@ -226,6 +226,8 @@ class CommissioningPanel(QWidget):
         self.status_caption = QLabel()
         self.status_caption.setWordWrap(True)
         self.status_table = self._table(("check", "newest (UTC)", "age"))
+        self.status_table.setMinimumHeight(self._rows_height(self.status_table, len(svc.STATUS_KINDS)))  # all, whole
+        self.results.setMinimumHeight(self._rows_height(self.results, 4))
         self.to_do = QLabel()
         self.to_do.setWordWrap(True)
         # one plot at a time in a narrow window: side by side they would set its minimum width
@@ -237,7 +239,7 @@ class CommissioningPanel(QWidget):
                                         "response − mean (%)", "position")
         self.plot_tabs.addTab(self.linearity_widget, "Linearity")
         self.plot_tabs.addTab(self.uniformity_widget, "Uniformity")
-        self.plot_tabs.setMinimumHeight(170)
+        self.plot_tabs.setMinimumHeight(150)
         result_box = self._box([self.message, self.results], stretch_last=True)
         status_box = self._box([self.status_caption, self.status_table, self.to_do], stretch_at=1)
         right = QSplitter(Qt.Orientation.Vertical)
@@ -300,6 +302,10 @@ class CommissioningPanel(QWidget):
         for x in widgets:
             lay.addWidget(x, 1 if isinstance(x, QLineEdit) else 0)
         return w
+
+    @staticmethod
+    def _rows_height(table: QTableWidget, rows: int) -> int:
+        return table.horizontalHeader().sizeHint().height() + rows * table.verticalHeader().defaultSectionSize() + 10
 
     @staticmethod
     def _table(headers: tuple[str, ...]) -> QTableWidget:
