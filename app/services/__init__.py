@@ -9,7 +9,8 @@ worker thread and shows the results. Neither front end opens the index itself.
 Modules: ``runs`` (open, review), ``decisions`` (accept/reject), ``reacquire`` (check the
 choice, report which attempt each point uses), ``reprocess``, ``export`` (export, compare,
 report, list), ``snapshots`` (checks before measuring into a run again), ``sweeps`` (the run
-writer a front end's sweep stores through), ``points`` (point numbers people write).
+writer a front end's sweep stores through), ``points`` (point numbers people write),
+``commissioning`` (the rig's commissioning checks and record, for ``commission`` and the window).
 
 Must not import Qt, pyqtgraph, ``app.ui``, ``app.cli`` or ``app.commands``.
 """

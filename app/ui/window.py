@@ -353,6 +353,7 @@ class MainWindow(ReviewActions, QMainWindow):
 
         Works while the sweep is still being opened, too (the engine then never starts).
         False when no sweep runs (nothing is driven)."""
+        self.commissioning.stop_recording(why)     # a commissioning recording (drive at zero) ends too
         session = self.session
         if session is None or not self.running():
             self._say("No sweep is running: nothing is driven.")

@@ -155,3 +155,24 @@ def test_hot_wire_table_and_bad_inputs(rig: Path, tmp_path: Path):
     broken.write_text("format = 'flamebode-commissioning'\nformat_version = 1\n[[check]\n")
     out = run_cli("commission", "status", str(rig))
     assert out.returncode == 2 and str(broken) in out.stderr and "Traceback" not in out.stderr
+
+
+@pytest.mark.timeout(120)
+def test_a_stop_signal_ends_a_recording_and_stores_nothing(rig: Path):
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    proc = subprocess.Popen([sys.executable, "-m", "app.cli", "commission", "dark", str(rig), "--duration", "60 s"],
+                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 60
+    line = ""
+    while "caution" not in line and time.monotonic() < deadline:      # the recording is about to start
+        line = proc.stderr.readline()
+    time.sleep(2.0)
+    proc.send_signal(signal.SIGINT)
+    out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 2, err[-2000:]
+    assert "SIGINT received: stopped, nothing recorded" in err and "Traceback" not in err
+    assert read_record(record_path_for(rig)).checks == ()

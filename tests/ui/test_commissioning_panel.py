@@ -232,6 +232,12 @@ def test_stop_recording_ends_the_check_and_stores_nothing(qtbot, panel_window, r
     _settle(qtbot, win)
     assert "stopped in the window: stopped, nothing recorded" in _said(panel)
     assert read_record(record_path_for(rig_copy)).checks == ()
+    panel.dark_button.click()                 # the emergency halt ends a recording too
+    qtbot.wait(300)
+    win.halt_button.click()
+    _settle(qtbot, win)
+    assert "emergency halt in the window: stopped, nothing recorded" in _said(panel)
+    assert read_record(record_path_for(rig_copy)).checks == ()
 
 
 @pytest.mark.timeout(300)
