@@ -218,7 +218,7 @@ def test_the_buttons_wait_while_a_sweep_or_a_check_runs(qtbot, panel_window):
     panel.record_dark()                       # asked anyway (a shortcut, a script): refused in words
     assert "A sweep is running" in _said(panel) and not panel.busy
     qtbot.waitUntil(lambda: win.sweeps_closed >= 1, timeout=120_000)
-    assert all(b.isEnabled() for b in panel.buttons)
+    assert all(b.isEnabled() for b in panel.buttons) and "The sweep has ended" in _said(panel)
 
 
 @pytest.mark.timeout(240)

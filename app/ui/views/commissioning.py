@@ -241,7 +241,7 @@ class CommissioningPanel(QWidget):
         self.plot_tabs.addTab(self.uniformity_widget, "Uniformity")
         self.plot_tabs.setMinimumHeight(150)
         result_box = self._box([self.message, self.results], stretch_last=True)
-        status_box = self._box([self.status_caption, self.status_table, self.to_do], stretch_at=1)
+        status_box = self._box([self.status_caption, self.to_do, self.status_table], stretch_last=True)
         right = QSplitter(Qt.Orientation.Vertical)
         right.setObjectName("commissioning-right")
         for w in (result_box, status_box, self.plot_tabs):
@@ -250,10 +250,16 @@ class CommissioningPanel(QWidget):
         right.setStretchFactor(1, 3)
         right.setStretchFactor(2, 2)
         right.setChildrenCollapsible(False)
+        # the results scroll in a window smaller than they need, so the window keeps its own minimum size
+        right_scroll = QScrollArea()
+        right_scroll.setWidget(right)
+        right_scroll.setWidgetResizable(True)
+        right_scroll.setFrameShape(QFrame.Shape.NoFrame)
+        right_scroll.setMinimumWidth(200)
         split = QSplitter()
         split.setObjectName("commissioning-split")
         split.addWidget(scroll)
-        split.addWidget(right)
+        split.addWidget(right_scroll)
         split.setStretchFactor(0, 2)
         split.setStretchFactor(1, 3)
         split.setChildrenCollapsible(False)
@@ -344,8 +350,11 @@ class CommissioningPanel(QWidget):
             b.setEnabled(free)
         self.choose_table.setEnabled(free)
         self.stop_button.setEnabled(self.busy and self._stop is not None)
+        waiting = "A sweep is running: the commissioning checks wait until it has ended."
         if self.sweep_running and not self.busy:
-            self.message.setText("A sweep is running: the commissioning checks wait until it has ended.")
+            self.message.setText(waiting)
+        elif "A sweep is running" in self.message.text():
+            self.message.setText("The sweep has ended: the checks can run again.")
 
     def stop_recording(self, why: str) -> None:
         """End a recording at its next block (nothing is stored); any thread may have asked."""
