@@ -13,11 +13,13 @@ Convention (e^{+iωt}, PEAK amplitudes, t = n/fs from the first sample):
 The fit
     Ordinary least squares on the regressors [1, cos kωt, sin kωt] (k = 1..K), exact
     for any (non-integer) number of periods; over an integer number of periods it
-    reduces to a = (2/N) Σ x[n] e^{-iωnΔt}. The record is cut into equal segments;
-    one batched matrix product projects every segment of every channel onto a small
-    local template (the regressors with time restarted at the segment start); the
-    segment projections are rotated to the common time origin and summed, and the
-    Gram matrix is assembled the same way. A (2K+1)×(2K+1) solve then serves all
+    reduces to a = (2/N) Σ x[n] e^{-iωnΔt}. The record is cut into equal segments, and
+    those into halves; one matrix product per channel projects every half onto the first
+    half of a small local template (the regressors with time restarted at the segment
+    start) and of the Hann-tapered fit below, the second halves' projections following by
+    a fixed rotation (see ``_segment_projections``); the segment projections are rotated
+    to the common time origin and summed, and the Gram matrix is assembled the same way.
+    The products run on one BLAS thread (``app.core.blas``). A (2K+1)×(2K+1) solve then serves all
     channels. Harmonics at or within one resolution bin (1/T) of fs/2 cannot be told
     apart from their aliases: they are left out of the fit and reported as NaN.
 
@@ -54,11 +56,13 @@ engine or storage.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 from scipy import optimize
+
+from .blas import one_blas_thread
 
 MIN_SAMPLES = 16
 MIN_PERIODS = 2.0
@@ -109,6 +113,11 @@ def fit_harmonics(x: np.ndarray, sample_rate_hz: float, freq_hz: float, n_harmon
     ``x`` is (n_ch, n) or (n,). Raises ValueError with a plain message for non-finite
     samples, a record shorter than 16 samples or 2 periods, or f not below fs/2.
     """
+    with one_blas_thread():
+        return _fit_harmonics(x, sample_rate_hz, freq_hz, n_harmonics)
+
+
+def _fit_harmonics(x: np.ndarray, sample_rate_hz: float, freq_hz: float, n_harmonics: int) -> HarmonicFit:
     data = _as_channels(x)
     n_ch, n = data.shape
     fs, f = float(sample_rate_hz), float(freq_hz)
@@ -117,22 +126,19 @@ def fit_harmonics(x: np.ndarray, sample_rate_hz: float, freq_hz: float, n_harmon
     orders = _fitted_orders(f, fs, n, n_harm)
     cycles = f / fs
     seg = _segmentation(n, cycles)
-    template = _template(np.arange(seg.length), cycles, orders)
+    template = _template(0, seg.length, cycles, orders)
     hann = 0.5 - 0.5 * np.cos(2.0 * np.pi * (np.arange(seg.length) + 0.5) / seg.length)
     n_par = template.shape[1]
 
-    sum_sq = np.einsum("ij,ij->i", data, data)
+    with np.errstate(over="ignore", invalid="ignore"):               # judged by _check_finite
+        sum_sq = np.array([np.dot(row, row) for row in data])
     _check_finite(data, sum_sq)
     tapered = template[:, :3] * hann[:, None]                      # Hann fit: offset, cos, sin
-    views = sliding_window_view(data, seg.length, axis=1)[:, ::seg.hop][:, :seg.count].transpose(1, 0, 2)
-    even = views[0::2] @ np.concatenate([template, tapered], axis=1)   # (n_full, n_ch, P + 3)
-    hann_proj = np.empty((seg.count, n_ch, 3))
-    hann_proj[0::2] = even[:, :, n_par:]
-    hann_proj[1::2] = views[1::2] @ tapered
+    even, hann_proj = _segment_projections(data, seg, template, tapered, cycles, orders)
 
     rot = _rotations(np.arange(seg.count) * seg.hop, cycles, orders)   # (count, P, P)
     rot_full = rot[0::2]
-    tail = _template(np.arange(seg.n_full * seg.length, n), cycles, orders)
+    tail = _template(seg.n_full * seg.length, n, cycles, orders)
     b = np.einsum("scp,spq->cq", even[:, :, :n_par], rot_full) + data[:, seg.n_full * seg.length:] @ tail
     gram = np.einsum("spq,pr,srt->qt", rot_full, template.T @ template, rot_full) + tail.T @ tail
     gram_inv = np.linalg.inv(gram)
@@ -176,11 +182,11 @@ def _noise(hann_proj: np.ndarray, rot: np.ndarray, beta: np.ndarray, template: n
     local = template[:, :3]
     gram_h_inv = np.linalg.inv(local.T @ (local * hann[:, None]))
     cross = gram_h_inv @ (local * hann[:, None]).T @ template          # (3, P): A_s D_s = cross R_s
-    model = np.einsum("cq,spq,rp->scr", beta, rot, cross)               # full fit seen by each segment
-    scatter = (hann_proj @ gram_h_inv - model)[..., 1:3]
+    seen = cross @ rot                                                  # (count, 3, P)
+    model = np.matmul(seen[:, None, 1:3, :], beta[None, :, :, None])[..., 0]   # full fit seen by each segment
+    scatter = (hann_proj @ gram_h_inv[:, 1:3]) - model                 # (count, n_ch, 2): cos, sin
     sum_sq = np.sum(scatter**2, axis=(0, 2))                           # (n_ch,)
     cov_seg = gram_h_inv @ (local.T @ (local * (hann**2)[:, None])) @ gram_h_inv
-    seen = cross @ rot                                                  # (count, 3, P)
     cov_cross = seen @ gram_inv @ seen.transpose(0, 2, 1)
     kappa_seg = cov_seg[1, 1] + cov_seg[2, 2]
     kappa_cross = cov_cross[:, 1, 1] + cov_cross[:, 2, 2]
@@ -243,13 +249,63 @@ def _assemble(beta: np.ndarray, orders: np.ndarray, n_harm: int, var_amp: np.nda
                        noise_dof=float("inf") if cov is None else cov[2])
 
 
-def _template(n_idx: np.ndarray, cycles: float, orders: np.ndarray) -> np.ndarray:
-    """Regressors [1, cos kωn, sin kωn ...] at sample indices ``n_idx`` (phase reduced mod 1)."""
-    phase = 2.0 * np.pi * np.mod(np.outer(n_idx, orders * cycles), 1.0)
-    out = np.empty((n_idx.size, 1 + 2 * orders.size))
+def _segment_projections(data: np.ndarray, seg: _Segments, template: np.ndarray, tapered: np.ndarray,
+                         cycles: float, orders: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(even, hann_proj): every non-overlapping segment on the template, (n_full, n_ch, P), and
+    every half-overlapping segment on the Hann-tapered local fit, (count, n_ch, 3).
+
+    One pass over the samples, in half-segments of ``hop`` samples, each projected onto the
+    first half of the template and of the tapered fit only (time restarts at each segment, so
+    these columns do not depend on where a half lies). The second halves follow exactly:
+    template[hop + r] = template[r] R_hop (the rotation by the phase at hop), and the Hann
+    window's second half is one minus its first, hann[hop + r] = 1 − hann[r], so
+    tapered[hop + r] = (template₃[r] − tapered[r]) R₃. Half 2s and 2s + 1 make non-overlapping
+    segment s; halves j and j + 1 make Hann segment j. A last Hann segment reaching into the
+    tail is projected on its own.
+    """
+    hop, n_par, n_ch = seg.hop, template.shape[1], data.shape[0]
+    halves_n = 2 * seg.n_full
+    blocks = data[:, :halves_n * hop].reshape(n_ch, halves_n, hop)
+    columns = np.concatenate([template[:hop], tapered[:hop]], axis=1)
+    # columnsᵀ @ blocksᵀ: the same product, laid out as OpenBLAS runs fastest for these thin shapes
+    half = np.matmul(columns.T, blocks.transpose(0, 2, 1)).transpose(2, 0, 1)   # (halves, n_ch, P + 3)
+    on_template, on_taper = half[:, :, :n_par], half[:, :, n_par:]       # (halves, n_ch, P) and (…, 3)
+    rot = _rotations(np.array([hop]), cycles, orders)[0]
+    even = on_template[0::2] + on_template[1::2] @ rot
+    second = (on_template[:, :, :3] - on_taper) @ rot[:3, :3]            # each half as a second half
+    hann_proj = np.empty((seg.count, n_ch, 3))
+    inside = min(seg.count, halves_n - 1)                                 # segments within the halves
+    hann_proj[:inside] = on_taper[:inside] + second[1:inside + 1]
+    if seg.count > inside:
+        start = inside * hop
+        tail = data[:, start:start + (seg.count - inside) * seg.length].reshape(n_ch, seg.count - inside, -1)
+        hann_proj[inside:] = np.matmul(tapered.T, tail.transpose(0, 2, 1)).transpose(2, 0, 1)
+    return even, hann_proj
+
+
+def _template(start: int, stop: int, cycles: float, orders: np.ndarray) -> np.ndarray:
+    """Regressors [1, cos kωn, sin kωn ...] at sample indices n = start..stop-1.
+
+    e^{iωn} is built as e^{iω(start + jm)}·e^{iωr} for n = start + jm + r (0 ≤ r < m ≈ √count),
+    two short exponentials (phases reduced mod 1) and one outer product, and the harmonics as
+    its powers: accurate to a few ulp, a fraction of the cost of cos and sin of every phase.
+    """
+    count = max(stop - start, 0)
+    out = np.empty((count, 1 + 2 * orders.size))
     out[:, 0] = 1.0
-    out[:, 1::2] = np.cos(phase)
-    out[:, 2::2] = np.sin(phase)
+    if count == 0:
+        return out
+    m = max(int(np.sqrt(count)), 1)
+    rows = -(-count // m)
+    coarse = np.exp(2j * np.pi * np.mod((start + m * np.arange(rows)) * cycles, 1.0))
+    fine = np.exp(2j * np.pi * np.mod(np.arange(m) * cycles, 1.0))
+    first = np.multiply.outer(coarse, fine).reshape(-1)[:count]
+    power, k = first, 1
+    for i, order in enumerate(orders):
+        while k < order:
+            power, k = power * first, k + 1
+        out[:, 1 + 2 * i] = power.real
+        out[:, 2 + 2 * i] = power.imag
     return out
 
 
@@ -337,7 +393,7 @@ def _check_finite(data: np.ndarray, sum_sq: np.ndarray) -> None:
                      "(sum of squares overflows)")
 
 
-COARSE_SAMPLES = 1 << 16      # samples of the coarse FFT search (the start of the record)
+COARSE_SAMPLES = 1 << 15      # samples of the coarse FFT search (the start of the record)
 BLOCK_MIN_PERIODS = 8.0       # each refinement block holds at least this many periods
 MAX_BLOCKS = 64
 
@@ -365,14 +421,15 @@ def estimate_frequency(x: np.ndarray, sample_rate_hz: float, f_min_hz: float = 1
         raise ValueError(f"search band {f_min_hz:g}..{f_max:g} Hz must lie within 0..{fs / 2.0:g} Hz")
     head = sig[:min(n, COARSE_SAMPLES)]
     bin_hz = fs / head.size
-    spectrum = np.abs(np.fft.rfft((head - head.mean()) * np.hanning(head.size)))
+    spectrum = np.abs(np.fft.rfft((head - head.mean()) * _hann_window(head.size)))
     lo = max(int(np.ceil(f_min_hz / bin_hz)), 1)
     hi = min(int(np.floor(f_max / bin_hz)), spectrum.size - 2)
     if hi < lo:
         raise ValueError(f"search band {f_min_hz:g}..{f_max:g} Hz holds no frequency bin of a {head.size}-sample record")
     k = lo + int(np.argmax(spectrum[lo:hi + 1]))
     coarse = (k + _hann_offset(spectrum, k)) * bin_hz
-    refined = _block_phase_refine(sig, fs, coarse)
+    with one_blas_thread():
+        refined = _block_phase_refine(sig, fs, coarse)
     if refined is not None and abs(refined - coarse) <= bin_hz:
         return refined
     full_bin = fs / n
@@ -393,14 +450,14 @@ def _block_phase_refine(sig: np.ndarray, fs: float, coarse_hz: float) -> float |
     if count < 4:
         return None
     length = n // count
-    arg = 2.0 * np.pi * np.mod(coarse_hz / fs * np.arange(length), 1.0)
-    window = np.hanning(length)
-    w_cos, w_sin = window * np.cos(arg), -window * np.sin(arg)           # Hann-weighted e^{-iωn}
+    weights = _template(0, length, coarse_hz / fs, np.array([1])).T    # 1, cos ωn, sin ωn
+    weights[1:] *= _hann_window(length)
+    weights[2] *= -1.0                                                  # 1, Hann-weighted e^{-iωn}
     blocks = sig[:count * length].reshape(count, length)
-    means = blocks.mean(axis=1)                                         # each block's offset removed
-    # einsum's own loop: a product this thin gains nothing from (and can stall in) a threaded BLAS
-    phasors = (np.einsum("kl,l->k", blocks, w_cos) - means * w_cos.sum()
-               + 1j * (np.einsum("kl,l->k", blocks, w_sin) - means * w_sin.sum()))
+    sums = weights @ blocks.T                                           # one pass (one BLAS thread: caller)
+    means = sums[0] / length                                            # each block's offset removed
+    w_cos, w_sin = weights[1].sum(), weights[2].sum()
+    phasors = (sums[1] - means * w_cos) + 1j * (sums[2] - means * w_sin)
     # Remove the coarse frequency's rotation between block starts, then follow the phase.
     phasors *= np.exp(-2j * np.pi * np.mod(coarse_hz / fs * length * np.arange(count), 1.0))
     power = np.abs(phasors) ** 2
@@ -418,6 +475,14 @@ def _block_phase_refine(sig: np.ndarray, fs: float, coarse_hz: float) -> float |
     return float(coarse_hz + slope / (2.0 * np.pi))
 
 
+@functools.lru_cache(maxsize=8)
+def _hann_window(size: int) -> np.ndarray:
+    """np.hanning(size), computed once per size (read-only)."""
+    window = np.hanning(size)
+    window.flags.writeable = False
+    return window
+
+
 def _hann_offset(spectrum: np.ndarray, k: int) -> float:
     """Bin offset of a tone from peak bin k under a Hann window (two-bin interpolation)."""
     left, right = spectrum[k - 1], spectrum[k + 1]
@@ -430,7 +495,7 @@ def _hann_offset(spectrum: np.ndarray, k: int) -> float:
 
 def _explained_power(sig: np.ndarray, cycles: float) -> float:
     """bᵀG⁻¹b of a cos/sin/offset least-squares fit at ``cycles`` per sample."""
-    design = _template(np.arange(sig.size), cycles, np.array([1]))
+    design = _template(0, sig.size, cycles, np.array([1]))
     b = sig @ design
     return float(b @ np.linalg.solve(design.T @ design, b))
 
