@@ -349,9 +349,10 @@ def decompose(
     if sigma is not None:
         cov = inflation * (estimator @ sigma @ estimator.conj().T)
 
-    in_band = {
-        (i, j): pair_in_band(freq_hz, x[j] - x[i], medium) for i, j in combinations(range(n), 2)
-    }
+    pairs = list(combinations(range(n), 2))
+    first, second = np.array(pairs).T
+    pair_ks = _pair_ks(freq_hz, x[second] - x[first], medium)          # as pair_in_band, all pairs at once
+    in_band = dict(zip(pairs, ((BAND_LOW_KS < pair_ks) & (pair_ks < BAND_HIGH_KS)).tolist()))
     x_ro, p_ro = x.copy(), p.copy()
     x_ro.flags.writeable = False
     p_ro.flags.writeable = False

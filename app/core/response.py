@@ -107,15 +107,17 @@ def channel_covariance(fit: HarmonicFit) -> PhasorCovariance:
     return PhasorCovariance(np.asarray(matrix, dtype=complex), float(fit.noise_dof))
 
 
-def _velocity_from_fit(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow,
-                       medium: Medium, harmonic: int = 1, generalised: bool = True
-                       ) -> tuple[complex, float, WaveFit, np.ndarray]:
-    """û_ref, its variance, the wave fit and the row r with δû_ref = r·δa over all channels.
+@dataclass(frozen=True)
+class _Pressures:
+    """A fit's calibrated sensor pressures at one harmonic, with what the plane-wave fit weighs them by."""
 
-    At the forcing frequency the pressures' full noise covariance goes into the plane-wave fit
-    (generalised least squares when it is well estimated and ``generalised``); r includes the fit's inflation for
-    weights estimated from the same noise, so var = r Σ r̄ᵀ. At harmonics only û is wanted.
-    """
+    p_hat: np.ndarray                  # calibrated complex pressures, Pa
+    scale: np.ndarray                  # volts → calibrated pascals, per sensor
+    noise_cov: np.ndarray | None       # their noise covariance, Pa² (forcing frequency only)
+    sys_var: np.ndarray | None         # each sensor's stated calibration error variance, Pa²
+
+
+def _pressures(fit: HarmonicFit, prep: _Prepared, rig: Rig, harmonic: int = 1) -> _Pressures:
     freq = fit.freq_hz * harmonic
     corr = np.array([s.correction(freq) for s in rig.pressure_sensors])
     if harmonic == 1:
@@ -131,9 +133,26 @@ def _velocity_from_fit(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.Me
         u_cal = np.array([s.calibration_uncertainty(freq) for s in rig.pressure_sensors])
         if np.any(u_cal > 0):   # each sensor's stated calibration error variance, E|δp_i|² = |p_i|²(u_g² + u_φ²)
             sys_var = np.abs(p_hat) ** 2 * np.sum(u_cal**2, axis=1)
-    wf = decompose(p_hat, prep.positions_m, freq, rig.duct.radius_m, medium,
-                   weights=prep.weights, noise_cov=noise_cov, noise_dof=fit.noise_dof, generalised=generalised,
-                   systematic_var=sys_var)
+    return _Pressures(p_hat, scale, noise_cov, sys_var)
+
+
+def _velocity_from_fit(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: gas.MeanFlow,
+                       medium: Medium, harmonic: int = 1, generalised: bool = True,
+                       pressures: _Pressures | None = None) -> tuple[complex, float, WaveFit, np.ndarray]:
+    """û_ref, its variance, the wave fit and the row r with δû_ref = r·δa over all channels.
+
+    At the forcing frequency the pressures' full noise covariance goes into the plane-wave fit
+    (generalised least squares when it is well estimated and ``generalised``); r includes the fit's inflation for
+    weights estimated from the same noise, so var = r Σ r̄ᵀ. At harmonics only û is wanted.
+    ``pressures`` (from ``_pressures`` of the same fit, harmonic and sensors) saves recomputing them
+    when only the geometry or the gas changes.
+    """
+    freq = fit.freq_hz * harmonic
+    pr = _pressures(fit, prep, rig, harmonic) if pressures is None else pressures
+    wf = decompose(pr.p_hat, prep.positions_m, freq, rig.duct.radius_m, medium,
+                   weights=prep.weights, noise_cov=pr.noise_cov, noise_dof=fit.noise_dof, generalised=generalised,
+                   systematic_var=pr.sys_var)
+    scale = pr.scale
     u_ref, var_u = velocity_at_reference(wf, rig.duct.reference_plane, rig.duct.area_ratio)
     row = np.zeros(fit.amplitude.size, dtype=complex)
     row[prep.pressure_rows] = (np.sqrt(wf.variance_inflation) * rig.duct.area_ratio
@@ -159,6 +178,7 @@ def _systematic_directions(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: ga
     (JCGM 100:2008 §5.1.2), not |δ|²/2 each.
     """
     shifts: list[tuple[str, complex]] = []
+    pressures = _pressures(fit, prep, rig)          # the same calibrated pressures under every shift
     d_t = rig.gas.temperature_uncertainty
     if d_t > 0:
         g = rig.gas
@@ -166,14 +186,14 @@ def _systematic_directions(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: ga
         warm = rig.model_copy(update={"gas": g.model_copy(update={"temperature": g.temperature + d_t,
                                                                     "temperature_at_reference": t_ref})})
         mean_w = gas.mean_flow(warm)
-        u_w = _velocity_from_fit(fit, prep, warm, mean_w, medium_from(mean_w))[0]
+        u_w = _velocity_from_fit(fit, prep, warm, mean_w, medium_from(mean_w), pressures=pressures)[0]
         shifts.append(("gas temperature", u_w / mean_w.velocity_reference_m_s - vel_ratio))
     medium = medium_from(mean)
     for i, sensor in enumerate(rig.pressure_sensors):
         if sensor.position_uncertainty > 0:
             moved = prep.positions_m.copy()
             moved[i] += sensor.position_uncertainty
-            u_m = _velocity_from_fit(fit, replace(prep, positions_m=moved), rig, mean, medium)[0]
+            u_m = _velocity_from_fit(fit, replace(prep, positions_m=moved), rig, mean, medium, pressures=pressures)[0]
             shifts.append((f"{sensor.channel} position", u_m / mean.velocity_reference_m_s - vel_ratio))
     if wf is not None:
         # δû/ū per unit relative change of each calibrated pressure: r_i p_i / ū
@@ -195,7 +215,7 @@ def _systematic_directions(fit: HarmonicFit, prep: _Prepared, rig: Rig, mean: ga
             flows[i] = meter.model_copy(update={"flow": meter.flow * (1.0 + meter.relative_uncertainty)})
             high = rig.model_copy(update={"gas": g.model_copy(update={"flows": tuple(flows)})})
             mean_h = gas.mean_flow(high)
-            u_h = _velocity_from_fit(fit, prep, high, mean_h, medium_from(mean_h))[0]
+            u_h = _velocity_from_fit(fit, prep, high, mean_h, medium_from(mean_h), pressures=pressures)[0]
             shifts.append((f"flow meter {meter.name}", u_h / mean_h.velocity_reference_m_s - vel_ratio))
     return tuple(shifts)
 
