@@ -60,6 +60,7 @@ import functools
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.fft
 from scipy import optimize
 
 from .blas import one_blas_thread
@@ -421,7 +422,7 @@ def estimate_frequency(x: np.ndarray, sample_rate_hz: float, f_min_hz: float = 1
         raise ValueError(f"search band {f_min_hz:g}..{f_max:g} Hz must lie within 0..{fs / 2.0:g} Hz")
     head = sig[:min(n, COARSE_SAMPLES)]
     bin_hz = fs / head.size
-    spectrum = np.abs(np.fft.rfft((head - head.mean()) * _hann_window(head.size)))
+    spectrum = np.abs(scipy.fft.rfft((head - head.mean()) * _hann_window(head.size)))
     lo = max(int(np.ceil(f_min_hz / bin_hz)), 1)
     hi = min(int(np.floor(f_max / bin_hz)), spectrum.size - 2)
     if hi < lo:
