@@ -20,6 +20,18 @@ duct's cross-section, convention x(t) = Re{x̂ e^{+iωt}}:
   but not by the wall pressures, which the plane-wave fit keeps to acoustic waves (common
   practice), so γ² falls, and a disturbance locked to the forcing shows as a difference instead.
 
+Carried to the reference plane (``carry_to_reference``): where the wire sits in the sensor duct
+(between its upstream end and the reference plane) and not near a velocity node, the plane-wave
+field gives the transfer T = û_ref/û(x_hw) (the reference plane's û as the point reports it,
+area change included), and û_hw·T/ū_ref is the hot-wire's own u'/ū at the reference plane, to
+set beside the multi-microphone one the drive was tuned to. Its relative error is
+δû_hw/û_hw + δT/T, the two independent: the wire's noise and stated calibration, and T's from
+the sensors' noise (δT/T = (g_ref/û_ref − g_x/û_x)·δa through the wave amplitudes' covariance),
+their stated calibrations and the wire's stated position. Near a velocity node
+(|û(x_hw)| < NODE_FRACTION·|û(x_ref)| in the sensor duct) T would multiply the wire's errors
+several times, and outside the sensor duct the fitted field does not describe the wire's
+place: there the wire is compared at its own position only, and a note says why.
+
 The samples where the voltage falls below the zero-flow voltage (E² < A, a flow reversal at the
 wire, which a single wire cannot tell from forward flow) are counted (``below_zero_flow``) and
 read as zero velocity.
@@ -38,6 +50,7 @@ from ..errors import RecordError
 from .harmonic import fit_harmonics
 
 N_SEGMENTS = 16            # segments for the coherence (a γ² estimate from K segments is biased by ~1/K)
+NODE_FRACTION = 0.25       # below it the wire is too near a velocity node to carry its reading (judgement)
 COHERENCE_MIN = 0.8        # below it the wire sees much that the sound field does not (judgement)
 DIFFERENCE_Z_MAX = 3.0     # beyond it the two velocities disagree beyond their uncertainty
 
@@ -50,6 +63,8 @@ FIGURE_LABELS = {
     "hotwire_diff_z": ("hot-wire difference over its standard error", ""),
     "hotwire_coherence": ("hot-wire coherence with the multi-microphone velocity (γ²)", ""),
     "hotwire_mean_velocity_m_s": ("hot-wire mean velocity", "m/s"),
+    "hotwire_velocity_ratio": ("hot-wire |u'|/ū carried to the reference plane", ""),
+    "hotwire_velocity_ratio_ci95": ("its 95 % half-width", ""),
     "hotwire_below_zero_flow": ("hot-wire samples below its zero-flow voltage", ""),
 }
 
@@ -131,6 +146,42 @@ class HotWireCheck:
         return tuple(out)
 
 
+@dataclass(frozen=True)
+class CarriedVelocity:
+    """The hot-wire's û over ū at the reference plane, through the plane-wave field's transfer."""
+
+    velocity_ratio: complex     # û_hw T / ū_ref
+    gain_var_rel: float         # relative variance of |velocity_ratio|
+    phase_var: float            # variance of its phase, rad²
+
+    @property
+    def ratio_ci95(self) -> float:
+        """95 % half-width of |û_hw T|/ū_ref (first order, normal coverage factor)."""
+        return float(1.959963984540054 * abs(self.velocity_ratio) * np.sqrt(self.gain_var_rel))
+
+    def figures(self) -> dict[str, float]:
+        return {"hotwire_velocity_ratio": float(abs(self.velocity_ratio)), "hotwire_velocity_ratio_ci95": self.ratio_ci95}
+
+
+def carry_to_reference(check: HotWireCheck, transfer: complex, transfer_rel_var: float,
+                       transfer_rel_directions: tuple[complex, ...], mean_velocity_ref_m_s: float) -> CarriedVelocity:
+    """û_hw·T/ū_ref with its gain and phase variances.
+
+    ``transfer`` T = û_ref/û(x_hw) of the plane-wave fit; ``transfer_rel_var`` E|δT/T|² from the
+    sensors' noise; ``transfer_rel_directions`` the relative shifts δT/T for one standard
+    uncertainty of each stated input (sensor calibrations, the wire's position). The wire's noise
+    and T's are independent (circular: half to the gain, half to the phase); each systematic
+    direction goes in as Re² to the gain and Im² to the phase (JCGM 100:2008 §5.1.2).
+    """
+    u_hw = check.velocity_hotwire
+    if u_hw == 0 or transfer == 0 or not mean_velocity_ref_m_s > 0:
+        return CarriedVelocity(complex(np.nan, np.nan), float("inf"), float("inf"))
+    noise = 0.5 * (check.var_hotwire / abs(u_hw) ** 2 + transfer_rel_var)
+    rel = [d / u_hw for d in check.directions_hotwire] + list(transfer_rel_directions)
+    return CarriedVelocity(u_hw * transfer / mean_velocity_ref_m_s, noise + sum(r.real**2 for r in rel),
+                           noise + sum(r.imag**2 for r in rel))
+
+
 def velocity_from_voltage(voltage_v: np.ndarray, a_v2: float, b: float, n: float) -> tuple[np.ndarray, float]:
     """U = ((E² − A)/B)^(1/n) sample by sample, and the fraction of samples with E² < A (read as 0)."""
     q = (np.square(np.asarray(voltage_v, dtype=float)) - a_v2) / b
@@ -191,4 +242,4 @@ def cross_check(voltage_v: np.ndarray, velocity_mmm: complex, var_mmm: float, pr
                         float(fit.offset[0]), below, dirs_hw, tuple(complex(d) for d in directions_mmm))
 
 
-__all__ = ["FIGURE_LABELS", "HotWireCheck", "coherence", "cross_check", "segment_phasors", "velocity_from_voltage"]
+__all__ = ["FIGURE_LABELS", "NODE_FRACTION", "CarriedVelocity", "HotWireCheck", "carry_to_reference", "coherence", "cross_check", "segment_phasors", "velocity_from_voltage"]

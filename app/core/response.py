@@ -350,7 +350,8 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
     if text:
         warnings.append(text)
     if rig.hot_wire is not None:
-        hw_figures, hw_warnings = _hot_wire_check(arr, channels, sample_rate_hz, freq_hz, rig, prep, vel.wave_fit)
+        hw_figures, hw_warnings = _hot_wire_check(arr, channels, sample_rate_hz, freq_hz, rig, prep, vel.wave_fit,
+                                                  vel.mean_velocity_ref_m_s)
         figures.update(hw_figures)
         warnings.extend(hw_warnings)
     return FtfPoint(freq_hz=float(freq_hz), velocity=vel, light_ratio=light_ratio, ftf=complex(ftf),
@@ -361,7 +362,7 @@ def evaluate_point(data: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
 
 
 def _hot_wire_check(arr: np.ndarray, channels: Sequence[str], sample_rate_hz: float, freq_hz: float, rig: Rig,
-                    prep: _Prepared, wf: WaveFit) -> tuple[dict[str, float], tuple[str, ...]]:
+                    prep: _Prepared, wf: WaveFit, mean_velocity_ref_m_s: float) -> tuple[dict[str, float], tuple[str, ...]]:
     """The hot-wire cross-check's figures and warnings (``app.core.hotwire``): the wire's velocity
     against the plane-wave fit's at the wire's position, in the sensor duct (no area ratio). The
     multi-microphone side's systematic directions: each sensor's stated calibration and the wire's
@@ -395,7 +396,36 @@ def _hot_wire_check(arr: np.ndarray, channels: Sequence[str], sample_rate_hz: fl
                                     directions_mmm=tuple(dirs))
     except (ValueError, RecordError) as exc:
         return {}, (f"hot-wire cross-check not made: {exc}",)
-    return check.figures(), check.warnings(freq_hz)
+    carried, note = _hot_wire_at_reference(check, wf, rig, mean_velocity_ref_m_s, freq_hz)
+    return {**check.figures(), **carried}, check.warnings(freq_hz) + note
+
+
+def _hot_wire_at_reference(check: hotwire.HotWireCheck, wf: WaveFit, rig: Rig, mean_velocity_ref_m_s: float,
+                           freq_hz: float) -> tuple[dict[str, float], tuple[str, ...]]:
+    """The wire's u'/ū carried to the reference plane through the plane-wave field, where the
+    geometry allows (``app.core.hotwire``: in the sensor duct, not near a velocity node)."""
+    hw, duct = rig.hot_wire, rig.duct
+    assert hw is not None
+    x, x_ref = hw.position, duct.reference_plane
+    if not duct.upstream_end <= x <= x_ref:
+        return {}, (f"the hot-wire at x = {x:g} m lies outside the sensor duct ({duct.upstream_end:g} to "
+                    f"{x_ref:g} m): compared at its position only, not carried to the reference plane",)
+    u_x, u_r = wf.velocity_at(x), wf.velocity_at(x_ref)
+    if abs(u_x) < hotwire.NODE_FRACTION * abs(u_r):
+        return {}, (f"at {freq_hz:g} Hz the hot-wire sits near a velocity node (|û| there {abs(u_x) / abs(u_r):.2g} "
+                    f"of the reference plane's): compared at its position only, not carried to the reference plane",)
+    v = wf._g(x_ref) / u_r - wf._g(x) / u_x                  # δT/T = v·δa
+    var_t = float(np.real(v @ wf.cov_a @ np.conj(v)))
+    per_sensor = (v @ wf.estimator) * wf.pressures_pa        # δT/T per unit relative change of each pressure
+    dirs = []
+    for i, sensor in enumerate(rig.pressure_sensors):
+        u_g, u_p = sensor.calibration_uncertainty(freq_hz)
+        dirs += [complex(per_sensor[i] * u_g)] if u_g > 0 else []
+        dirs += [complex(1j * per_sensor[i] * u_p)] if u_p > 0 else []
+    if hw.position_uncertainty > 0:                            # T = û_ref/û(x): a moved wire changes û(x)
+        dirs.append(complex(u_x / wf.velocity_at(x + hw.position_uncertainty) - 1.0))
+    transfer = u_r * duct.area_ratio / u_x
+    return hotwire.carry_to_reference(check, transfer, var_t, tuple(dirs), mean_velocity_ref_m_s).figures(), ()
 
 
 def point_summary(point: FtfPoint) -> Mapping[str, object]:

@@ -38,7 +38,7 @@ CSV_COLUMNS = ("point", "attempt", "used", "freq_hz", "amplitude_ratio_target", 
 
 # the hot-wire cross-check's figures (app.core.hotwire), as columns when a run has them
 HOTWIRE_COLUMNS = ("hotwire_ratio", "hotwire_ratio_ci95", "hotwire_phase_diff_rad", "hotwire_phase_ci95_rad",
-                   "hotwire_diff_z", "hotwire_coherence")
+                   "hotwire_diff_z", "hotwire_coherence", "hotwire_velocity_ratio", "hotwire_velocity_ratio_ci95")
 
 UNITS = {
     "hotwire_ratio": "hot-wire velocity / multi-microphone velocity at the wire (1)",
@@ -47,6 +47,8 @@ UNITS = {
     "hotwire_phase_ci95_rad": "95 % half-width of hotwire_phase_diff_rad, rad",
     "hotwire_diff_z": "hot-wire difference over its standard error (1)",
     "hotwire_coherence": "coherence of the two velocities over the record's segments (1)",
+    "hotwire_velocity_ratio": "1 (the hot-wire's |u'|/u_mean carried to the reference plane; empty where not carried)",
+    "hotwire_velocity_ratio_ci95": "95 % half-width of hotwire_velocity_ratio (1)",
     "point": "point number in the plan, from 1",
     "attempt": "attempt number of the point, from 1 (the attempt used)",
     "used": "point/attempt used, e.g. 7/2",

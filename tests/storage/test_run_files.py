@@ -268,11 +268,14 @@ def test_hot_wire_figures_are_exported_as_columns_when_a_run_has_them(tmp_path: 
         q = {**ev.result.quality, "hotwire_ratio": 1.02 + 0.01 * p.index, "hotwire_ratio_ci95": 0.03,
              "hotwire_phase_diff_rad": -0.01, "hotwire_phase_ci95_rad": 0.02, "hotwire_diff_z": 0.7,
              "hotwire_coherence": 0.98}
+        if p is plan.points[0]:   # carried to the reference plane at the first point only (a node at the second)
+            q.update({"hotwire_velocity_ratio": 0.051, "hotwire_velocity_ratio_ci95": 0.002})
         events.append(dataclasses.replace(ev, result=dataclasses.replace(ev.result, quality=q)))
     write_run(tmp_path / "run", plan_file, plan, events)
     export_run(tmp_path / "run", tmp_path / "out", plots=False)
     df = pd.read_csv(tmp_path / "out" / "points.csv", keep_default_na=False)
     assert tuple(df.columns) == CSV_COLUMNS + HOTWIRE_COLUMNS
     assert list(df["hotwire_ratio"]) == pytest.approx([1.02, 1.03]) and list(df["hotwire_coherence"]) == [0.98] * 2
+    assert list(df["hotwire_velocity_ratio"].astype(str)) == ["0.051", ""]      # empty where not carried
     summary = json.loads((tmp_path / "out" / "summary.json").read_text())
     assert summary["points"][1]["hotwire_diff_z"] == 0.7 and "hotwire_ratio" in summary["units"]
