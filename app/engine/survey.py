@@ -133,7 +133,7 @@ class Survey:
         for p in points:
             e.stats.tuning_steps.append(len(history[0]))
         e._set_state(S.SETTLING)
-        left = int(round(plan.timing.settle * e._fs)) - e._since_settled
+        left = int(round(plan.timing.settle * e._fs)) - e._settled_samples()
         if left > 0:
             e._discard(left, S.SETTLING)
         e._set_state(S.RECORDING)

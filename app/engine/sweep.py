@@ -52,6 +52,7 @@ from .controller import AmplitudeController, ControllerSettings, Decision, Point
 from .events import (BlockAcquired, DriveChanged, EventBus, FaultRaised, PointSettled, SweepFinished,
                      SweepStarted, TransferMeasured, TuningStep, Notice)
 from .faults import FAULTS, Finding, SignalChecks, ended_action, fault_event
+from .ramp import DriveChange, settle_credit
 
 
 def integer_period_samples(freq_hz: float, sample_rate_hz: float, min_duration_s: float,
@@ -183,6 +184,8 @@ class SweepEngine:
         self._freq_hz = 0.0
         self._drive_v = 0.0
         self._since_settled = 0
+        self._change: DriveChange | None = None   # the last sine request, for the settle credit of its ramp
+        self._ramp_rate_v_per_s = float(rig.drive.ceiling) / float(rig.drive.ramp_time)
         self._overflows = 0
         self._point_index: int | None = None
         self._point_flags: list[str] = []
@@ -446,6 +449,7 @@ class SweepEngine:
             peak_v = float(self.drive.set_multisine(grid.period_samples, tuple(grid.harmonics),
                                                     tuple(float(a) for a in amplitudes_v),
                                                     tuple(float(p) for p in phases_rad)))
+            self._change = None          # a multi-sine's ramp earns no settle credit
             self._freq_hz, self._drive_v = grid.grid_hz, peak_v
             if peak_v > 0:
                 self._drive_on = True
@@ -631,10 +635,17 @@ class SweepEngine:
         return decision.drive_v
 
     def _settle(self, point: Any, drive_v: float) -> None:
-        """Wait the settle time since the drive reached its final value (the last window counts)."""
-        left = int(round(self.settle_time_s(point.freq_hz) * self._fs)) - self._since_settled
+        """Wait what is left of the settle time since the drive began its final approach (the ramp at the
+        new frequency, the rest of its last block and the last window count; see ``ramp.py``)."""
+        left = int(round(self.settle_time_s(point.freq_hz) * self._fs)) - self._settled_samples()
         if left > 0:
             self._discard(left, S.SETTLING)
+
+    def _settled_samples(self) -> int:
+        """Samples from the start of the drive's final approach to the next sample a take returns:
+        those read since, less the ones read but not yet taken (held back from the last block)."""
+        held = 0 if self._pending is None else self._pending.shape[1]
+        return max(0, self._since_settled - held)
 
     def _evaluate_record(self, point: Any, record: np.ndarray) -> FtfPoint | None:
         try:
@@ -733,7 +744,9 @@ class SweepEngine:
     def _set_drive(self, freq_hz: float, amplitude_v: float) -> None:
         with self._cmd.cond:
             self._raise_if_ending()
+            now = self.drive.drive_status()
             self.drive.set_drive(freq_hz, amplitude_v)
+            self._change = DriveChange(now.freq_hz, now.amplitude_v, freq_hz, amplitude_v)
             self._freq_hz, self._drive_v = freq_hz, amplitude_v
             if amplitude_v > 0:
                 self._drive_on = True
@@ -765,7 +778,7 @@ class SweepEngine:
     def _wait_drive_settled(self, stage: str, check_commands: bool = True) -> None:
         """Read (and publish) blocks until the back-end says the ramp is over."""
         limit = int((2.0 * self.rig.drive.ramp_time + 2.0) * self._fs)
-        waited = 0
+        waited = last = 0
         while True:
             status = self.drive.drive_status()
             if not status.ramping and math.isclose(status.amplitude_v, self._drive_v, abs_tol=1e-9):
@@ -773,8 +786,11 @@ class SweepEngine:
             if waited > limit:
                 raise _Fatal(fault_event("drive-not-answering", f"the drive did not reach {self._drive_v:.3g} V "
                                          f"within {limit / self._fs:.1f} s ({self._label()})", self._point_index))
-            waited += self._read_block(stage, check_commands).shape[1]
-        self._since_settled = 0
+            last = self._read_block(stage, check_commands).shape[1]
+            waited += last
+        # the ramp at the new frequency and the rest of its last block count as settling (ramp.py)
+        change, self._change = self._change, None
+        self._since_settled = settle_credit(change, waited, last, self._fs, self._ramp_rate_v_per_s)
 
     def _read_block(self, stage: str, check_commands: bool = True) -> np.ndarray:
         if check_commands:
