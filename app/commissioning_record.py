@@ -178,10 +178,17 @@ def append_check(path: str | Path, rig_name: str, check: Check) -> Record:
     return new
 
 
+# kinds whose result belongs to the rig's sensor set and duct (app.calibration_file.rig_identity):
+# made for other sensors, positions, sensitivities or another duct, they are not in force
+IDENTITY_BOUND = ("pressure-calibration",)
+
+
 def age_notes(record: Record, max_age_days: float, now: _dt.datetime | None = None,
-              needs: tuple[str, ...] = ("dark-offset", "light-linearity", "pressure-calibration")) -> list[str]:
+              needs: tuple[str, ...] = ("dark-offset", "light-linearity", "pressure-calibration"),
+              identity: str = "") -> list[str]:
     """What the pre-run checklist should say about the record: each needed check missing or older
-    than ``max_age_days``, in words."""
+    than ``max_age_days``, in words; with the rig's ``identity``, also a sensor-bound check made
+    for another sensor set or duct."""
     now = now or _dt.datetime.now(_dt.timezone.utc)
     words = {"dark-offset": "dark offset", "light-linearity": "light-chain linearity check",
              "pressure-calibration": "relative calibration of the pressure sensors",
@@ -191,6 +198,11 @@ def age_notes(record: Record, max_age_days: float, now: _dt.datetime | None = No
         c = record.latest(kind)
         if c is None:
             notes.append(f"no {words.get(kind, kind)} in {record.path.name}")
+            continue
+        if identity and kind in IDENTITY_BOUND and c.rig_identity and c.rig_identity != identity:
+            notes.append(f"the {words.get(kind, kind)} of {c.date} in {record.path.name} was made for another "
+                         f"sensor set or duct (channels, positions, sensitivities or radius differ since): "
+                         f"do it again")
             continue
         age = (now - c.when()).total_seconds() / 86400.0
         if age > max_age_days:

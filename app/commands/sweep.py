@@ -271,11 +271,14 @@ def _calibration_line(rig: Any) -> str:
 def commissioning_notes(rig_path: Path, rig: object, max_age_days: float = 30.0) -> list[str]:
     """What the rig's commissioning record says is missing or old (app.commissioning_record), or
     why it cannot be read; said before forcing on real hardware, never a reason to refuse."""
+    from ..calibration_file import rig_identity
     from ..commissioning_record import age_notes, read_record, record_path_for
     from ..errors import FlamebodeError
 
     try:
-        return age_notes(read_record(record_path_for(rig_path), getattr(rig, "name", "")), max_age_days)
+        identity = rig_identity(rig) if hasattr(rig, "pressure_sensors") else ""   # type: ignore[arg-type]
+        return age_notes(read_record(record_path_for(rig_path), getattr(rig, "name", "")), max_age_days,
+                         identity=identity)
     except FlamebodeError as exc:
         return [f"the commissioning record cannot be read: {exc}"]
 

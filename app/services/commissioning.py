@@ -376,7 +376,8 @@ def status(target: Target, max_age_days: float = 30.0) -> Status:
     record, rig = target.record, target.rig
     rows = tuple(StatusRow(k, c.date if (c := record.latest(k)) else None) for k in STATUS_KINDS)
     cal = str(getattr(rig, "pressure_calibration", "") or "")
-    to_do = tuple(age_notes(record, max_age_days))
+    from app.calibration_file import rig_identity
+    to_do = tuple(age_notes(record, max_age_days, identity=rig_identity(rig)))
     lines = [f"commissioning record of {rig.name}: {record.path}" + ("" if record.path.exists() else " (none yet)")]
     lines += [f"  {r.kind:22s} {r.date or 'never'}" for r in rows]
     if cal:
