@@ -413,26 +413,28 @@ def estimate_frequency(x: np.ndarray, sample_rate_hz: float, f_min_hz: float = 1
     explained by a least-squares sine fit is searched instead (the maximum-likelihood estimator
     in white noise; Rife & Boorstyn 1974). Pass the drive or reference channel, as a 1-D array.
     """
-    sig = _one_channel(x)
+    sig = _one_channel(x, check_finite=False)   # checked below: a finite refinement saw every sample
     n = sig.size
     fs = float(sample_rate_hz)
     _check_rate(fs)
     f_max = fs / 2.0 if f_max_hz is None else float(f_max_hz)
     if not (0.0 <= f_min_hz < f_max <= fs / 2.0):
         raise ValueError(f"search band {f_min_hz:g}..{f_max:g} Hz must lie within 0..{fs / 2.0:g} Hz")
-    head = sig[:min(n, COARSE_SAMPLES)]
-    bin_hz = fs / head.size
-    spectrum = np.abs(scipy.fft.rfft((head - head.mean()) * _hann_window(head.size)))
-    lo = max(int(np.ceil(f_min_hz / bin_hz)), 1)
-    hi = min(int(np.floor(f_max / bin_hz)), spectrum.size - 2)
-    if hi < lo:
-        raise ValueError(f"search band {f_min_hz:g}..{f_max:g} Hz holds no frequency bin of a {head.size}-sample record")
-    k = lo + int(np.argmax(spectrum[lo:hi + 1]))
-    coarse = (k + _hann_offset(spectrum, k)) * bin_hz
-    with one_blas_thread():
-        refined = _block_phase_refine(sig, fs, coarse)
-    if refined is not None and abs(refined - coarse) <= bin_hz:
-        return refined
+    with np.errstate(invalid="ignore", over="ignore"):   # a non-finite sample: found by _require_finite
+        head = sig[:min(n, COARSE_SAMPLES)]
+        bin_hz = fs / head.size
+        spectrum = np.abs(scipy.fft.rfft((head - head.mean()) * _hann_window(head.size)))
+        lo = max(int(np.ceil(f_min_hz / bin_hz)), 1)
+        hi = min(int(np.floor(f_max / bin_hz)), spectrum.size - 2)
+        if hi < lo:
+            raise ValueError(f"search band {f_min_hz:g}..{f_max:g} Hz holds no frequency bin of a {head.size}-sample record")
+        k = lo + int(np.argmax(spectrum[lo:hi + 1]))
+        coarse = (k + _hann_offset(spectrum, k)) * bin_hz
+        with one_blas_thread():
+            refined = _block_phase_refine(sig, fs, coarse)
+        if refined is not None and np.isfinite(refined) and abs(refined - coarse) <= bin_hz:
+            return refined
+    _require_finite(sig)
     full_bin = fs / n
     left = max(coarse - 0.5 * bin_hz, 1e-3 * full_bin)
     right = min(coarse + 0.5 * bin_hz, fs / 2.0 - 1e-3 * full_bin)
@@ -455,6 +457,8 @@ def _block_phase_refine(sig: np.ndarray, fs: float, coarse_hz: float) -> float |
     weights[1:] *= _hann_window(length)
     weights[2] *= -1.0                                                  # 1, Hann-weighted e^{-iωn}
     blocks = sig[:count * length].reshape(count, length)
+    if not np.isfinite(np.add.reduce(sig[count * length:])):
+        return None                                                     # the caller finds the bad sample
     sums = weights @ blocks.T                                           # one pass (one BLAS thread: caller)
     means = sums[0] / length                                            # each block's offset removed
     w_cos, w_sin = weights[1].sum(), weights[2].sum()
@@ -501,14 +505,19 @@ def _explained_power(sig: np.ndarray, cycles: float) -> float:
     return float(b @ np.linalg.solve(design.T @ design, b))
 
 
-def _one_channel(x: np.ndarray) -> np.ndarray:
+def _one_channel(x: np.ndarray, check_finite: bool = True) -> np.ndarray:
     arr = np.asarray(x)
     if arr.ndim == 2 and arr.shape[0] != 1:
         raise ValueError(f"pass one channel (a 1-D array) to estimate its frequency, got shape {arr.shape}")
     sig = _as_channels(arr)[0]
+    if check_finite:
+        _require_finite(sig)
+    return sig
+
+
+def _require_finite(sig: np.ndarray) -> None:
     if np.isfinite(np.add.reduce(sig)):   # cheap; the full scan only runs when something may be wrong
-        return sig
+        return
     bad = np.flatnonzero(~np.isfinite(sig))
     if bad.size:
         raise ValueError(f"{bad.size} non-finite sample(s), first at index {bad[0]}")
-    return sig

@@ -294,3 +294,15 @@ def test_estimate_frequency_bad_input():
 
 
 
+
+
+@pytest.mark.parametrize("n", [512_000, 500_321])               # blocks fill the record / leave a tail
+@pytest.mark.parametrize("where", [0, 70_000, -1])               # in the coarse head, in the blocks, the last sample
+@pytest.mark.parametrize("bad", [np.nan, np.inf, -np.inf])
+def test_estimate_frequency_refuses_a_non_finite_sample_anywhere(n, where, bad):
+    # common practice: garbage is refused with the place named, never turned into a frequency
+    fs = 51_200.0
+    x = np.sin(2 * np.pi * 430.0 * np.arange(n) / fs)
+    x[where] = bad
+    with pytest.raises(ValueError, match=f"first at index {where % n}"):
+        estimate_frequency(x, fs)
