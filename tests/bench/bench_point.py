@@ -98,7 +98,7 @@ def main() -> None:
     print(f"{'scipy Welch/CSD H1 + same MMM':<36}{t_base * 1e3:>10.1f}{1.0:>13.1f}×"
           f"{100 * t_base / duration:>13.2f}%{abs(theirs):>9.4f}{np.angle(theirs):>11.4f}")
     print(f"{'estimate_frequency (1 channel)':<36}{t_freq * 1e3:>10.1f}{t_base / t_freq:>13.1f}×"
-          f"{100 * t_freq / duration:>13.2f}%   {100 * t_freq / t_ours:.0f} % of one point")
+          f"{100 * t_freq / duration:>13.2f}%   {100 * t_freq / t_ours:.1f} % of one point")
     q = ours.quality
     print(f"ours: gain ±{ours.gain_ci95:.4f}, phase ±{ours.phase_ci95_rad:.4f} rad (95 %), "
           f"dof {q['dof_gain']:.0f}, k {q['coverage_factor_gain']:.3f}, GLS {ours.velocity.wave_fit.generalised}")
