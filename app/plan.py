@@ -138,6 +138,8 @@ class Timing(_Strict):
     settle_k: number(1.0, 50.0) = 5.0
     settle_min_periods: number(0.0, 1e4) = 3.0
     settle_floor: quantity("time", 0.0, 60.0, unit="s") = 0.02
+    # a point's first tuning window, taken after the whole settle, begins the record when accepted
+    record_from_window: bool = False
 
     @model_validator(mode="before")
     @classmethod

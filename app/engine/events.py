@@ -88,7 +88,10 @@ class PointSettled(Event):
 
     ``record`` is the raw record (n_channels, n_samples) in volts, ``result`` the core's
     ``FtfPoint``, ``tuning`` a tuple of (drive_v, measured_ratio, window_s) steps and
-    ``flags`` the quality and fault flags of this attempt.
+    ``flags`` the quality and fault flags of this attempt. ``from_window_s`` > 0: the record
+    begins with the samples of the accepted tuning window (the last of ``tuning``), this long,
+    taken after the whole settle time and followed without a drive change (``timing.record_from_window``);
+    the record is still the asked length, contiguous, at ``drive_v``.
     """
 
     attempt_id: str
@@ -107,6 +110,7 @@ class PointSettled(Event):
     started_wall_s: float
     recorded_wall_s: float = 0.0   # time.time() when the record's last block arrived
     wall_time_s: float = field(default_factory=time.time)
+    from_window_s: float = 0.0     # the record's first seconds are the accepted tuning window's
 
 
 @dataclass(frozen=True)

@@ -101,6 +101,18 @@ class _Recording:
     drive_v: float
     started_wall_s: float
     parts: list[np.ndarray] = field(default_factory=list)
+    from_window_s: float = 0.0     # the record begins with the accepted tuning window, this long
+
+
+@dataclass(frozen=True)
+class _WindowHead:
+    """A tuning window that began after the whole settle time: the record may start with it
+    (``timing.record_from_window``) if it is accepted and the drive is not changed after it."""
+
+    point_index: int
+    drive_v: float
+    requests: int                  # drive requests made before it (none may follow)
+    samples: np.ndarray
 
 
 @dataclass
@@ -185,6 +197,8 @@ class SweepEngine:
         self._drive_v = 0.0
         self._since_settled = 0
         self._change: DriveChange | None = None   # the last sine request, for the settle credit of its ramp
+        self._requests = 0             # drive requests so far (a record from a window needs none after it)
+        self._head: _WindowHead | None = None
         self._ramp_rate_v_per_s = float(rig.drive.ceiling) / float(rig.drive.ramp_time)
         self._overflows = 0
         self._point_index: int | None = None
@@ -450,6 +464,7 @@ class SweepEngine:
                                                     tuple(float(a) for a in amplitudes_v),
                                                     tuple(float(p) for p in phases_rad)))
             self._change = None          # a multi-sine's ramp earns no settle credit
+            self._requests += 1
             self._freq_hz, self._drive_v = grid.grid_hz, peak_v
             if peak_v > 0:
                 self._drive_on = True
@@ -528,7 +543,7 @@ class SweepEngine:
             target_ratio=rec.point.amplitude_ratio, drive_v=rec.drive_v, record=data, channels=self._channels,
             sample_rate_hz=self._fs, result=result, tuning=self.tuning_history.get(rec.point.index, ()),
             flags=flags, overflows=self._overflows, identity=getattr(self, "_identity", {}),
-            started_wall_s=rec.started_wall_s, recorded_wall_s=time.time()))
+            started_wall_s=rec.started_wall_s, recorded_wall_s=time.time(), from_window_s=rec.from_window_s))
         if self.wait_for_store:    # briefly: a halted process must exit within seconds
             self.bus.wait_ack(attempt_id, min(1.5, self.plan.faults.store_timeout))
 
@@ -547,8 +562,14 @@ class SweepEngine:
         self.stats.tuning_steps.append(len(self._tuner.history))
         self._set_state(S.RECORDING)
         _, n_record = integer_period_samples(point.freq_hz, self._fs, self.plan.timing.record, max_extra=0.01)
-        self._recording = _Recording(point, drive_v, attempt_start)
-        record = self._take(n_record, S.RECORDING)
+        head = self._record_head(point, drive_v)
+        if head is None:
+            self._recording = _Recording(point, drive_v, attempt_start)
+            record = self._take(n_record, S.RECORDING)
+        else:     # the accepted window's samples, then the rest: contiguous, at the same drive
+            self._recording = _Recording(point, drive_v, attempt_start, parts=[head],
+                                         from_window_s=head.shape[1] / self._fs)
+            record = np.concatenate([head, self._take(n_record - head.shape[1], S.RECORDING)], axis=1)
         self.stats.recorded_samples += n_record
         recorded_wall_s = time.time()
         self._react(self.checks.check_window(record, self._channels, drive_v, f"record of {self._label()}"))
@@ -558,7 +579,8 @@ class SweepEngine:
         if result is None:
             return
         self._set_state(S.STORING)
-        self._store(point, drive_v, record, result, attempt_start, recorded_wall_s)
+        self._store(point, drive_v, record, result, attempt_start, recorded_wall_s,
+                    from_window_s=0.0 if head is None else head.shape[1] / self._fs)
         self._boundary(resume_to=S.PREPARING)
 
     def _tune_and_settle(self, point: Any) -> float:
@@ -582,8 +604,9 @@ class SweepEngine:
     def _tune(self, point: Any) -> Decision | None:
         tuner: PointTuner = self._tuner
         drive_v = tuner.first_drive()
+        self._head = None
         while True:
-            estimate, window_s = self._tuning_window(point, drive_v)
+            estimate, window_s = self._tuning_window(point, drive_v, settled=not tuner.history)
             ratio = float(estimate.amplitude_ratio)
             if not ratio < self.controller.settings.noise_sigmas * float(estimate.sigma_ratio):
                 self.controller.learn(point.freq_hz, point.peak_ratio, drive_v, ratio)
@@ -597,23 +620,50 @@ class SweepEngine:
                                                      for s in tuner.history)
             if decision.kind != "measure":
                 return decision
+            self._head = None            # a window that was not accepted starts no record
             if self._boundary(resume_to=S.TUNING):
                 return None
             drive_v = decision.drive_v
 
-    def _tuning_window(self, point: Any, drive_v: float) -> tuple[Any, float]:
+    def _tuning_window(self, point: Any, drive_v: float, settled: bool = False) -> tuple[Any, float]:
+        """One tuning window at ``drive_v``; with ``settled`` (a point's first window) it may wait
+        the whole settle first so that an accepted window can begin the record (``_may_head``)."""
         timing = self.plan.timing
         self._set_drive(point.freq_hz, drive_v)
         self._wait_drive_settled(S.TUNING)
         self._discard(int(round(timing.tuning_discard * self._fs)), S.TUNING)
         _, n = integer_period_samples(point.freq_hz, self._fs, timing.tuning_window)
+        head = settled and self._may_head(point, n)
+        if head:
+            self._discard(int(round(self.settle_time_s(point.freq_hz) * self._fs)) - self._settled_samples(),
+                          S.TUNING)
         window = self._take(n, S.TUNING)
+        if head:
+            self._head = _WindowHead(point.index, drive_v, self._requests, window)
         where = f"tuning {self._label()}"
         self._react(self.checks.check_window(window, self._channels, drive_v, where))
         estimate = self._measure(window, self._channels, self._fs, point.freq_hz, self.rig)
         self._react(self.checks.check_pressure(float(estimate.pressure_peak_pa), where)
                     + self.checks.check_response(estimate, drive_v, self.ceiling_v, where))
         return estimate, n / self._fs
+
+    def _may_head(self, point: Any, n_window: int) -> bool:
+        """True when the plan lets a record begin with its accepted first window and waiting the
+        settle before that window costs little: what is left of it then is no longer than the tuning
+        discard and half a window (else the settle after the window would cover it anyway, and a
+        window that misses would have waited for nothing)."""
+        t = self.plan.timing
+        _, n_record = integer_period_samples(point.freq_hz, self._fs, t.record, max_extra=0.01)
+        left = self.settle_time_s(point.freq_hz) * self._fs - self._settled_samples()
+        return t.record_from_window and n_window <= n_record and left <= 0.5 * n_window
+
+    def _record_head(self, point: Any, drive_v: float) -> np.ndarray | None:
+        """The accepted window the record begins with, or None (not asked, not accepted, drive changed)."""
+        head, self._head = self._head, None
+        if (head is None or head.point_index != point.index or head.requests != self._requests
+                or not math.isclose(head.drive_v, drive_v, rel_tol=1e-12)):
+            return None
+        return head.samples
 
     def _act_on(self, decision: Decision, point: Any) -> float:
         """The voltage to record at; flags and skips per the plan for unreachable/not converged."""
@@ -661,7 +711,7 @@ class SweepEngine:
         return result
 
     def _store(self, point: Any, drive_v: float, record: np.ndarray, result: FtfPoint, started_wall_s: float,
-               recorded_wall_s: float) -> None:
+               recorded_wall_s: float, from_window_s: float = 0.0) -> None:
         flags = tuple(dict.fromkeys(self._point_flags + list(quality_flags(result.quality, self.plan.quality))))
         if point.index in self._refined:
             flags += ("refined",)
@@ -672,7 +722,7 @@ class SweepEngine:
             target_ratio=point.amplitude_ratio, drive_v=drive_v, record=record, channels=self._channels,
             sample_rate_hz=self._fs, result=result, tuning=self.tuning_history.get(point.index, ()),
             flags=flags, overflows=self._overflows, identity=self._identity, started_wall_s=started_wall_s,
-            recorded_wall_s=recorded_wall_s))
+            recorded_wall_s=recorded_wall_s, from_window_s=from_window_s))
         self._overflows = 0
         if self.wait_for_store:
             acked, error = self.bus.wait_ack(attempt_id, self.plan.faults.store_timeout)
@@ -747,6 +797,7 @@ class SweepEngine:
             now = self.drive.drive_status()
             self.drive.set_drive(freq_hz, amplitude_v)
             self._change = DriveChange(now.freq_hz, now.amplitude_v, freq_hz, amplitude_v)
+            self._requests += 1
             self._freq_hz, self._drive_v = freq_hz, amplitude_v
             if amplitude_v > 0:
                 self._drive_on = True
