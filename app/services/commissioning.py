@@ -387,22 +387,32 @@ def status(target: Target, max_age_days: float = 30.0) -> Status:
 
 
 # ----------------------------------------------------------------------------- the rig file
-_LIGHT = re.compile(r"^\s*\[light\]\s*(#.*)?$")
+_LIGHT = re.compile(r"^\s*\[\s*light\s*\]\s*(#.*)?$")
 _TABLE = re.compile(r"^\s*\[")
 
 
 def update_rig_dark_offset(rig_path: Path, mean_v: float, u_v: float, date: str) -> Path:
     """Set ``dark_offset`` and ``dark_offset_uncertainty`` in the rig file's ``[light]`` table,
-    keeping every other line and comment; the file is rewritten whole and must load afterwards."""
+    keeping every other line and comment, the file's line endings and permissions; a symbolic
+    link keeps pointing at the file it names, which is the one rewritten. The file is rewritten
+    whole and must load afterwards."""
+    import os
+    import stat
+
     from app.outputs import write_whole
 
-    lines = rig_path.read_text(encoding="utf-8").splitlines(keepends=True)
-    start = next((i for i, line in enumerate(lines) if _LIGHT.match(line)), None)
+    target = rig_path.resolve()                 # through a symbolic link: the file it names
+    raw = target.read_bytes().decode("utf-8")
+    lines = raw.splitlines(keepends=True)
+    eol = "\r\n" if lines and lines[0].endswith("\r\n") else "\n"
+    start = next((i for i, line in enumerate(lines) if _LIGHT.match(line.rstrip("\r\n"))), None)
     if start is None:
-        raise CommissionError(f"{rig_path}: no [light] table to write the dark offset into")
+        raise CommissionError(f"{rig_path}: no [light] table header to write the dark offset under (a rig file "
+                              "that sets light as dotted keys or an inline table): set [light] dark_offset and "
+                              "dark_offset_uncertainty by hand")
     end = next((i for i in range(start + 1, len(lines)) if _TABLE.match(lines[i])), len(lines))
     values = {"dark_offset": f'"{mean_v * 1e3:.6g} mV"', "dark_offset_uncertainty": f'"{u_v * 1e3:.3g} mV"'}
-    note = f"# measured by flamebode commission dark, {date}\n"
+    note = f"# measured by flamebode commission dark, {date}{eol}"
     out = lines[: start + 1]
     done = set()
     for line in lines[start + 1:end]:
@@ -420,7 +430,8 @@ def update_rig_dark_offset(rig_path: Path, mean_v: float, u_v: float, date: str)
     text = "".join(out)
 
     def write(tmp: Path) -> None:
-        tmp.write_text(text, encoding="utf-8")
+        tmp.write_bytes(text.encode("utf-8"))
+        os.chmod(tmp, stat.S_IMODE(target.stat().st_mode))
 
     import tomllib
 
@@ -431,4 +442,5 @@ def update_rig_dark_offset(rig_path: Path, mean_v: float, u_v: float, date: str)
     except tomllib.TOMLDecodeError as exc:
         raise CommissionError(f"{rig_path}: the dark offset could not be written in place ({exc}); the rig file "
                               "is left as it was: set [light] dark_offset by hand") from None
-    return write_whole(rig_path, write)
+    write_whole(target, write)
+    return rig_path
