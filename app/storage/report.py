@@ -85,19 +85,22 @@ def _col(rs: list[dict[str, Any]], key: str) -> np.ndarray:
     return np.array([math.nan if r[key] is None else float(r[key]) for r in rs], dtype=float)
 
 
-def _draw(ax_g: Any, ax_p: Any, rows: list[dict[str, Any]], label: str) -> None:
+def _draw(ax_g: Any, ax_p: Any, rows: list[dict[str, Any]], label: str) -> dict[float, Any]:
+    """Each forcing amplitude's curve; returns the colour each was drawn in."""
+    colours = {}
     for amp, rs in _curves(rows).items():
         f = _col(rs, "freq_hz")
         flagged = np.array([r["flagged"] for r in rs], dtype=bool)
         name = f"{label}, |u'|/u = {amp:.3g}" if label else f"|u'|/u = {amp:.3g}"
         line = ax_g.errorbar(f, _col(rs, "gain"), yerr=_col(rs, "gain_ci95"), marker="o", ms=4, capsize=2,
                              label=name)
-        colour = line[0].get_color()
+        colour = colours[amp] = line[0].get_color()
         ax_p.errorbar(f, _col(rs, "phase_deg"), yerr=_col(rs, "phase_ci95_deg"), marker="o", ms=4, capsize=2,
                       color=colour)
         if flagged.any():
             for ax, key in ((ax_g, "gain"), (ax_p, "phase_deg")):
                 ax.plot(f[flagged], _col(rs, key)[flagged], "o", ms=7, mfc="white", mec=colour, zorder=3)
+    return colours
 
 
 def _axes_labels(ax_g: Any, ax_p: Any) -> None:
@@ -233,15 +236,15 @@ def write_report(run_dir: str | Path, out: str | Path | None = None) -> list[Pat
     fig = Figure(figsize=(8.27, 11.69), layout="constrained")
     FigureCanvasAgg(fig)
     ax_g, ax_p = fig.subplots(2, 1, sharex=True)
-    _draw(ax_g, ax_p, rows, "")
-    for amp, model in fitted.items():          # the fitted flame model, dashed, on the measured curve's branch
+    colours = _draw(ax_g, ax_p, rows, "")
+    for amp, model in fitted.items():          # the fitted flame model, dashed in its curve's colour, on its branch
         rs = _curves(rows)[amp]
         f = np.linspace(min(r["freq_hz"] for r in rs), max(r["freq_hz"] for r in rs), 300)
         F = model.evaluate(f)
         ph = np.degrees(np.unwrap(np.angle(F)))
         ph += 360.0 * np.round((rs[0]["phase_deg"] - np.interp(rs[0]["freq_hz"], f, ph)) / 360.0)
-        ax_g.plot(f, np.abs(F), "--", color="0.35", lw=1, label=f"fitted model, |u'|/u = {amp:.3g}")
-        ax_p.plot(f, ph, "--", color="0.35", lw=1)
+        ax_g.plot(f, np.abs(F), "--", color=colours.get(amp, "0.35"), lw=1, label=f"fitted model, |u'|/u = {amp:.3g}")
+        ax_p.plot(f, ph, "--", color=colours.get(amp, "0.35"), lw=1)
     _axes_labels(ax_g, ax_p)
     ax_g.set_title("response with 95 % intervals; flagged points hollow; dashed: fitted flame model",
                    fontsize="medium")

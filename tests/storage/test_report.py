@@ -72,3 +72,27 @@ def test_the_report_pdf_reads_back_with_its_pages_and_numbers(runs: Path, tmp_pa
         page = np.asarray(pdf[i].render(scale=0.5).to_pil().convert("L"), dtype=float)
         assert page.std() > 3, f"page {i + 1} renders blank"
     assert (tmp_path / "report-page2.png").is_file()
+
+
+def test_each_fitted_model_is_drawn_in_its_measured_curve_s_colour(runs: Path, tmp_path: Path, monkeypatch):
+    # common practice: a fitted curve shares its data's colour, so curves at several forcing
+    # amplitudes can be told apart (the dashes say "model", the colour says which amplitude)
+    import matplotlib.figure
+    from matplotlib.colors import to_rgba
+
+    from app.storage import report
+
+    figures = []
+
+    class Kept(matplotlib.figure.Figure):
+        def __init__(self, *a, **k):
+            super().__init__(*a, **k)
+            figures.append(self)
+
+    monkeypatch.setattr(matplotlib.figure, "Figure", Kept)     # the report imports it when it draws
+    report.write_report(runs / "low", tmp_path / "r.pdf")
+    ax_gain = next(f.axes[0] for f in figures if f.axes and "fitted flame model" in f.axes[0].get_title())
+    dashed = [ln for ln in ax_gain.get_lines() if ln.get_linestyle() == "--"]
+    measured = [ln for ln in ax_gain.get_lines() if ln.get_marker() == "o" and ln.get_linestyle() != "None"]
+    assert dashed and measured
+    assert {to_rgba(ln.get_color()) for ln in dashed} <= {to_rgba(ln.get_color()) for ln in measured}
