@@ -28,6 +28,7 @@ from app.plan import plan_from_dict
 from app.rig import rig_from_dict
 
 from .config_form import PLAN_FIELDS, RIG_FIELDS, ConfigForm
+from .style import scroll_column
 
 CHECK_DELAY_MS = 300                 # validate this long after the last keystroke
 STACK_BELOW_PX = 620                 # narrower than this: the form above the text, not beside it
@@ -244,12 +245,7 @@ class SetupView(QWidget):
         left_lay.addWidget(safety)
         left_lay.addStretch(1)
         # scrolls in a short window instead of squeezing the wrapped checklist lines onto each other
-        left_scroll = QScrollArea()
-        left_scroll.setWidget(left)
-        left_scroll.setWidgetResizable(True)
-        left_scroll.setFrameShape(QFrame.Shape.NoFrame)
-        left_scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
-        left_scroll.setMinimumWidth(left.minimumSizeHint().width() + 16)
+        left_scroll = scroll_column(left)
         split = QSplitter()
         split.setObjectName("setup-split")
         split.addWidget(left_scroll)

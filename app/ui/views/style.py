@@ -9,7 +9,8 @@ Imports: pyqtgraph and PySide6 only.
 from __future__ import annotations
 
 import pyqtgraph as pg
-from PySide6.QtWidgets import QGraphicsItem
+from PySide6.QtCore import Qt
+from PySide6.QtWidgets import QFrame, QGraphicsItem, QScrollArea, QWidget
 
 # colour-blind-safe hues (Okabe & Ito, "Color Universal Design", 2008), dark enough on white
 CHANNEL_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#56B4E9", "#E69F00", "#555555", "#000000")
@@ -109,3 +110,15 @@ def captioned_plots(widget: object, caption: str) -> tuple[object, object]:
     lay.addWidget(label)
     lay.addWidget(plots)
     return label, plots
+
+
+def scroll_column(widget: QWidget) -> QScrollArea:
+    """``widget`` in a frameless scroll area that scrolls up and down only and is never narrower
+    than the widget's controls (a short window scrolls instead of squeezing or clipping them)."""
+    scroll = QScrollArea()
+    scroll.setWidget(widget)
+    scroll.setWidgetResizable(True)
+    scroll.setFrameShape(QFrame.Shape.NoFrame)
+    scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+    scroll.setMinimumWidth(widget.minimumSizeHint().width() + 16)
+    return scroll
