@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 from app.core.commissioning import kings_law
-from app.core.hotwire import coherence, cross_check, segment_phasors, velocity_from_voltage
+from app.core.hotwire import carry_to_reference, coherence, cross_check, segment_phasors, velocity_from_voltage
 
 FS, F = 10_000.0, 230.0
 A, B, N = 1.6, 0.95, 0.42
@@ -92,4 +92,9 @@ def test_every_figure_has_a_label():
 
     rng = np.random.default_rng(1)
     e, p_v, row, u_hat = _record(0.0, rng)
-    assert set(cross_check(e, u_hat, 1e-8, p_v, row, FS, F, A, B, N).figures()) == set(FIGURE_LABELS)
+    check = cross_check(e, u_hat, 1e-8, p_v, row, FS, F, A, B, N)
+    carried = carry_to_reference(check, 1.0 + 0.0j, 0.0, (), 3.0)
+    # the figures of the check at the wire and of the velocity carried to the reference plane
+    # together are exactly the labelled set: none unlabelled, no label without its figure
+    assert set(check.figures()) | set(carried.figures()) == set(FIGURE_LABELS)
+    assert not set(check.figures()) & set(carried.figures())

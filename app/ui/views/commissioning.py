@@ -33,7 +33,7 @@ from app.errors import FlamebodeError
 from app.services import commissioning as svc
 
 from ..bridge import TaskResult
-from .style import CAUTION_STYLE, CHANNEL_COLOURS, new_plot, pen
+from .style import CAUTION_STYLE, CHANNEL_COLOURS, new_plot, pen, scroll_column
 
 CAUTIONS_TEXT = (
     "<b>Cautions.</b> Your laboratory's own rules come first. <b>Dark offset</b>: flame off, the "
@@ -212,12 +212,7 @@ class CommissioningPanel(QWidget):
             left_lay.addWidget(w)
         left_lay.addWidget(self._row(self.stop_button, self.refresh_button))
         left_lay.addStretch(1)
-        scroll = QScrollArea()
-        scroll.setWidget(left)
-        scroll.setWidgetResizable(True)
-        scroll.setFrameShape(QFrame.Shape.NoFrame)
-        scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
-        scroll.setMinimumWidth(left.minimumSizeHint().width() + 16)   # the controls whole, never clipped
+        scroll = scroll_column(left)                                   # the controls whole, never clipped
 
         self.message = QLabel("Choose a check on the left.")
         self.message.setWordWrap(True)
