@@ -14,7 +14,7 @@ import pytest
 
 from app.calibration_file import (CalibrationFileError, band_problems, read_calibration, rig_identity,
                                   write_calibration)
-from app.commands.calibrate import calibration_file_of
+from app.services.pressure_calibration import calibration_file_of
 from app.core import calibration as core
 from app.errors import ConfigError, FlamebodeError
 from app.rig import load_rig

@@ -15,8 +15,8 @@ import numpy as np
 import pytest
 
 from app.calibration_file import write_calibration
-from app.commands.calibrate import calibration_file_of
-from app.commands.holder_run import DriveSettings, HolderRun
+from app.services.pressure_calibration import calibration_file_of
+from app.services.holder_run import DriveSettings, HolderRun
 from app.core import calibration as core
 from app.core.response import evaluate_point
 from app.rig import Rig, load_rig

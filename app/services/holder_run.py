@@ -16,7 +16,7 @@ Safety, in this order of precedence:
   the back-end's latched halt and makes the loop stop at the next block;
 * :meth:`HolderRun.ramp_to_zero` ends every normal run.
 
-Imports: numpy, ``app.core.calibration``, ``app.errors``. Never Qt, never a concrete back-end.
+Imports: numpy, ``app.core.calibration``, ``app.errors``. Never Qt, never a concrete back-end, never a command.
 """
 
 from __future__ import annotations
