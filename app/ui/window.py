@@ -44,6 +44,7 @@ from .views.controls import ControlStrip
 from .views.fault_banner import FaultBanner
 from .views.halt_banner import HaltBanner
 from .views.calibration import CalibrationView
+from .views.calibration_run import CalibrationRunPanel, RunContext
 from .views.commissioning import CommissioningPanel, PanelContext
 from .views.points import PointListView
 from .views.prescan import PrescanView, show_engine_news
@@ -116,7 +117,11 @@ class MainWindow(ReviewActions, QMainWindow):
         self.tabs.addTab(self.setup, "Set-up")
         self.tabs.addTab(self.sweep_tab, "Sweep")
         self.tabs.addTab(self.review, "Review")
-        self.sensors = CalibrationView.as_tab(self.tabs, lambda: self.setup.rig_editor.path)   # read when shown
+        self.sensor_run = CalibrationRunPanel(self._calibration_context)
+        self.sensors = CalibrationView.as_tab(self.tabs, lambda: self.setup.rig_editor.path,   # read when shown
+                                              side=self.sensor_run)
+        self.sensor_run.busy_changed.connect(lambda _busy: self._update_controls())
+        self.sensor_run.written.connect(self._calibration_written)
         self._build_commissioning()
         self._build_controls()
         central = QWidget()
@@ -223,6 +228,18 @@ class MainWindow(ReviewActions, QMainWindow):
             except (FlamebodeError, OSError):
                 scenario = None
         return PanelContext(s.rig_editor.path, s.rig_editor.dirty, s.backend_name(), scenario, s.fast.isChecked())
+
+    def _calibration_context(self) -> RunContext:
+        c = self._commissioning_context()
+        other = "A commissioning check is running: the calibration waits until it has ended." \
+            if self.commissioning.busy else ""
+        return RunContext(c.rig_path, c.rig_unsaved, c.backend, c.scenario, c.fast, other)
+
+    def _calibration_written(self, path: str) -> None:
+        rig = self.setup.rig_editor.path
+        if rig is not None:
+            self.sensors.show_file(path, rig)
+        self.setup.refresh_commissioning()
 
     def _rig_rewritten(self, path: str) -> None:
         """The dark offset went into the rig file: the editor shows the file as it now is."""
@@ -354,6 +371,10 @@ class MainWindow(ReviewActions, QMainWindow):
         Works while the sweep is still being opened, too (the engine then never starts).
         False when no sweep runs (nothing is driven)."""
         self.commissioning.stop_recording(why)     # a commissioning recording (drive at zero) ends too
+        if self.sensor_run.halt(why):              # a calibration drives the speaker: halted at once
+            self.halt_banner.show_halt(why)
+            self._say("EMERGENCY HALT: the calibration's output zeroed; nothing written.")
+            return True
         session = self.session
         if session is None or not self.running():
             self._say("No sweep is running: nothing is driven.")
@@ -367,9 +388,10 @@ class MainWindow(ReviewActions, QMainWindow):
     def halt_now(self, why: str) -> bool:
         """Any thread (the stop-signal router): halt the running sweep at once; False if none runs.
         The GUI thread shows it later (``halt_and_quit`` or the sweep's end)."""
+        calibrating = self.sensor_run.halt(why)
         session = self.session
         if session is None or session.closed:
-            return False
+            return calibrating
         session.halt(why)
         return True
 
@@ -561,8 +583,14 @@ class MainWindow(ReviewActions, QMainWindow):
         sim = self.setup.is_simulated()
         self.controls.show_backend(sim, self.setup.backend_name())
         self.caution.setVisible(not sim)
-        can_start = not running and not self.commissioning.busy and (sim or self.setup.checklist_done())
+        calibrating = self.sensor_run.busy
+        can_start = not running and not self.commissioning.busy and not calibrating \
+            and (sim or self.setup.checklist_done())
         self.commissioning.set_sweep_running(running)
+        self.commissioning.set_blocked("A pressure calibration is running (Sensors tab): the checks wait until it "
+                                       "has ended." if calibrating else "")
+        self.sensor_run.set_blocked("A sweep is running: the calibration waits until it has ended." if running else
+                                    "A commissioning check is running." if self.commissioning.busy else "")
         self.start_action.setEnabled(can_start)
         for act in (self.pause_action, self.stop_action, self.abort_action):
             act.setEnabled(running)
@@ -613,6 +641,7 @@ class MainWindow(ReviewActions, QMainWindow):
 
             self.tasks.submit("close", halt_and_close)
         self.commissioning.stop_recording(why)     # a recording in progress ends at its next block
+        self.sensor_run.shutdown(why)              # a calibration's output zeroed at once, its thread joined
         self.tasks.shutdown()
 
     def closeEvent(self, event: QCloseEvent) -> None:

@@ -4,8 +4,10 @@ and the sensors the commissioning record says drifted since the previous calibra
 
 ``show_rig(path)`` reads the rig file, its calibration file and the commissioning record (all
 description files, app.rig / app.calibration_file / app.commissioning_record) and redraws; any
-problem is said in the caption. Imports: PySide6, pyqtgraph, numpy, the description modules
-and ``.style``. Never storage or commands.
+problem is said in the caption; ``show_file(cal, rig)`` shows a file just written (saying when the
+rig does not name it yet). ``side``: a widget beside the plots (the calibration run's controls,
+``.calibration_run``). Imports: PySide6, pyqtgraph, numpy, the description modules and
+``.style``. Never storage or commands.
 """
 
 from __future__ import annotations
@@ -16,25 +18,39 @@ from typing import Callable
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtWidgets import QLabel, QPushButton, QTabWidget, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QLabel, QPushButton, QSplitter, QTabWidget, QVBoxLayout, QWidget
 
-from .style import CHANNEL_COLOURS, new_plot, pen
+from .style import CHANNEL_COLOURS, new_plot, pen, scroll_column
 
 Z95 = 1.959963984540054      # 95 % bars, as every other view (normal coverage factor)
 
 
 class CalibrationView(QWidget):
-    def __init__(self, parent: QWidget | None = None) -> None:
+    def __init__(self, parent: QWidget | None = None, side: QWidget | None = None) -> None:
         super().__init__(parent)
         self.caption = QLabel("No rig file loaded")
         self.caption.setWordWrap(True)
         self.reload = QPushButton("Read again")
         self.layout_widget = pg.GraphicsLayoutWidget()
-        lay = QVBoxLayout(self)
+        plots = QWidget()
+        lay = QVBoxLayout(plots)
         lay.setContentsMargins(4, 4, 4, 4)
         lay.addWidget(self.caption)
         lay.addWidget(self.reload)
         lay.addWidget(self.layout_widget, 1)
+        outer = QVBoxLayout(self)
+        outer.setContentsMargins(0, 0, 0, 0)
+        if side is None:
+            outer.addWidget(plots)
+        else:                                    # e.g. the calibration run's controls, scrolling when short
+            split = QSplitter()
+            split.setObjectName("sensors-split")
+            split.addWidget(scroll_column(side))
+            split.addWidget(plots)
+            split.setStretchFactor(0, 2)
+            split.setStretchFactor(1, 3)
+            split.setChildrenCollapsible(False)
+            outer.addWidget(split)
         self.gain_plot = new_plot(self.layout_widget, "Relative calibration factor: gain", "gain (1)",
                                   "frequency (Hz)", row=0, col=0)
         self.phase_plot = new_plot(self.layout_widget, "Relative calibration factor: phase", "phase (deg)",
@@ -47,9 +63,11 @@ class CalibrationView(QWidget):
         self.reload.clicked.connect(lambda: self.show_rig(self.path) if self.path else None)
 
     @classmethod
-    def as_tab(cls, tabs: QTabWidget, rig_path: Callable[[], Path | None], title: str = "Sensors") -> "CalibrationView":
-        """A view added to ``tabs`` that reads the rig ``rig_path()`` names each time it is shown."""
-        view = cls()
+    def as_tab(cls, tabs: QTabWidget, rig_path: Callable[[], Path | None], title: str = "Sensors",
+               side: QWidget | None = None) -> "CalibrationView":
+        """A view added to ``tabs`` that reads the rig ``rig_path()`` names each time it is shown
+        (``side``: a widget beside the plots)."""
+        view = cls(side=side)
         tabs.addTab(view, title)
 
         def shown(_i: int) -> None:
@@ -60,18 +78,20 @@ class CalibrationView(QWidget):
         tabs.currentChanged.connect(shown)
         return view
 
-    def show_rig(self, rig_path: str | Path) -> None:
-        from app.calibration_file import read_calibration, resolve
-        from app.commissioning_record import read_record, record_path_for
-        from app.errors import FlamebodeError
-        from app.rig import load_rig
-
-        self.path = Path(rig_path)
+    def _clear(self) -> None:
         self.gain_plot.clear()
         self.phase_plot.clear()
         self.legend.clear()
         self.layout_widget.hide()              # shown again only with factors to draw
         self.sensors, self.drifted = (), ()
+
+    def show_rig(self, rig_path: str | Path) -> None:
+        from app.calibration_file import resolve
+        from app.errors import FlamebodeError
+        from app.rig import load_rig
+
+        self.path = Path(rig_path)
+        self._clear()
         try:
             rig = load_rig(self.path)
             cal_path = resolve(rig)
@@ -79,6 +99,33 @@ class CalibrationView(QWidget):
                 self.caption.setText(f"{html.escape(str(self.path))} names no calibration file: the sensors' nominal "
                                      "sensitivities are used (see 'flamebode calibrate').")
                 return
+        except (FlamebodeError, OSError) as exc:
+            self.caption.setText(f"<b>Calibration not shown:</b> {html.escape(str(exc))}")
+            return
+        self._show_file(Path(cal_path), "")
+
+    def show_file(self, cal_path: str | Path, rig_path: str | Path) -> None:
+        """A calibration file just written for ``rig_path``, which may not name it yet."""
+        from app.calibration_file import resolve
+        from app.errors import FlamebodeError
+        from app.rig import load_rig
+
+        self.path = Path(rig_path)
+        try:
+            named = resolve(load_rig(self.path))
+        except (FlamebodeError, OSError):
+            named = None
+        used = named is not None and Path(named).resolve() == Path(cal_path).resolve()
+        self._show_file(Path(cal_path), "" if used else " <b>Newly written; the rig file does not name it yet</b> "
+                                                         "(until it does, the sweeps use the file it names, or none).")
+
+    def _show_file(self, cal_path: Path, note: str) -> None:
+        from app.calibration_file import read_calibration
+        from app.commissioning_record import read_record, record_path_for
+        from app.errors import FlamebodeError
+
+        self._clear()
+        try:
             cal = read_calibration(cal_path)
         except (FlamebodeError, OSError) as exc:
             self.caption.setText(f"<b>Calibration not shown:</b> {html.escape(str(exc))}")
@@ -107,4 +154,4 @@ class CalibrationView(QWidget):
                           if self.drifted else " No sensor drifted since the previous calibration.")
         self.caption.setText(f"{html.escape(str(cal_path))}: {html.escape(cal.method)} against "
                              f"{html.escape(cal.reference)}, {html.escape(cal.created)}, {f.size} frequencies "
-                             f"{f[0]:g}-{f[-1]:g} Hz (bars: 95 % intervals).{drift_text}")
+                             f"{f[0]:g}-{f[-1]:g} Hz (bars: 95 % intervals).{drift_text}{note}")

@@ -162,6 +162,7 @@ class CommissioningPanel(QWidget):
         self.seed: int | None = None          # simulator only: a fixed seed (rehearsals, tests)
         self.busy = False
         self.sweep_running = False
+        self.blocked = ""                     # another activity drives the rig (a pressure calibration)
         self.last_outcome: svc.Outcome | None = None
         self.state: PanelState | None = None
         self._stop: svc.StopRequest | None = None
@@ -334,13 +335,18 @@ class CommissioningPanel(QWidget):
         self.sweep_running = bool(running)
         self._update_buttons()
 
+    def set_blocked(self, why: str) -> None:
+        """Another activity drives the rig (``why``), or nothing ("")."""
+        self.blocked = why
+        self._update_buttons()
+
     def _set_busy(self, busy: bool) -> None:
         self.busy = busy
         self._update_buttons()
         self.busy_changed.emit(busy)
 
     def _update_buttons(self) -> None:
-        free = not self.busy and not self.sweep_running
+        free = not self.busy and not self.sweep_running and not self.blocked
         for b in self.buttons:
             b.setEnabled(free)
         self.choose_table.setEnabled(free)
@@ -399,6 +405,8 @@ class CommissioningPanel(QWidget):
     def _refusal(self, ctx: PanelContext) -> str:
         if self.sweep_running:
             return "A sweep is running: the commissioning checks wait until it has ended."
+        if self.blocked:
+            return self.blocked
         if self.busy:
             return "A check is running: wait for it to end (or stop the recording)."
         if ctx.rig_path is None:
