@@ -306,8 +306,8 @@ def resolve_name(name: str, rig_path: str | Path | None) -> Path:
     went and whatever became of it since."""
     if rig_path:
         folder = Path(rig_path).resolve().parent
-        if (folder / RUN_SNAPSHOT).is_file() and (folder / RUN_INDEX).is_file() and Path(rig_path).name == "rig.toml":
-            return folder / RUN_SNAPSHOT
+        if (folder / RUN_INDEX).is_file() and Path(rig_path).name == "rig.toml":
+            return folder / RUN_SNAPSHOT     # even when it is gone: never the original in its place
     p = Path(name).expanduser()
     if not p.is_absolute() and rig_path and Path(rig_path).is_file():
         p = Path(rig_path).resolve().parent / p
@@ -332,6 +332,11 @@ def attach(rig: "Rig") -> "Rig":
         return rig
     where = f"{rig.source_path or '<rig>'}: pressure_calibration"
     if not path.is_file():
+        if path.name == RUN_SNAPSHOT and (path.parent / RUN_INDEX).is_file():
+            raise CalibrationFileError(str(path), [
+                f"the run's copy of the calibration it was measured with is missing (the rig snapshot names "
+                f"{rig.pressure_calibration!r}; that file is not used in its place, it may have changed since): "
+                f"restore the copy, or reprocess with --rig naming a rig file and its calibration"])
         raise CalibrationFileError(str(path), [f"calibration file not found (named by {where})"])
     cal = read_calibration(path)
     check_against(cal, rig)

@@ -240,6 +240,10 @@ def _plan(req: Request, op: Operator) -> _Plan:
     if not freqs:
         raise CalibrationRunError(f"{req.entry('band')} {req.band}: every frequency is at or above the cut-on "
                                   f"{cut_on:.0f} Hz")
+    if len(freqs) == 1:
+        op.warn(f"warning: one frequency only ({freqs[0]:g} Hz): a sweep can use this calibration at exactly "
+                f"{freqs[0]:g} Hz and nowhere else (a calibration is never extrapolated); give a band LOW-HIGH "
+                f"that covers the plan's frequencies")
     out = output_target(req.out, "calibration file", _is_calibration)   # never over a rig file or a run's files
     return _Plan(rig, reference, second, freqs, cut_on, target_pa, record_s, out)
 

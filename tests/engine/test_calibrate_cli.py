@@ -122,6 +122,8 @@ def test_frequencies_above_the_cut_on_are_refused_with_a_warning(tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert "refused 4500, 5000 Hz: at or above the duct's first transverse cut-on 4403 Hz" in proc.stderr
     assert read_calibration(out).frequency_hz == (4000.0,)
+    # what is left is one frequency: written, but not without saying a sweep can use it there only
+    assert "warning: one frequency only (4000 Hz): a sweep can use this calibration at exactly 4000 Hz" in proc.stderr
 
 
 @pytest.mark.slow

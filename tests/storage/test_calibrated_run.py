@@ -71,3 +71,18 @@ def test_the_run_keeps_the_calibration_it_was_measured_with(tmp_path: Path) -> N
     out = subprocess.run([sys.executable, "-m", "app.cli", "review", str(tmp_path / "run")], cwd=tmp_path,
                          capture_output=True, text=True, timeout=170)
     assert "snapshot changed since the run was created: calibration.toml" in out.stdout, out.stdout[-1500:]
+
+
+def test_a_missing_run_copy_is_named_and_the_original_never_used_in_its_place(tmp_path: Path) -> None:
+    # seen: with the run's calibration.toml gone, the snapshot rig quietly read the lab's original
+    # file again (which may have been recalibrated since) or reported it under the original's name
+    cal, rig_dir = _calibrated_sweep(tmp_path)
+    copy = tmp_path / "run" / "calibration.toml"
+    copy.unlink()
+    assert cal.is_file()                                       # the lab's original is still there
+    out = subprocess.run([sys.executable, "-m", "app.cli", "reprocess-run", str(tmp_path / "run"), "--rig",
+                          str(tmp_path / "run" / "rig.toml")], cwd=tmp_path, capture_output=True, text=True,
+                         timeout=170)
+    assert out.returncode != 0 and "Traceback" not in out.stderr, out.stderr[-1500:]
+    assert str(copy) in out.stderr and "copy of the calibration it was measured with is missing" in out.stderr, \
+        out.stderr[-1500:]
