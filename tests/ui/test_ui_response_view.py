@@ -58,5 +58,7 @@ def test_the_table_reads_the_phase_the_curve_shows(qtbot):
     phase_col = 6
     text = view.qt_model.data(view.qt_model.index(1, phase_col))
     assert text == "-210.0 ± 1.7", text
-    assert view.qt_model.headerData(phase_col, __import__("PySide6.QtCore", fromlist=["Qt"]).Qt.Orientation.Horizontal) \
-        == "Phase (deg, unwrapped)"
+    horizontal = __import__("PySide6.QtCore", fromlist=["Qt"]).Qt.Orientation.Horizontal
+    tip = __import__("PySide6.QtCore", fromlist=["Qt"]).Qt.ItemDataRole.ToolTipRole
+    assert view.qt_model.headerData(phase_col, horizontal) == "Phase (deg)"
+    assert "unwrapped along frequency as on the curve" in view.qt_model.headerData(phase_col, horizontal, tip)

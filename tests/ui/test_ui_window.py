@@ -228,3 +228,21 @@ def test_closing_the_window_mid_sweep_halts_and_leaves_no_thread(qtbot, make_win
     status = session.device.drive_status()
     assert status.amplitude_v == 0.0 and status.target_amplitude_v == 0.0
     # the autouse fixture then checks that no sweep, writer or worker thread is left
+
+
+def test_the_flags_column_is_in_view_in_a_1400_px_window(qtbot, make_window, tiny_plan) -> None:
+    # seen: at 1400 px the long headers pushed the Flags column past the table's right edge, so a
+    # point's flags could only be read after scrolling sideways
+    win = make_window(tiny_plan)
+    win.resize(1400, 900)
+    _click(qtbot, win, win.start_action)
+    qtbot.waitUntil(lambda: _finished(win) and win.review.run is not None, timeout=LONG_MS)
+    win.tabs.setCurrentWidget(win.sweep_tab)
+    qtbot.wait(50)
+    view = win.point_list.view
+    from app.ui.views.points import COLUMNS
+
+    flags = COLUMNS.index("Flags")
+    left = view.columnViewportPosition(flags)
+    assert 0 <= left and left + 80 <= view.viewport().width(), (left, view.viewport().width())
+    assert view.horizontalScrollBar().value() == 0

@@ -19,8 +19,12 @@ from PySide6.QtWidgets import QAbstractItemView, QHeaderView, QTableView, QVBoxL
 from ..models import PointRow, PointTable
 from .style import STATUS_COLOURS, Coalesced
 
-COLUMNS = ("#", "Frequency (Hz)", "Target |u'|/ū", "Status", "Attempts", "Gain", "Phase (deg, unwrapped)",
-           "Flags")
+# short headers, so that the flags stay in view beside the curves; the header's tooltip says it whole
+COLUMNS = ("#", "f (Hz)", "Target", "Status", "Tries", "Gain", "Phase (deg)", "Flags")
+COLUMN_TIPS = ("point number in the plan (from 1)", "forcing frequency (Hz)",
+               "target |u'|/ū at the reference plane", "the point's state", "attempts stored for this point",
+               "gain |F| ± its 95 % interval", "phase of F in degrees, unwrapped along frequency as on the curve, "
+               "± its 95 % interval", "quality flags and warnings (the row's tooltip lists them)")
 Index = QModelIndex | QPersistentModelIndex
 
 
@@ -77,8 +81,10 @@ class PointTableQt(QAbstractTableModel):
         return None
 
     def headerData(self, section: int, orientation: Qt.Orientation, role: int = Qt.ItemDataRole.DisplayRole) -> Any:
-        if role == Qt.ItemDataRole.DisplayRole and orientation == Qt.Orientation.Horizontal:
+        if orientation == Qt.Orientation.Horizontal and role == Qt.ItemDataRole.DisplayRole:
             return COLUMNS[section]
+        if orientation == Qt.Orientation.Horizontal and role == Qt.ItemDataRole.ToolTipRole:
+            return COLUMN_TIPS[section]
         return None
 
 
