@@ -45,6 +45,8 @@ drivers.errors, drivers.guard and this package. Never the core's estimators.
 
 from __future__ import annotations
 
+import dataclasses
+
 import logging
 import time
 from pathlib import Path
@@ -100,6 +102,15 @@ def analytic_drive(drive_v: np.ndarray, previous_v: float, freq_hz: np.ndarray) 
     return drive_v + 1j * quad
 
 
+def _ringing(respond, ring: np.ndarray):
+    """``respond`` with the transient correction ``ring`` (pressure rows, then the heat-release row) added."""
+    def answer(flame: bool, oscillation=None):
+        forced = respond(flame, oscillation)
+        return dataclasses.replace(forced, pressure_pa=forced.pressure_pa + ring[:-1],
+                                   heat_release_ratio=forced.heat_release_ratio + (ring[-1] if flame else 0.0))
+    return answer
+
+
 class SimulatedBurner:
     """A burner rig in software. Deterministic from the seed; faster than real time by default."""
 
@@ -152,6 +163,16 @@ class SimulatedBurner:
         self._hw_row = self._channels.index(rig.hot_wire.channel) if rig.hot_wire is not None else None
         self._hw_noise = (ColouredNoise(1, self._fs, self.scenario.hot_wire.convective_corner, 0.0,
                                         np.random.default_rng([self.noise_seed, 7])) if rig.hot_wire is not None else None)
+        tr = self.scenario.transients
+        self._transients = None
+        if tr.enabled and self.holder_plane_m is None:
+            from .transients import Transients
+            self._transients = Transients(self.model, self.model.drift_state(0.0), self._fs, self._block_n,
+                                          tr.length, tr.max_frequency)
+            if self._transients.tail_fraction > 1e-2:
+                LOG.warning("simulated burner: [transients] length %g s is short for this rig's slowest mode "
+                            "(impulse response still at %.2g of its peak in its last tenth)", tr.length,
+                            self._transients.tail_fraction)
         self._index = 0
         self._prev_drive_v = 0.0
         self._started = False
@@ -298,6 +319,10 @@ class SimulatedBurner:
             def respond(flame: bool, oscillation: Oscillation | None = None) -> Forced:
                 return self._superposed(parts, state, flame, oscillation)
         self._prev_drive_v = float(delivered_v[-1])
+        if self._transients is not None:     # the modes' free decay the quasi-steady answer leaves out
+            drive_parts = [(cps * fs, z)] if lines is None else [(np.full(n, f), zk) for f, zk in parts]
+            ring = self._transients.correction(drive_parts)
+            respond = _ringing(respond, ring)
         if self._faults.flame_out_index <= i0 or self.holder_plane_m is not None:  # out, or in the holder
             flame_mask = np.zeros(n, dtype=bool)
             forced = respond(False)

@@ -194,6 +194,14 @@ class DriftSpec(_Strict):
     flow_period: Period = 420.0
 
 
+class TransientSpec(_Strict):
+    """Acoustic transients (``drivers.simulated.transients``): off by default, the answer quasi-steady."""
+
+    enabled: StrictBool = False
+    length: quantity("time", 0.05, 10.0, unit="s") = 1.0          # the impulse response's length
+    max_frequency: quantity("frequency", 100.0, 1e6, unit="Hz") = 5000.0   # h's transfer tapered to zero here
+
+
 class FlameOutFault(_Strict):
     enabled: StrictBool = False
     amplitude: number(0.0, 100.0, lo_open=True) | None = None  # peak |û_ref|/ū_ref that blows the flame off
@@ -248,6 +256,7 @@ class Scenario(_Strict):
     hot_wire: HotWireSpec = HotWireSpec()
     adc: AdcSpec = AdcSpec()
     drift: DriftSpec = DriftSpec()
+    transients: TransientSpec = TransientSpec()
     faults: Faults = Faults()
     source_path: str = ""
 
