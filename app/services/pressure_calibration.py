@@ -257,7 +257,11 @@ def run_calibration(req: Request, op: Operator) -> Outcome:
         cal, check = _swap(req, plan, op)
     else:
         cal, check = _common_plane(req, plan, op)
-    drifted = drift_since_last(req, cal, op)   # before the file is written: it may replace the last one
+    # A stop that comes after the last pass, while the drift is compared, still ends the run with
+    # nothing written: the comparison runs inside a stop scope of its own (the drive is already at
+    # zero and closed), and leaving it raises CalibrationStopped before the file is written.
+    with op.stop_scope(_AtZero(), plan.out):
+        drifted = drift_since_last(req, cal, op)   # before the file is written: it may replace the last one
     written = _write(plan.out, cal, plan.rig, req, plan.target_pa, plan.record_s, plan.cut_on, check)
     op.say(f"calibration file: {written}")
     record = _note_in_record(req, plan.rig, written, plan.reference, plan.freqs, check, drifted, op)
@@ -268,6 +272,15 @@ def run_calibration(req: Request, op: Operator) -> Outcome:
                    tuple(float(np.max(np.abs(np.abs(cal.factor[:, j]) - 1.0))) for j in range(len(cal.sensors))),
                    tuple(float(np.max(np.abs(np.degrees(np.angle(cal.factor[:, j]))))) for j in range(len(cal.sensors))),
                    float(cal.coherence[:, others].min()), tuple(drifted), use, record)
+
+
+class _AtZero:
+    """The holder of the stop scope after the last pass: its drive is already zero and closed."""
+
+    halted: str | None = None
+
+    def halt(self, why: str) -> None:
+        self.halted = why
 
 
 def _open(req: Request, rig: Any, holder: bool) -> Any:

@@ -261,3 +261,39 @@ def test_threaded_operator_halts_the_holder_and_raises_on_leaving():
             assert h2.why == "halted here"
     op.say("a line")
     assert told == [("line", "a line")]
+
+
+@pytest.mark.slow
+@pytest.mark.timeout(240)
+@pytest.mark.parametrize("how", ["stop button", "emergency halt"])
+def test_a_stop_after_the_last_pass_still_writes_nothing(qtbot, window, rig_copy, tmp_path, monkeypatch, how):
+    """Every frequency measured, the drive at zero, the drift being compared: a stop then still
+    ends the run with no calibration file and no commissioning-record entry (found by an attack)."""
+    from app.services import pressure_calibration as svc
+
+    panel = window.sensor_run
+    out = tmp_path / "cal.toml"
+    panel.out.setText(str(out))
+    panel.band.setText("100-700")
+    panel.step.setText("200 Hz")
+    reached = threading.Event()
+    compare = svc.drift_since_last
+
+    def slow_drift(req, cal, op):      # the last pass is over: hold the run here for the stop
+        reached.set()
+        time.sleep(1.0)
+        return compare(req, cal, op)
+    monkeypatch.setattr(svc, "drift_since_last", slow_drift)
+    record = record_path_for(rig_copy)
+    before = record.read_text() if record.exists() else None
+    assert panel.start(), _said(panel)
+    qtbot.waitUntil(reached.is_set, timeout=120_000)
+    if how == "stop button":
+        assert panel.stop_button.isEnabled()
+        panel.stop_button.click()
+    else:
+        assert window.emergency_halt()
+    _wait(qtbot, panel, 30_000)
+    assert "nothing written" in _said(panel), _said(panel)
+    assert not out.exists()
+    assert (record.read_text() if record.exists() else None) == before
