@@ -136,11 +136,15 @@ def parse_band(text: str, step_hz: float, band_entry: str = "--band", step_entry
         raise CalibrationRunError(f"{band_entry} {text!r}: expected LOW-HIGH in Hz with 0 < LOW <= HIGH")
     if not (math.isfinite(step_hz) and step_hz > 0):
         raise CalibrationRunError(f"{step_entry} {step_hz!r}: must be a number of Hz > 0")
-    n = int(math.floor((hi - lo) / step_hz + 1e-9)) + 1
-    if n > MAX_FREQUENCIES:
-        raise CalibrationRunError(f"{band_entry} {text} with {step_entry} {step_hz:g} gives {n} frequencies; at most "
-                                  f"{MAX_FREQUENCIES}")
-    return [round(lo + k * step_hz, 9) for k in range(n)]
+    steps = (hi - lo) / step_hz
+    if not steps < MAX_FREQUENCIES:            # also a step so small that the count overflows
+        raise CalibrationRunError(f"{band_entry} {text} with {step_entry} {step_hz:g} gives more than "
+                                  f"{MAX_FREQUENCIES} frequencies; give a larger step")
+    n = int(math.floor(steps + 1e-9)) + 1
+    freqs = [round(lo + k * step_hz, 9) for k in range(n)]
+    if hi - freqs[-1] > 1e-9 * hi:             # the step misses the band's top: it is measured too (a
+        freqs.append(round(hi, 9))             # calibration is never extrapolated to it)
+    return freqs
 
 
 def parse_step(text: str, entry: str = "--step") -> float:
@@ -245,6 +249,10 @@ def _plan(req: Request, op: Operator) -> _Plan:
                 f"{freqs[0]:g} Hz and nowhere else (a calibration is never extrapolated); give a band LOW-HIGH "
                 f"that covers the plan's frequencies")
     out = output_target(req.out, "calibration file", _is_calibration)   # never over a rig file or a run's files
+    record = _record_path(req)
+    if out.resolve() == record.resolve():
+        raise CalibrationRunError(f"{req.entry('out')} {req.out}: that is the rig's commissioning record, which this "
+                                  f"run notes the calibration in; give the calibration file another name")
     return _Plan(rig, reference, second, freqs, cut_on, target_pa, record_s, out)
 
 

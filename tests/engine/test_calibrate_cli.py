@@ -106,6 +106,7 @@ def test_sensor_swap_in_the_duct_recovers_the_simulated_sensors(tmp_path):
     (["--pressure", "500 Pa"], "--pressure '500 Pa': must be more than 0 Pa and at most 200 Pa"),
     (["--check-reference", "p1"], "--check-reference p1: must differ from the reference sensor"),
     (["--band", "5000-6000", "--step", "500"], "every frequency is at or above the cut-on 4403 Hz"),
+    (["--band", "100-2000", "--step", "1e-320"], "gives more than 1000 frequencies; give a larger step"),
 ])
 def test_bad_options_are_refused_naming_them(tmp_path, args, expected):
     out = tmp_path / "cal.toml"
@@ -214,3 +215,22 @@ def test_a_sensor_that_drifted_since_the_last_calibration_is_named(tmp_path):
     from app.commissioning_record import read_record
 
     assert "p4" in read_record(record).latest("pressure-calibration").result["drifted"]
+
+
+@pytest.mark.parametrize("band, step, expected", [
+    ("100-2000", 300.0, [100.0, 400.0, 700.0, 1000.0, 1300.0, 1600.0, 1900.0, 2000.0]),   # the top kept
+    ("100-200", 500.0, [100.0, 200.0]),
+    ("100-1000", 150.0, [100.0, 250.0, 400.0, 550.0, 700.0, 850.0, 1000.0]),
+])
+def test_the_band_is_measured_to_its_top_even_when_the_step_misses_it(band, step, expected):
+    from app.services.pressure_calibration import parse_band
+
+    assert parse_band(band, step) == expected
+
+
+def test_the_commissioning_record_is_refused_as_the_calibration_file(tmp_path):
+    record = tmp_path / "rec.commissioning.toml"
+    proc = _run([str(RIG), "--fast", "--out", str(record), "--commissioning-record", str(record)])
+    assert proc.returncode == 2, proc.stderr
+    assert "Traceback" not in proc.stderr and "that is the rig's commissioning record" in proc.stderr, proc.stderr
+    assert not record.exists()
