@@ -341,7 +341,17 @@ class Plan(_Strict):
         nyquist = rig.acquisition.sample_rate / 2.0
         f_max = float(self.frequencies.all_hz().max())
         if f_max >= 0.8 * nyquist:
-            problems.append(f"frequencies: {f_max:g} Hz is too close to half the sample rate ({nyquist:g} Hz)")
+            problems.append(f"frequencies: {f_max:g} Hz is too close to half the sample rate ({nyquist:g} Hz of "
+                            f"acquisition.sample_rate {rig.acquisition.sample_rate:g} Hz): below {0.8 * nyquist:g} "
+                            f"Hz only")
+        from .core.calibration import duct_cut_on_hz
+
+        cut_on = duct_cut_on_hz(rig)
+        if f_max >= cut_on:
+            problems.append(f"frequencies: {f_max:g} Hz is at or above the duct's first transverse cut-on, "
+                            f"{cut_on:.0f} Hz (1.8412 c/(2π r) with the duct's radius and the gas at the sensors): "
+                            f"above it the sound in the duct is no longer a plane wave, and the multi-microphone "
+                            f"method does not hold; below {cut_on:.0f} Hz only")
         for problem in (self.periods_problem(rig.acquisition.sample_rate),
                         self.duration_problem(ramp_time_s=rig.drive.ramp_time)):
             if problem:
