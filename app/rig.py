@@ -344,10 +344,13 @@ def rig_from_dict(data: dict[str, Any], path: str = "<rig>", units_required: boo
     return _with_hot_wire_record(_with_calibration_file(rig), str(path))
 
 
-def load_rig(path: str | Path, units_required: bool = True) -> Rig:
-    """Load and validate a rig file (``units_required=False`` reads an old file's bare numbers as SI)."""
+def load_rig(path: str | Path, units_required: bool = True, attach_calibration: bool = True) -> Rig:
+    """Load and validate a rig file (``units_required=False`` reads an old file's bare numbers as SI).
+
+    ``attach_calibration=False`` leaves the calibration file the rig names unread (a new pressure
+    calibration measures the sensors as they are, whatever the old file says or whether it exists)."""
     rig = load_model(Rig, path, RIG_DOC, units_required=units_required)
-    return _with_hot_wire_record(_with_calibration_file(rig), str(path))
+    return _with_hot_wire_record(_with_calibration_file(rig) if attach_calibration else rig, str(path))
 
 
 def _with_hot_wire_record(rig: Rig, path: str) -> Rig:

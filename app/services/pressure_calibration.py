@@ -218,7 +218,12 @@ def _plan(req: Request, op: Operator) -> _Plan:
 
     if req.method not in METHODS:
         raise CalibrationRunError(f"{req.entry('method')} {req.method!r}: one of {', '.join(METHODS)}")
-    rig = load_rig(req.rig)
+    # the sensors as they are: the calibration the rig names (gone, made before a sensor moved, or
+    # fine) is not read, so that a rig is never locked out of the calibration that would mend it
+    rig = load_rig(req.rig, attach_calibration=False)
+    if rig.pressure_calibration:
+        op.say(f"the rig names the calibration {rig.pressure_calibration!r}; it is not read here: this run "
+               f"measures the sensors anew")
     reference = _sensor(rig, req.reference, req.entry("reference"))
     second = _sensor(rig, req.check_reference, req.entry("check_reference")) if req.check_reference else None
     if second == reference:

@@ -234,3 +234,18 @@ def test_the_commissioning_record_is_refused_as_the_calibration_file(tmp_path):
     assert proc.returncode == 2, proc.stderr
     assert "Traceback" not in proc.stderr and "that is the rig's commissioning record" in proc.stderr, proc.stderr
     assert not record.exists()
+
+
+def test_a_rig_naming_a_missing_or_outdated_calibration_can_still_be_calibrated(tmp_path):
+    """The calibration the rig names is not read by a new calibration (found by an attack: a rig
+    whose file was gone, or made before a sensor moved, was refused and told to calibrate again)."""
+    rig = tmp_path / "rig.toml"
+    rig.write_text(RIG.read_text(encoding="utf-8").replace(
+        "\n[duct]", "\npressure_calibration = \"gone.toml\"\n\n[duct]", 1), encoding="utf-8")
+    out = tmp_path / "cal.toml"
+    proc = _run([str(rig), "--band", "100-300", "--step", "100", "--fast", "--seed", "3", "--out", str(out),
+                 "--commissioning-record", str(tmp_path / "rig.commissioning.toml")])
+    assert proc.returncode == 0, proc.stderr
+    assert "names the calibration 'gone.toml'; it is not read here" in proc.stdout, proc.stdout
+    made = read_calibration(out)
+    assert made.frequency_hz == (100.0, 200.0, 300.0) and [s.name for s in made.sensors] == ["p1", "p2", "p3", "p4"]
