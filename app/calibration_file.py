@@ -28,6 +28,7 @@ import hashlib
 import json
 import math
 import os
+import stat
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -136,14 +137,23 @@ def to_toml(cal: CalibrationFile) -> str:
 def write_calibration(path: str | Path, cal: CalibrationFile) -> Path:
     """Write ``cal`` to ``path`` atomically: temporary file, fsync, rename over the target."""
     target = Path(path)
+    if target.is_symlink():        # a link (to a shared folder's file): the file it points at is written
+        target = target.resolve()
     text = to_toml(cal)
     folder = target.parent if str(target.parent) else Path(".")
+    if target.exists():            # the replaced file's permissions are kept (mkstemp's are 0600)
+        mode = stat.S_IMODE(target.stat().st_mode)
+    else:                          # a new file: as open() would make it, under the umask
+        umask = os.umask(0)
+        os.umask(umask)
+        mode = 0o666 & ~umask
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, mode)
         os.replace(tmp, target)
     except BaseException:
         try:
@@ -238,6 +248,21 @@ def parse_calibration(data: dict[str, Any], path: str) -> CalibrationFile:
         problems.append(f"sensor.{extra[0]}: a table for a sensor not listed in 'sensors'")
     if reference and names and reference not in names:
         problems.append(f"reference: {reference!r} is not one of the sensors ({', '.join(names)})")
+    twice = sorted({n for n in names if names.count(n) > 1})
+    if twice:
+        problems.append(f"sensors: {', '.join(twice)} listed more than once")
+    if freqs and math.isfinite(cut_on) and freqs[-1] >= cut_on:
+        problems.append(f"frequency_hz: {freqs[-1]:g} Hz is at or above the file's own cut_on_hz {cut_on:g} Hz: no "
+                        f"plane-wave calibration holds there")
+    for f in sensors:   # relative factors: the reference sensor's own is 1 (gain 1, phase 0) by definition
+        if f.name == reference and f.gain and f.phase_deg and (
+                max(abs(g - 1.0) for g in f.gain) > 1e-9 or max(abs(ph) for ph in f.phase_deg) > 1e-9):
+            problems.append(f"sensor.{f.name}: the reference sensor's factors must be gain 1 and phase 0 at every "
+                            f"frequency (the others are relative to it); this file is not a relative calibration "
+                            f"against {reference!r}")
+        elif f.name != reference and f.coherence and min(f.coherence) <= 0.0:
+            problems.append(f"sensor.{f.name}.coherence: 0 means no coherent signal with the reference: its factor "
+                            f"there was not measured")
     if problems:
         raise CalibrationFileError(path, problems)
     conditions = data.get("conditions") if isinstance(data.get("conditions"), dict) else {}

@@ -7,6 +7,7 @@ refused file is applied.
 from __future__ import annotations
 
 import os
+import stat
 from pathlib import Path
 
 import numpy as np
@@ -117,6 +118,11 @@ def test_missing_sensors_are_named(tmp_path, demo_rig_path):
     (lambda t: t.replace("frequency_hz = [100.0, 500.0", "frequency_hz = [500.0, 100.0"), "strictly increasing"),
     (lambda t: t.replace('reference = "p1"', 'reference = "p9"'), "reference: 'p9' is not one of the sensors"),
     (lambda t: t.replace("u_gain = [0.0", "u_gain = [nan", 1), "is not a finite number"),
+    # found by an attack: hand edits that read as a calibration but are not one
+    (lambda t: t.replace("gain = [1.0, 1.0", "gain = [2.0, 2.0", 1), "the reference sensor's factors must be gain 1"),
+    (lambda t: t.replace("cut_on_hz = 4400.0", "cut_on_hz = 1500.0"), "at or above the file's own cut_on_hz 1500 Hz"),
+    (lambda t: t.replace('sensors = ["p1", "p2"', 'sensors = ["p1", "p1", "p2"'), "p1 listed more than once"),
+    (lambda t: t.replace("coherence = [0.9999", "coherence = [0.0", 2), "coherence: 0 means no coherent signal"),
 ])
 def test_a_corrupt_or_malformed_file_is_refused_naming_the_problem(tmp_path, demo_rig_path, mangle, expected):
     cal_path = _write(load_rig(demo_rig_path), tmp_path / "cal.toml")
@@ -175,3 +181,17 @@ def test_a_sensor_exchanged_since_its_calibration_is_refused_by_serial(tmp_path,
     with pytest.raises(CalibrationFileError) as exc:
         load_rig(tmp_path / "rig.toml")
     assert "sensor.p2: serial 'PX-A2' was calibrated" in str(exc.value) and "'PX-B2'" in str(exc.value)
+
+
+def test_writing_through_a_link_writes_its_target_and_keeps_the_files_permissions(tmp_path, demo_rig_path):
+    # found by an attack: the link was replaced by a private (0600) copy, the shared file kept its old factors
+    rig = load_rig(demo_rig_path)
+    shared = tmp_path / "shared"
+    shared.mkdir()
+    target = _write(rig, shared / "cal.toml")
+    os.chmod(target, 0o644)
+    link = tmp_path / "link.toml"
+    link.symlink_to(target)
+    _write(rig, link)
+    assert link.is_symlink() and link.resolve() == target.resolve()
+    assert stat.S_IMODE(target.stat().st_mode) == 0o644
