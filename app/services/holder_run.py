@@ -39,6 +39,9 @@ class Halted(FlamebodeError):
     """The run was halted (a signal or an emergency stop); the output is at zero."""
 
 
+MIN_WINDOW_PERIODS = 16.0            # 4 segments of 4 periods (app.core.calibration's least)
+
+
 @dataclass(frozen=True)
 class DriveSettings:
     target_pa: float                 # peak pressure amplitude wanted at the reference sensor
@@ -138,7 +141,9 @@ class HolderRun:
 
     # ------------------------------------------------------------------ one frequency
     def _pressure(self, freq_hz: float) -> float:
-        x = self._read(self.settings.tuning_window_s)
+        # a window long enough for 4 segments of 4 periods at this frequency (0.2 s holds only 10
+        # periods of 50 Hz), so that a low frequency is tuned, not refused after it was driven
+        x = self._read(max(self.settings.tuning_window_s, 1.05 * MIN_WINDOW_PERIODS / freq_hz))
         try:
             ph = segment_phasors(x[self._ref:self._ref + 1], self._fs, freq_hz, n_segments=4)
         except CalibrationError as exc:

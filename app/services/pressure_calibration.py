@@ -249,6 +249,14 @@ def _plan(req: Request, op: Operator) -> _Plan:
     if not freqs:
         raise CalibrationRunError(f"{req.entry('band')} {req.band}: every frequency is at or above the cut-on "
                                   f"{cut_on:.0f} Hz")
+    from ..core.calibration import MIN_PERIODS_PER_SEGMENT, MIN_SEGMENTS
+
+    need = 1.02 * MIN_SEGMENTS * MIN_PERIODS_PER_SEGMENT / min(freqs)   # checked before anything is driven
+    if record_s < need:
+        raise CalibrationRunError(f"{req.entry('record')} {req.record!r}: holds {record_s * min(freqs):g} periods of "
+                                  f"the lowest frequency {min(freqs):g} Hz; at least "
+                                  f"{MIN_SEGMENTS * MIN_PERIODS_PER_SEGMENT:g} are needed: give at least "
+                                  f"{math.ceil(need * 1000) / 1000:g} s")
     if len(freqs) == 1:
         op.warn(f"warning: one frequency only ({freqs[0]:g} Hz): a sweep can use this calibration at exactly "
                 f"{freqs[0]:g} Hz and nowhere else (a calibration is never extrapolated); give a band LOW-HIGH "

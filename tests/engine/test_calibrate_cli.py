@@ -107,13 +107,16 @@ def test_sensor_swap_in_the_duct_recovers_the_simulated_sensors(tmp_path):
     (["--check-reference", "p1"], "--check-reference p1: must differ from the reference sensor"),
     (["--band", "5000-6000", "--step", "500"], "every frequency is at or above the cut-on 4403 Hz"),
     (["--band", "100-2000", "--step", "1e-320"], "gives more than 1000 frequencies; give a larger step"),
+    (["--band", "50-400", "--step", "50", "--record", "0.2 s"], "holds 10 periods of the lowest frequency 50 Hz"),
 ])
 def test_bad_options_are_refused_naming_them(tmp_path, args, expected):
     out = tmp_path / "cal.toml"
-    proc = _run([str(RIG), "--fast", "--out", str(out), *args])
+    log = tmp_path / "drive.csv"
+    proc = _run([str(RIG), "--fast", "--out", str(out), *args], log=log)
     assert proc.returncode == 2, proc.stderr
     assert "Traceback" not in proc.stderr and expected in proc.stderr, proc.stderr
     assert not out.exists()
+    assert not log.exists() or not np.any(read_log(log)["peak_v"] > 0.0)     # refused before anything was driven
 
 
 def test_frequencies_above_the_cut_on_are_refused_with_a_warning(tmp_path):
@@ -249,3 +252,13 @@ def test_a_rig_naming_a_missing_or_outdated_calibration_can_still_be_calibrated(
     assert "names the calibration 'gone.toml'; it is not read here" in proc.stdout, proc.stdout
     made = read_calibration(out)
     assert made.frequency_hz == (100.0, 200.0, 300.0) and [s.name for s in made.sensors] == ["p1", "p2", "p3", "p4"]
+
+
+def test_a_band_down_to_50_hz_is_tuned_and_calibrated(tmp_path):
+    # found by an attack: the fixed 0.2 s tuning window holds 10 periods of 50 Hz, fewer than the 16
+    # the segment estimate needs, so 50 Hz was refused after the speaker had been driven
+    out = tmp_path / "low.toml"
+    proc = _run([str(RIG), "--band", "50-150", "--step", "50", "--fast", "--seed", "3", "--out", str(out),
+                 "--commissioning-record", str(tmp_path / "rig.commissioning.toml")])
+    assert proc.returncode == 0, proc.stderr
+    assert read_calibration(out).frequency_hz == (50.0, 100.0, 150.0)
