@@ -146,7 +146,7 @@ class ProgressDisplay:
         if not interrupted:          # a record cut short is never kept: it does not join the curve
             self._phases[index] = (freq, target, phase)
         shown = self._phase_deg(index, freq, target, phase)
-        text = (f"  {self.status['settled']:>3}/{n}  point {index + 1:<4}{freq:8.1f} Hz  a {achieved:.4f} ({(achieved / target - 1) * 100:+5.1f} %)  "
+        text = (f"  {self.status['settled']:>3} of {n}  point {index + 1:<4}{freq:8.1f} Hz  a {achieved:.4f} ({(achieved / target - 1) * 100:+5.1f} %)  "
                 f"gain {gain:.3f} ± {gain_ci:.3f}  phase {shown:+7.1f}° ± {math.degrees(phase_ci):.1f}°  "
                 f"drive {drive_v:.3f} V")
         if flags:
