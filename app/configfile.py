@@ -31,7 +31,7 @@ def read_toml(path: str | Path, complete: bool = False) -> dict[str, Any]:
     refused as possibly cut short (for files whose missing keys would silently default)."""
     p = Path(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        text = p.read_text(encoding="utf-8-sig")     # a byte-order mark (as Windows editors save) is dropped
     except FileNotFoundError:
         raise ConfigError(str(p), ["file not found"]) from None
     except (OSError, UnicodeDecodeError) as exc:

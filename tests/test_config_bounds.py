@@ -342,3 +342,14 @@ def test_the_simulator_starts_at_the_slowest_bounds() -> None:
     block = sim.read_block()
     assert math.isfinite(float(abs(block.data).max()))
     assert time.monotonic() - t0 < 60.0
+
+
+def test_a_file_saved_with_a_byte_order_mark_reads_as_without(tmp_path) -> None:
+    from app.rig import load_rig
+
+    # found by an attack: a rig file saved by a Windows editor (UTF-8 with BOM) was refused as
+    # "not valid TOML (at line 1, column 1)"
+    text = DEMO["rig"].read_text(encoding="utf-8")
+    f = tmp_path / "rig.toml"
+    f.write_bytes(b"\xef\xbb\xbf" + text.encode("utf-8"))
+    assert load_rig(f).name == load_rig(DEMO["rig"]).name
