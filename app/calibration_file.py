@@ -166,7 +166,8 @@ def write_calibration(path: str | Path, cal: CalibrationFile) -> Path:
 
 # ----------------------------------------------------------------------------- reading
 def _numbers(table: dict[str, Any], key: str, where: str, n: int, problems: list[str],
-             lo: float = -math.inf, hi: float = math.inf, lo_open: bool = False) -> tuple[float, ...]:
+             lo: float = -math.inf, hi: float = math.inf, lo_open: bool = False,
+             lo_warn: float | None = None) -> tuple[float, ...]:
     value = table.get(key)
     if not isinstance(value, list) or any(isinstance(v, bool) or not isinstance(v, (int, float)) for v in value):
         problems.append(f"{where}.{key}: required list of numbers is missing or holds something else")
@@ -178,6 +179,9 @@ def _numbers(table: dict[str, Any], key: str, where: str, n: int, problems: list
     if bad:
         rng = f"{'more than' if lo_open else 'at least'} {lo:g}" + (f" and at most {hi:g}" if math.isfinite(hi) else "")
         problems.append(f"{where}.{key}: {bad[0]!r} is not a finite number {rng}")
+    elif lo_warn is not None and any(v < lo_warn for v in out):   # a factor below 1/100: no sensor that works
+        problems.append(f"{where}.{key}: {min(out)!r} is below {lo_warn:g}: a factor of more than 100 between two "
+                        f"sensors is not a calibration (at least {lo_warn:g} and at most {hi:g})")
     return out
 
 
@@ -237,10 +241,11 @@ def parse_calibration(data: dict[str, Any], path: str) -> CalibrationFile:
             pos = math.nan
         sensors.append(SensorFactors(
             name=name, sensitivity_v_pa=float(sens), position_m=float(pos),
-            gain=_numbers(t, "gain", where, n, problems, lo=0.0, lo_open=True),
+            # the bounds of a rig's calibration table (app.rig.CalibrationPoint), said here by key
+            gain=_numbers(t, "gain", where, n, problems, lo=0.0, lo_open=True, hi=100.0, lo_warn=0.01),
             phase_deg=_numbers(t, "phase_deg", where, n, problems, lo=-360.0, hi=360.0),
-            u_gain=_numbers(t, "u_gain", where, n, problems, lo=0.0),
-            u_phase_deg=_numbers(t, "u_phase_deg", where, n, problems, lo=0.0),
+            u_gain=_numbers(t, "u_gain", where, n, problems, lo=0.0, hi=1.0),
+            u_phase_deg=_numbers(t, "u_phase_deg", where, n, problems, lo=0.0, hi=90.0),
             coherence=_numbers(t, "coherence", where, n, problems, lo=0.0, hi=1.0),
             serial=str(t.get("serial", ""))))
     extra = sorted(set(tables) - set(names))

@@ -123,6 +123,11 @@ def test_missing_sensors_are_named(tmp_path, demo_rig_path):
     (lambda t: t.replace("cut_on_hz = 4400.0", "cut_on_hz = 1500.0"), "at or above the file's own cut_on_hz 1500 Hz"),
     (lambda t: t.replace('sensors = ["p1", "p2"', 'sensors = ["p1", "p1", "p2"'), "p1 listed more than once"),
     (lambda t: t.replace("coherence = [0.9999", "coherence = [0.0", 2), "coherence: 0 means no coherent signal"),
+    # bounds said by key, never a validation library's text (found by an attack)
+    (lambda t: t.replace("gain = [0.98", "gain = [1e6, 0.98", 1).replace("0.9800979999999999, ", "", 1),
+     "sensor.p2.gain: 1000000.0 is not a finite number more than 0 and at most 100"),
+    (lambda t: t.replace("u_gain = [0.001", "u_gain = [50.0", 1), "u_gain: 50.0 is not a finite number at least 0 "
+                                                                  "and at most 1"),
 ])
 def test_a_corrupt_or_malformed_file_is_refused_naming_the_problem(tmp_path, demo_rig_path, mangle, expected):
     cal_path = _write(load_rig(demo_rig_path), tmp_path / "cal.toml")
