@@ -377,7 +377,14 @@ def status(target: Target, max_age_days: float = 30.0) -> Status:
     rows = tuple(StatusRow(k, c.date if (c := record.latest(k)) else None) for k in STATUS_KINDS)
     cal = str(getattr(rig, "pressure_calibration", "") or "")
     from app.calibration_file import rig_identity
-    to_do = tuple(age_notes(record, max_age_days, identity=rig_identity(rig)))
+    notes = age_notes(record, max_age_days, identity=rig_identity(rig))
+    last_cal = record.latest("pressure-calibration")
+    if last_cal is not None and not cal:   # calibrated, but the sweeps read the nominal sensitivities
+        made = last_cal.result.get("file") if isinstance(last_cal.result, dict) else None
+        notes.append(f"the pressure calibration of {last_cal.date}" + (f" ({made})" if made else "") +
+                     " is not named by the rig file, so sweeps do not use it: add pressure_calibration = \"FILE\" "
+                     "to the rig file (before its first table)")
+    to_do = tuple(notes)
     lines = [f"commissioning record of {rig.name}: {record.path}" + ("" if record.path.exists() else " (none yet)")]
     lines += [f"  {r.kind:22s} {r.date or 'never'}" for r in rows]
     if cal:

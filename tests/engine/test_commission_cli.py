@@ -176,3 +176,19 @@ def test_a_stop_signal_ends_a_recording_and_stores_nothing(rig: Path):
     assert proc.returncode == 2, err[-2000:]
     assert "SIGINT received: stopped, nothing recorded" in err and "Traceback" not in err
     assert read_record(record_path_for(rig)).checks == ()
+
+
+@pytest.mark.timeout(180)
+def test_status_says_when_the_calibration_made_is_not_named_by_the_rig(rig: Path, tmp_path: Path):
+    # found by a new user: after a calibration, status listed it as done while the rig file named no
+    # calibration, so every sweep still read the nominal sensitivities
+    cal = tmp_path / "cal.toml"
+    made = run_cli("calibrate", str(rig), "--band", "100-300", "--step", "100", "--fast", "--seed", "3",
+                   "--out", str(cal))
+    assert made.returncode == 0, made.stderr
+    out = run_cli("commission", "status", str(rig))
+    assert out.returncode == 0, out.stderr
+    assert "is not named by the rig file, so sweeps do not use it" in out.stdout, out.stdout
+    rig.write_text(rig.read_text().replace("\n[duct]", f"\npressure_calibration = {str(cal)!r}\n\n[duct]", 1))
+    out = run_cli("commission", "status", str(rig))
+    assert out.returncode == 0 and "not named by the rig file" not in out.stdout, out.stdout + out.stderr
