@@ -216,8 +216,8 @@ class TuningHistory(Observable):
 
 
 # ====================================================================== points
-PLANNED, MEASURING, KEPT, FLAGGED, SKIPPED, FAILED, REJECTED = (
-    "planned", "measuring", "kept", "flagged", "not kept", "fault", "rejected")
+PLANNED, MEASURING, KEPT, FLAGGED, SKIPPED, FAILED, REJECTED, DAMAGED = (
+    "planned", "measuring", "kept", "flagged", "not kept", "fault", "rejected", "record damaged")
 
 
 @dataclass
@@ -324,7 +324,9 @@ class PointTable(Observable):
             r.attempts = len(atts)
             a = accepted.get(i)
             if a is None:
-                r.status = REJECTED if any(x["decision"] == "rejected" for x in atts) else PLANNED
+                unusable = any(x["decision"] == "accepted" and x.get("record_status", "ok") != "ok" for x in atts)
+                r.status = (DAMAGED if unusable else              # measured, but its record cannot be read back
+                            REJECTED if any(x["decision"] == "rejected" for x in atts) else PLANNED)
                 if atts:
                     r.attempt_id = atts[-1]["attempt_id"]
                     r.decision = atts[-1]["decision"]

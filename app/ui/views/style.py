@@ -15,7 +15,7 @@ from PySide6.QtWidgets import QFrame, QGraphicsItem, QScrollArea, QWidget
 # colour-blind-safe hues (Okabe & Ito, "Color Universal Design", 2008), dark enough on white
 CHANNEL_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#56B4E9", "#E69F00", "#555555", "#000000")
 STATUS_COLOURS = {"planned": "#FFFFFF", "measuring": "#DCEBFA", "kept": "#E3F4E1", "flagged": "#FFF1C9",
-                  "not kept": "#EFE3F6", "fault": "#F9D6D2", "rejected": "#E4E4E4"}
+                  "not kept": "#EFE3F6", "fault": "#F9D6D2", "rejected": "#E4E4E4", "record damaged": "#F9D6D2"}
 HALT_STYLE = ("QToolButton { background: #C62828; color: white; font-weight: bold; font-size: 15px; "
               "padding: 8px 18px; border: 2px solid #7F0000; border-radius: 6px; } "
               "QToolButton:pressed { background: #8E0000; }")
