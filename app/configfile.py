@@ -90,7 +90,27 @@ def _header_line(text: str, key: str) -> int | None:
     return None
 
 
-def format_validation_error(path: str, err: ValidationError, reference: str = "docs/rig-file.md") -> ConfigError:
+def _entry_hint(data: Any, loc: tuple) -> str:
+    """' (entry 2 of [[pressure_sensors]], channel "p2")' for a key inside a list of tables: the list
+    index counts from 0 like the key path, so the entry is also said from 1 and by its name."""
+    node, hint = data, ""
+    for i, part in enumerate(loc):
+        if isinstance(part, int) and isinstance(node, list) and 0 <= part < len(node):
+            entry = node[part]
+            label = next((f'{k} "{entry[k]}"' for k in ("channel", "name") if isinstance(entry, dict)
+                          and isinstance(entry.get(k), str)), "")
+            table = ".".join(str(p) for p in loc[:i] if not isinstance(p, int))
+            hint = f" (entry {part + 1} of [[{table}]]" + (f", {label}" if label else "") + ")"
+            node = entry
+        elif isinstance(node, dict) and part in node:
+            node = node[part]
+        else:
+            break
+    return hint
+
+
+def format_validation_error(path: str, err: ValidationError, reference: str = "docs/rig-file.md",
+                            data: Any = None) -> ConfigError:
     """Turn a pydantic error into a ConfigError whose lines read 'key.path: what is wrong'."""
     problems = []
     for e in err.errors():
@@ -102,7 +122,7 @@ def format_validation_error(path: str, err: ValidationError, reference: str = "d
             msg = "required key is missing"
         elif e["type"] != "value_error" and isinstance(e.get("input"), (str, int, float, bool)):
             msg = f"{msg} (got {e['input']!r})"
-        problems.append(f"{loc or '(top level)'}: {msg}")
+        problems.append(f"{loc or '(top level)'}: {msg}" + (_entry_hint(data, tuple(e["loc"])) if data else ""))
     return ConfigError(path, problems)
 
 
@@ -116,7 +136,7 @@ def model_from_dict(model: type[M], data: dict[str, Any], path: str, reference: 
         return model.model_validate({**data, "source_path": str(path)},
                                     context={"units_required": units_required})
     except ValidationError as err:
-        raise format_validation_error(str(path), err, reference) from None
+        raise format_validation_error(str(path), err, reference, data) from None
 
 
 def load_model(model: type[M], path: str | Path, reference: str, source_path: str | None = None,

@@ -353,3 +353,17 @@ def test_a_file_saved_with_a_byte_order_mark_reads_as_without(tmp_path) -> None:
     f = tmp_path / "rig.toml"
     f.write_bytes(b"\xef\xbb\xbf" + text.encode("utf-8"))
     assert load_rig(f).name == load_rig(DEMO["rig"]).name
+
+
+def test_a_problem_in_a_list_of_tables_names_the_entry_from_1_and_by_its_channel(tmp_path) -> None:
+    # found by a new user: "pressure_sensors[1].sensitivty" for a typo in p2's table read as sensor 1
+    from app.rig import load_rig
+
+    text = DEMO["rig"].read_text(encoding="utf-8")
+    first = text.index("sensitivity = ", text.index('channel = "p2"'))
+    f = tmp_path / "rig.toml"
+    f.write_text(text[:first] + "sensitivty = " + text[first + len("sensitivity = "):], encoding="utf-8")
+    with pytest.raises(ConfigError) as err:
+        load_rig(f)
+    assert ('pressure_sensors[1].sensitivty: unknown key (check spelling; see docs/rig-file.md) (entry 2 of '
+            '[[pressure_sensors]], channel "p2")') in str(err.value), str(err.value)
