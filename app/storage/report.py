@@ -103,6 +103,37 @@ def _draw(ax_g: Any, ax_p: Any, rows: list[dict[str, Any]], label: str) -> dict[
     return colours
 
 
+def same_phase_branch(reference: list[dict[str, Any]], rows: list[dict[str, Any]]
+                      ) -> tuple[list[dict[str, Any]], int]:
+    """``rows`` with their unwrapped phase moved by whole turns onto ``reference``'s branch.
+
+    Each run unwraps its phase from its own first frequency, so two runs of one flame can read
+    360° apart (a plan starting at 800 Hz against one from 100 Hz). The turn count is the rounded
+    median difference at the frequencies both hold (within 1 % of each other), or, without any,
+    against the reference interpolated at this run's lowest frequency inside its range; none
+    when the two do not overlap at all. Returns the rows (copies where moved) and the turns."""
+    ref = sorted((r["freq_hz"], r["phase_deg"]) for r in reference if r.get("phase_deg") is not None)
+    own = [r for r in rows if r.get("phase_deg") is not None]
+    if not ref or not own:
+        return rows, 0
+    rf, rp = np.array([a for a, _ in ref]), np.array([b for _, b in ref])
+    diffs = []
+    for r in own:
+        k = int(np.argmin(np.abs(rf - r["freq_hz"])))
+        if abs(rf[k] - r["freq_hz"]) <= 0.01 * r["freq_hz"]:
+            diffs.append(rp[k] - r["phase_deg"])
+    if not diffs:
+        low = min(own, key=lambda r: r["freq_hz"])
+        if not rf[0] <= low["freq_hz"] <= rf[-1]:
+            return rows, 0
+        diffs = [float(np.interp(low["freq_hz"], rf, rp)) - low["phase_deg"]]
+    turns = int(round(float(np.median(diffs)) / 360.0))
+    if not turns:
+        return rows, 0
+    return [({**r, "phase_deg": r["phase_deg"] + 360.0 * turns} if r.get("phase_deg") is not None else r)
+            for r in rows], turns
+
+
 def _axes_labels(ax_g: Any, ax_p: Any) -> None:
     ax_g.set_ylabel("gain |F| (-)")
     ax_p.set_ylabel("phase (degrees, unwrapped)")
@@ -126,11 +157,19 @@ def compare(run_dirs: list[str | Path], out: str | Path) -> Path:
     FigureCanvasAgg(fig)
     ax_g, ax_p = fig.subplots(2, 1, sharex=True)
     drawn = 0
+    first: list[dict[str, Any]] | None = None
     for d in run_dirs:
         run = open_run(d, verify=False)
         rows = point_rows(run)
         drawn += sum(1 for r in rows if r["gain"] is not None and r["phase_deg"] is not None)
-        _draw(ax_g, ax_p, rows, f"{plan_name(run) or Path(d).name} ({_date(run)})")
+        label = f"{plan_name(run) or Path(d).name} ({_date(run)}, {Path(d).name})"
+        if first is None:
+            first = rows
+        else:
+            rows, turns = same_phase_branch(first, rows)
+            if turns:
+                label += f", phase {360 * turns:+d}° to the first run's branch"
+        _draw(ax_g, ax_p, rows, label)
     if not drawn:
         raise FlamebodeError("no point with a result in " + ", ".join(str(d) for d in run_dirs) + ": nothing to draw")
     _axes_labels(ax_g, ax_p)
