@@ -58,6 +58,7 @@ class ProgressDisplay:
                                                                for i, f, a, ph in known}
         # points settled in this sweep -> (flags, warnings) of each attempt, counted by app.core.flagging
         self._attempts: dict[int, list[tuple[tuple[str, ...], tuple[str, ...]]]] = {}
+        self._unevaluated: set[int] = set()     # point numbers (from 1) whose record failed evaluation
 
     # -- engine thread: copy and enqueue only
     def __call__(self, event: Event) -> None:
@@ -125,6 +126,8 @@ class ProgressDisplay:
         elif isinstance(item, Notice):
             return Text(f"  note {item.name}: {item.message}", style="cyan")
         elif isinstance(item, FaultRaised):
+            if item.name == "evaluation-failed" and item.point_index is not None:
+                self._unevaluated.add(item.point_index + 1)
             style = "bold red" if item.fatal else "yellow"
             where = f"point {item.point_index + 1}: " if item.point_index is not None else ""
             return Text(f"  {'FAULT' if item.fatal else 'flag '} {item.name}: {where}{item.message}. "
@@ -133,6 +136,10 @@ class ProgressDisplay:
             flagged = [i + 1 for i, a in sorted(self._attempts.items()) if point_flagged(a)]
             which = (f"{len(flagged)} flagged: point{'s' if len(flagged) > 1 else ''} {', '.join(map(str, flagged))}"
                      if flagged else "none flagged")
+            lost = sorted(self._unevaluated - {i + 1 for i in self._attempts})
+            if lost:
+                which += (f"; not stored: point{'s' if len(lost) > 1 else ''} {', '.join(map(str, lost))}, whose "
+                          f"record could not be evaluated (see the flags above)")
             return Text(f"sweep {item.reason}: {item.n_settled} of {item.n_points} points settled and kept "
                         f"({which})", style="bold")
         return None

@@ -67,6 +67,22 @@ def test_the_finish_line_counts_a_reacquired_clean_point_as_not_flagged() -> Non
     assert "(1 flagged: point 2)" in out.getvalue(), out.getvalue()
 
 
+def test_the_finish_line_names_a_point_whose_record_could_not_be_evaluated() -> None:
+    # found by a new user: a point driven, recorded, failing its evaluation and not stored ended in
+    # "sweep complete ... (none flagged)"
+    from app.engine.faults import fault_event
+
+    out = io.StringIO()
+    display = ProgressDisplay(file=out).start()
+    for ev in (SweepStarted(run_label="r", n_points=3, backend="simulated", identity={}, plan=None, rig=None),
+               _settled(0), fault_event("evaluation-failed", "point 2 at 150 Hz: no usable light", 1), _settled(2),
+               SweepFinished(reason="complete", n_settled=2, n_points=3, detail="")):
+        display(ev)
+    display.close()
+    assert ("2 of 3 points settled and kept (none flagged; not stored: point 2, whose record could not be "
+            "evaluated") in out.getvalue(), out.getvalue()
+
+
 @pytest.mark.slow
 def test_the_finish_line_says_what_review_says(tmp_path) -> None:
     plan = tmp_path / "plan.toml"
