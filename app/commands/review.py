@@ -56,7 +56,8 @@ def run(args: argparse.Namespace) -> int:
         print(f"fault at point {_num(f['point_index'])}: {f['name']}: {f['message']} ({f['action']})")
     rows = list(rv.rows)
     print("(used: the point/attempt every output uses, e.g. 7/2 = point 7, attempt 2; of: attempts stored; "
-          "phase in degrees, unwrapped along frequency; ±95%: half-widths of the 95 % intervals)")
+          "phase in degrees, unwrapped along frequency, time convention e^(+iωt); ±95%: half-widths of the 95 % "
+          "intervals)")
     cells = [_cells(row) for row in rows]
     widths = [max([len(h)] + [len(c[k]) for c in cells]) for k, (h, _) in enumerate(COLUMNS)]
     line = "  ".join

@@ -111,8 +111,8 @@ class ProgressDisplay:
         s = self.status
         if isinstance(item, tuple) and item[0] == "started":
             s["n"] = item[1]
-            return Text(f"sweep {item[2]}: {item[1]} point{'' if item[1] == 1 else 's'} on {item[3] or 'back-end'}",
-                        style="bold")
+            return Text(f"sweep {item[2]}: {item[1]} point{'' if item[1] == 1 else 's'} on {item[3] or 'back-end'} "
+                        f"(a = |u'|/u_mean reached; phase in degrees, unwrapped, e^(+iωt))", style="bold")
         if isinstance(item, tuple) and item[0] == "settled":
             return self._result_line(item)
         if isinstance(item, StateChanged):
@@ -155,7 +155,7 @@ class ProgressDisplay:
         shown = self._phase_deg(index, freq, target, phase)
         text = (f"  {self.status['settled']:>3} of {n}  point {index + 1:<4}{freq:8.1f} Hz  a {achieved:.4f} ({(achieved / target - 1) * 100:+5.1f} %)  "
                 f"gain {gain:.3f} ± {gain_ci:.3f}  phase {shown:+7.1f}° ± {math.degrees(phase_ci):.1f}°  "
-                f"drive {drive_v:.3f} V")
+                f"drive {drive_v:.3f} V peak")
         if flags:
             text += f"  [{', '.join(flags)}]"
         return Text(text, style="yellow" if flags else "")

@@ -282,10 +282,11 @@ def run_calibration(req: Request, op: Operator) -> Outcome:
     # nothing written: the comparison runs inside a stop scope of its own (the drive is already at
     # zero and closed), and leaving it raises CalibrationStopped before the file is written.
     with op.stop_scope(_AtZero(), plan.out):
+        earlier = _earlier_date(req)               # "" when there is no earlier calibration to compare with
         drifted = drift_since_last(req, cal, op)   # before the file is written: it may replace the last one
     written = _write(plan.out, cal, plan.rig, req, plan.target_pa, plan.record_s, plan.cut_on, check)
     op.say(f"calibration file: {written}")
-    record = _note_in_record(req, plan.rig, written, plan.reference, plan.freqs, check, drifted, op)
+    record = _note_in_record(req, plan.rig, written, plan.reference, plan.freqs, check, drifted, op, earlier)
     use = f"pressure_calibration = {json.dumps(str(written.resolve()))}"
     op.say(f"to use it, add to {plan.rig.source_path} (before its first table): {use}")
     others = [j for j, n in enumerate(cal.sensors) if n != cal.reference] or list(range(len(cal.sensors)))
@@ -491,15 +492,27 @@ def drift_since_last(req: Request, cal: Any, op: Operator) -> list[str]:
     return list(dict.fromkeys(d.sensor for d in moved))
 
 
+def _earlier_date(req: Request) -> str:
+    """The date of the record's newest pressure calibration ("" when none, or the record is unreadable)."""
+    from ..commissioning_record import read_record
+
+    try:
+        last = read_record(_record_path(req)).latest("pressure-calibration")
+    except FlamebodeError:
+        return ""
+    return "" if last is None else str(last.date)
+
+
 def _note_in_record(req: Request, rig: Any, written: Path, reference: str, freqs: list[float], check: Any,
-                    drifted: list[str], op: Operator) -> Path | None:
+                    drifted: list[str], op: Operator, earlier: str = "") -> Path | None:
     """The calibration in the rig's commissioning record (app.commissioning_record); a record that
     cannot be written is said, and the calibration file already written stays."""
     from ..calibration_file import rig_identity
     from ..commissioning_record import Check, append_check, now_utc
 
     result: dict[str, Any] = {"file": str(written.resolve()), "reference": reference, "band_low_hz": float(freqs[0]),
-                              "band_high_hz": float(freqs[-1]), "n_frequencies": len(freqs), "drifted": list(drifted)}
+                              "band_high_hz": float(freqs[-1]), "n_frequencies": len(freqs), "drifted": list(drifted),
+                              "compared_with": earlier}
     if check is not None:
         result["check_worst_z"] = float(check.worst_z)
     try:

@@ -218,6 +218,14 @@ def test_a_sensor_that_drifted_since_the_last_calibration_is_named(tmp_path):
     from app.commissioning_record import read_record
 
     assert "p4" in read_record(record).latest("pressure-calibration").result["drifted"]
+    # what the Sensors tab's caption says under the factors, from the record (found by a new user: "no
+    # sensor drifted since the previous calibration" after the first one)
+    from app.ui.views.calibration import _no_drift_text
+
+    checks = [c for c in read_record(record).checks if c.kind == "pressure-calibration"]
+    assert [c.result["compared_with"] for c in checks] == ["", checks[0].date, checks[1].date]
+    assert "no earlier one to compare with" in _no_drift_text(checks[0].result["compared_with"])
+    assert f"since the calibration of {checks[0].date}" in _no_drift_text(checks[1].result["compared_with"])
 
 
 @pytest.mark.parametrize("band, step, expected", [

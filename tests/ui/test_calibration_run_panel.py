@@ -297,3 +297,19 @@ def test_a_stop_after_the_last_pass_still_writes_nothing(qtbot, window, rig_copy
     assert "nothing written" in _said(panel), _said(panel)
     assert not out.exists()
     assert (record.read_text() if record.exists() else None) == before
+
+
+@pytest.mark.timeout(240)
+def test_the_runs_warnings_stay_in_view_under_the_result(qtbot, window, tmp_path):
+    # found by a new user: the cut-on warning was replaced by "Calibration written" and could only be
+    # found by scrolling the log
+    panel = window.sensor_run
+    out = tmp_path / "cal.toml"
+    panel.out.setText(str(out))
+    panel.band.setText("4000-5000")
+    panel.step.setText("500 Hz")
+    assert panel.start(), _said(panel)
+    _wait(qtbot, panel)
+    said = _said(panel)
+    assert "Calibration written" in said and out.exists(), said
+    assert "at or above the duct's first transverse cut-on" in said and "one frequency only" in said, said

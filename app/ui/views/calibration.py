@@ -151,7 +151,16 @@ class CalibrationView(QWidget):
             self.drifted = tuple(str(d) for d in last.result.get("drifted", ()))
             drift_text = (f" <b style='color:#C62828'>Drifted since the previous calibration: "
                           f"{html.escape(', '.join(self.drifted))}</b> — check mounting, cable and certificate."
-                          if self.drifted else " No sensor drifted since the previous calibration.")
+                          if self.drifted else _no_drift_text(last.result.get("compared_with")))
         self.caption.setText(f"{html.escape(str(cal_path))}: {html.escape(cal.method)} against "
                              f"{html.escape(cal.reference)}, {html.escape(cal.created)}, {f.size} frequencies "
                              f"{f[0]:g}-{f[-1]:g} Hz (bars: 95 % intervals).{drift_text}{note}")
+
+
+def _no_drift_text(compared_with: object) -> str:
+    """What the caption says when no sensor drifted: since which calibration, or that there was none."""
+    if compared_with is None:              # a record written before the date was kept
+        return " No sensor drifted since the previous calibration."
+    if not compared_with:
+        return " The first calibration in the commissioning record: no earlier one to compare with."
+    return f" No sensor drifted since the calibration of {html.escape(str(compared_with))}."

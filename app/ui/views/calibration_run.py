@@ -145,6 +145,7 @@ class CalibrationRunPanel(QWidget):
         self.busy = False
         self.blocked = ""                     # a sweep or a check is running: nothing starts here
         self.operator: ThreadedOperator | None = None
+        self.warnings: list[str] = []
         self.thread: threading.Thread | None = None
         self.outcome: svc.Outcome | None = None
         self._build()
@@ -274,6 +275,7 @@ class CalibrationRunPanel(QWidget):
             self._problem(str(exc))
             return False
         self.log.clear()
+        self.warnings = []                  # said again under the result, so none scrolls out of sight
         self.outcome = None
         op = ThreadedOperator(self._told.emit)
         self.operator = op
@@ -323,6 +325,7 @@ class CalibrationRunPanel(QWidget):
             return
         self.log.appendPlainText(text)
         if kind == "warning":
+            self.warnings.append(text)
             self.message.setText(f"<b style='color:#7A4A00'>{html.escape(text)}</b>")
 
     def _on_finished(self, outcome: Any, error: BaseException | None) -> None:
@@ -340,7 +343,8 @@ class CalibrationRunPanel(QWidget):
         self.message.setText(f"<b>Calibration written</b>: {html.escape(str(outcome.path))} ({len(outcome.freq_hz)} "
                              f"frequencies {outcome.freq_hz[0]:g}-{outcome.freq_hz[-1]:g} Hz, against "
                              f"{html.escape(outcome.reference)}).{html.escape(drift)}<br>To use it, add to the rig "
-                             f"file (before its first table): <code>{html.escape(outcome.use_line)}</code>")
+                             f"file (before its first table): <code>{html.escape(outcome.use_line)}</code>"
+                             + "".join(f"<br><b style='color:#7A4A00'>{html.escape(w)}</b>" for w in self.warnings))
         self.written.emit(str(outcome.path))
 
     def _problem(self, text: str) -> None:

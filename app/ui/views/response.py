@@ -33,7 +33,8 @@ class ResponseView(QWidget):
         self.model = model
         self.layout_widget = pg.GraphicsLayoutWidget()
         self.gain_plot = new_plot(self.layout_widget, "Gain", "|F|", row=0, col=0)
-        self.phase_plot = new_plot(self.layout_widget, "Phase", "deg", "frequency (Hz)", row=1, col=0)
+        self.phase_plot = new_plot(self.layout_widget, "Phase (unwrapped; e^(+iωt))", "deg", "frequency (Hz)", row=1,
+                                   col=0)
         self.phase_plot.setXLink(self.gain_plot)
         self.legend = self.gain_plot.addLegend(offset=(-5, 5), labelTextSize="8pt")
         self.truth_box = QCheckBox("Show the simulator's true answer")
