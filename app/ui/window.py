@@ -22,6 +22,7 @@ simulator's truth (rehearsal overlay only). Never ``app.storage`` or ``app.comma
 
 from __future__ import annotations
 
+import html
 import math
 import time
 from pathlib import Path
@@ -605,7 +606,10 @@ class MainWindow(ReviewActions, QMainWindow):
         if result.error is not None and result.name not in ("start", "close") \
                 and not result.name.startswith("commission"):     # the commissioning panel says its own
             self._say(f"{result.name} failed: {result.error}")
-            self.review.message.setText(f"{result.name} failed: {result.error}")
+            text = f"{result.name} failed: {result.error}"
+            if result.name == "open run" and self.review.run is not None:
+                text += f" — still showing {self.review.run.run_dir}"
+            self.review.message.setText(f"<b style='color:#C62828'>{html.escape(text, quote=False)}</b>")
 
     # ================================================================== files (worker thread)
     def _save_file(self, path: str, text: str) -> None:
