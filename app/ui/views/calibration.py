@@ -140,6 +140,8 @@ class CalibrationView(QWidget):
             self.gain_plot.addItem(pg.ErrorBarItem(x=f, y=g, top=ug, bottom=ug, pen=pen(colour), beam=0.0))
             self.phase_plot.plot(f, ph, pen=pen(colour), symbol="o", symbolSize=5, symbolBrush=colour)
             self.phase_plot.addItem(pg.ErrorBarItem(x=f, y=ph, top=up, bottom=up, pen=pen(colour), beam=0.0))
+        # the names packed at the top of the legend's column, not spread down the plot's height
+        self.legend.layout.setRowStretchFactor(len(cal.sensors), 1)
         self.sensors = tuple(s.name for s in cal.sensors)
         self.layout_widget.show()
         drift_text = ""
