@@ -27,7 +27,7 @@ from typing import Any, Callable, Sequence
 
 import numpy as np
 
-from ..core.calibration import CalibrationError, segment_phasors
+from ..core.calibration import MIN_PERIODS_PER_SEGMENT, MIN_SEGMENTS, CalibrationError, segment_phasors
 from ..errors import FlamebodeError
 
 
@@ -37,9 +37,6 @@ class HolderRunError(FlamebodeError):
 
 class Halted(FlamebodeError):
     """The run was halted (a signal or an emergency stop); the output is at zero."""
-
-
-MIN_WINDOW_PERIODS = 16.0            # 4 segments of 4 periods (app.core.calibration's least)
 
 
 @dataclass(frozen=True)
@@ -143,9 +140,9 @@ class HolderRun:
     def _pressure(self, freq_hz: float) -> float:
         # a window long enough for 4 segments of 4 periods at this frequency (0.2 s holds only 10
         # periods of 50 Hz), so that a low frequency is tuned, not refused after it was driven
-        x = self._read(max(self.settings.tuning_window_s, 1.05 * MIN_WINDOW_PERIODS / freq_hz))
+        x = self._read(max(self.settings.tuning_window_s, 1.05 * MIN_SEGMENTS * MIN_PERIODS_PER_SEGMENT / freq_hz))
         try:
-            ph = segment_phasors(x[self._ref:self._ref + 1], self._fs, freq_hz, n_segments=4)
+            ph = segment_phasors(x[self._ref:self._ref + 1], self._fs, freq_hz, n_segments=MIN_SEGMENTS)
         except CalibrationError as exc:
             raise HolderRunError(f"at {freq_hz:g} Hz: {exc}") from None
         return float(np.sqrt(np.mean(np.abs(ph[:, 0]) ** 2)))
